@@ -1,0 +1,361 @@
+"""Held-out metrics, bootstrap intervals, paired comparisons and ground-truth scores.
+
+Point estimates come from scikit-learn's metric functions. Each metric also has a
+batched numpy form, (B, n) rows -> (B,) values, used only to evaluate thousands of
+bootstrap resamples at once; tests check it against scikit-learn row by row.
+
+Classification: labels are in {-1, +1}, `pred` is the real-valued decision f(x).
+The predicted label is +1 where f(x) > 0 (scikit-learn's convention for decision
+functions). Log-loss and Brier score use the probability sigmoid(f(x)) — exact for
+the logistic loss, a stated convention for the hinge losses, whose margins are not
+calibrated probabilities.
+"""
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+from scipy import stats
+from scipy.special import expit
+from sklearn import metrics as skm
+
+# ---------------------------------------------------------------- metrics
+
+
+@dataclass(frozen=True)
+class Metric:
+    """A held-out score: `metric(y, pred) -> float`, plus what the bootstrap needs."""
+
+    name: str
+    task: str                     # "regression" | "classification" | "any"
+    lower_is_better: bool
+    single: Callable[[np.ndarray, np.ndarray], float] = field(repr=False)
+    batched: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = field(default=None, repr=False)
+
+    def __call__(self, y, pred) -> float:
+        return float(self.single(np.asarray(y), np.asarray(pred)))
+
+    def many(self, y_rows: np.ndarray, pred_rows: np.ndarray) -> np.ndarray:
+        """Values on each row of (B, n) arrays."""
+        if self.batched is not None:
+            return np.asarray(self.batched(y_rows, pred_rows), dtype=float)
+        return np.array([self(yr, pr) for yr, pr in zip(y_rows, pred_rows)])
+
+
+def _labels(decision):
+    return np.where(decision > 0, 1.0, -1.0)
+
+
+def _pinball_rows(tau):
+    def rows(y, pred):
+        r = y - pred
+        return np.mean(np.maximum(tau * r, (tau - 1) * r), axis=-1)
+    return rows
+
+
+def _r2_rows(y, pred):
+    sse = np.sum((y - pred) ** 2, axis=-1)
+    sst = np.sum((y - y.mean(axis=-1, keepdims=True)) ** 2, axis=-1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r2 = 1.0 - sse / sst
+    # scikit-learn's force_finite: constant y gives 1 for a perfect fit, else 0
+    return np.where(sst == 0, np.where(sse == 0, 1.0, 0.0), r2)
+
+
+def _balanced_accuracy_rows(y, decision):
+    hit = _labels(decision) == y
+    pos, neg = y > 0, y < 0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        tpr = np.sum(hit & pos, axis=-1) / np.sum(pos, axis=-1)
+        tnr = np.sum(hit & neg, axis=-1) / np.sum(neg, axis=-1)
+    return np.nanmean(np.stack([tpr, tnr]), axis=0)
+
+
+def _roc_auc_rows(y, decision):
+    # Mann-Whitney form of the AUC, ties counted one half through average ranks.
+    ranks = stats.rankdata(decision, axis=-1)
+    pos = y > 0
+    n_pos = pos.sum(axis=-1)
+    n_neg = y.shape[-1] - n_pos
+    with np.errstate(divide="ignore", invalid="ignore"):
+        auc = (np.sum(ranks * pos, axis=-1) - n_pos * (n_pos + 1) / 2) / (n_pos * n_neg)
+    return np.where((n_pos > 0) & (n_neg > 0), auc, np.nan)
+
+
+def _roc_auc_single(y, decision):
+    if np.unique(y).size < 2:
+        return math.nan  # undefined with one class present
+    return skm.roc_auc_score(y, decision)
+
+
+_EPS = np.finfo(float).eps
+
+
+def _log_loss_rows(y, decision):
+    # same clipping of probabilities as scikit-learn's log_loss (float64 machine eps)
+    p = np.clip(expit(decision), _EPS, 1 - _EPS)
+    q = np.clip(1 - expit(decision), _EPS, 1 - _EPS)
+    return -np.mean(np.where(y > 0, np.log(p), np.log(q)), axis=-1)
+
+
+def _regression(name, lower, single, rows):
+    return Metric(name, "regression", lower, single, rows)
+
+
+def _classification(name, lower, single, rows):
+    return Metric(name, "classification", lower, single, rows)
+
+
+def _build_metrics(tau: float) -> dict[str, Metric]:
+    return {
+        "mse": _regression("mse", True, skm.mean_squared_error,
+                           lambda y, f: np.mean((y - f) ** 2, axis=-1)),
+        "rmse": _regression("rmse", True, skm.root_mean_squared_error,
+                            lambda y, f: np.sqrt(np.mean((y - f) ** 2, axis=-1))),
+        "mae": _regression("mae", True, skm.mean_absolute_error,
+                           lambda y, f: np.mean(np.abs(y - f), axis=-1)),
+        "pinball": _regression("pinball", True,
+                               lambda y, f: skm.mean_pinball_loss(y, f, alpha=tau), _pinball_rows(tau)),
+        "r2": _regression("r2", False, skm.r2_score, _r2_rows),
+        "accuracy": _classification("accuracy", False,
+                                    lambda y, f: skm.accuracy_score(y, _labels(f)),
+                                    lambda y, f: np.mean(_labels(f) == y, axis=-1)),
+        "balanced_accuracy": _classification(
+            "balanced_accuracy", False,
+            lambda y, f: skm.balanced_accuracy_score(y, _labels(f)), _balanced_accuracy_rows),
+        "roc_auc": _classification("roc_auc", False, _roc_auc_single, _roc_auc_rows),
+        "log_loss": _classification("log_loss", True,
+                                    lambda y, f: skm.log_loss(y, expit(f), labels=[-1, 1]),
+                                    _log_loss_rows),
+        "brier": _classification("brier", True,
+                                 lambda y, f: skm.brier_score_loss(y, expit(f), pos_label=1),
+                                 lambda y, f: np.mean((expit(f) - (y > 0)) ** 2, axis=-1)),
+    }
+
+
+REGRESSION_METRICS = ("mse", "rmse", "mae", "pinball", "r2")
+CLASSIFICATION_METRICS = ("accuracy", "balanced_accuracy", "roc_auc", "log_loss", "brier")
+
+
+def metric_function(name: str, tau: float = 0.5) -> Metric:
+    """The metric called `name`; `tau` is the quantile level of the pinball loss."""
+    table = _build_metrics(tau)
+    if name not in table:
+        raise ValueError(f"unknown metric {name!r}; allowed: {', '.join(table)}")
+    return table[name]
+
+
+def loss_metric(loss) -> Metric:
+    """Mean held-out value of a loss object (anything with `.name`, `.task` and an
+    elementwise `.value(y, f)`), so each loss's own objective can be bootstrapped."""
+    return Metric(f"{loss.name}_loss", getattr(loss, "task", "any"), True,
+                  lambda y, f: float(np.mean(loss.value(y, f))),
+                  lambda y, f: np.mean(loss.value(y, f), axis=-1))
+
+
+def regression_metrics(y, pred, tau: float = 0.5) -> dict[str, float]:
+    table = _build_metrics(tau)
+    return {name: table[name](y, pred) for name in REGRESSION_METRICS}
+
+
+def classification_metrics(y, decision) -> dict[str, float]:
+    y = np.asarray(y)
+    if not np.isin(y, (-1, 1)).all():
+        raise ValueError("classification labels must be -1 or +1 (map them before evaluating)")
+    table = _build_metrics(0.5)
+    return {name: table[name](y, decision) for name in CLASSIFICATION_METRICS}
+
+
+def _as_metric(metric) -> Metric:
+    if isinstance(metric, Metric):
+        return metric
+    if isinstance(metric, str):
+        return metric_function(metric)
+    if callable(metric):  # a plain function: correct but evaluated resample by resample
+        return Metric(getattr(metric, "__name__", "metric"), "any", True, metric)
+    raise TypeError(f"metric must be a name, a Metric or a callable; got {type(metric).__name__}")
+
+
+# ---------------------------------------------------------------- bootstrap
+
+# Resamples are evaluated in blocks of at most this many (row, resample) cells,
+# so 2000 resamples of a large test set do not need one huge index matrix.
+_BLOCK_CELLS = 2**22
+
+
+def bootstrap_indices(n: int, n_boot: int, rng: np.random.Generator) -> np.ndarray:
+    """(n_boot, n) row indices drawn with replacement; share one matrix to get paired resamples."""
+    return rng.integers(0, n, size=(n_boot, n))
+
+
+def _resampled_values(metric: Metric, y, preds, n_boot, rng) -> list[np.ndarray]:
+    # One index matrix for all prediction vectors: every metric sees the same rows.
+    n = len(y)
+    step = max(1, _BLOCK_CELLS // max(n, 1))
+    out = [[] for _ in preds]
+    for start in range(0, n_boot, step):
+        idx = bootstrap_indices(n, min(step, n_boot - start), rng)
+        y_rows = y[idx]
+        for k, pred in enumerate(preds):
+            out[k].append(metric.many(y_rows, pred[idx]))
+    return [np.concatenate(v) for v in out]
+
+
+def _percentile_interval(values: np.ndarray, level: float, what: str) -> tuple[float, float]:
+    # Percentile interval (Efron & Tibshirani 1993, An Introduction to the Bootstrap, §13.3).
+    finite = values[np.isfinite(values)]
+    if finite.size < values.size:
+        warnings.warn(f"{values.size - finite.size} of {values.size} bootstrap resamples left "
+                      f"{what} undefined and were dropped", RuntimeWarning, stacklevel=3)
+    if finite.size == 0:
+        return math.nan, math.nan
+    low, high = np.quantile(finite, [(1 - level) / 2, (1 + level) / 2])
+    return float(low), float(high)
+
+
+def _check_inputs(y, preds, level, n_boot):
+    if not 0 < level < 1:
+        raise ValueError(f"level must be strictly between 0 and 1; got {level}")
+    if n_boot < 1:
+        raise ValueError(f"n_boot must be positive; got {n_boot}")
+    y = np.asarray(y)
+    preds = [np.asarray(p) for p in preds]
+    for p in preds:
+        if p.shape != y.shape or y.ndim != 1:
+            raise ValueError(f"y and predictions must be 1-D of equal length; got {y.shape} and {p.shape}")
+    return y, preds
+
+
+def bootstrap_ci(y, pred, metric, n_boot: int = 2000, level: float = 0.9, *,
+                 rng: np.random.Generator) -> tuple[float, float, float]:
+    """(estimate on all rows, low, high) of a percentile bootstrap interval over test rows."""
+    metric = _as_metric(metric)
+    y, (pred,) = _check_inputs(y, [pred], level, n_boot)
+    (values,) = _resampled_values(metric, y, [pred], n_boot, rng)
+    return (metric(y, pred), *_percentile_interval(values, level, metric.name))
+
+
+def paired_bootstrap_diff(y, pred_a, pred_b, metric, n_boot: int = 2000, level: float = 0.9, *,
+                          rng: np.random.Generator) -> tuple[float, float, float]:
+    """metric(a) − metric(b) on all rows, with a percentile interval from resampling the
+    SAME rows for both, so the noise the two share cancels."""
+    metric = _as_metric(metric)
+    y, (pred_a, pred_b) = _check_inputs(y, [pred_a, pred_b], level, n_boot)
+    va, vb = _resampled_values(metric, y, [pred_a, pred_b], n_boot, rng)
+    diff = metric(y, pred_a) - metric(y, pred_b)
+    return (diff, *_percentile_interval(va - vb, level, f"the {metric.name} difference"))
+
+
+# ---------------------------------------------------------------- comparisons
+
+
+def corrected_resampled_ttest(diffs, n_train: int, n_test: int, level: float = 0.9) -> dict:
+    """Corrected resampled t-test of Nadeau & Bengio (2003, Machine Learning 52, 239-281).
+
+    `diffs` are the J per-split differences of a score between two models fitted on the
+    same splits. The naive variance σ̂²/J ignores that training sets overlap; the
+    correction uses (1/J + n_test/n_train)·σ̂², with J − 1 degrees of freedom. For
+    K-fold CV repeated R times, J = K·R and n_test/n_train ≈ 1/(K − 1).
+    """
+    d = np.asarray(diffs, dtype=float).ravel()
+    if d.size < 2 or not np.all(np.isfinite(d)):
+        raise ValueError(f"need at least 2 finite differences; got {d.size} values")
+    if n_train <= 0 or n_test <= 0:
+        raise ValueError(f"n_train and n_test must be positive; got {n_train}, {n_test}")
+    j = d.size
+    mean = float(d.mean())
+    # all-equal differences: variance exactly 0 (d.var can leave rounding residue)
+    variance = 0.0 if np.ptp(d) == 0 else float(d.var(ddof=1))
+    factor = 1.0 / j + n_test / n_train
+    se = math.sqrt(factor * variance)
+    dof = j - 1
+    if se > 0:
+        t = mean / se
+    else:  # every split gave the same difference
+        t = 0.0 if mean == 0 else math.copysign(math.inf, mean)
+    p_value = float(2 * stats.t.sf(abs(t), dof))
+    half = float(stats.t.ppf((1 + level) / 2, dof)) * se
+    return {"mean": mean, "variance": variance, "correction": factor, "se": se, "t": t,
+            "dof": dof, "p_value": p_value, "low": mean - half, "high": mean + half, "level": level}
+
+
+def _winner(low: float, high: float, lower_is_better: bool) -> int | None:
+    """0 if model a is better, 1 if b is, None when the interval of a − b holds 0 or is undefined."""
+    if not (np.isfinite(low) and np.isfinite(high)) or low <= 0 <= high:
+        return None
+    a_lower = high < 0
+    return 0 if a_lower == lower_is_better else 1
+
+
+def verdict(name_a: str, name_b: str, diff: float, low: float, high: float, metric: str,
+            lower_is_better: bool, level: float = 0.9) -> str:
+    """One plain sentence about the difference a − b and its interval."""
+    detail = (f"{name_a} − {name_b} = {diff:.4g}, {level:.0%} interval [{low:.4g}, {high:.4g}]")
+    if not (np.isfinite(low) and np.isfinite(high)):
+        return f"On {metric}, {name_a} and {name_b} could not be compared: the interval is undefined."
+    win = _winner(low, high, lower_is_better)
+    if win is None:
+        return (f"On {metric}, the difference between {name_a} and {name_b} is not "
+                f"distinguishable from noise ({detail}, which contains 0).")
+    better, worse = (name_a, name_b) if win == 0 else (name_b, name_a)
+    direction = "lower" if lower_is_better else "higher"
+    return (f"On {metric}, {better} is better than {worse} by {abs(diff):.4g} "
+            f"({direction} is better; {detail}, which excludes 0).")
+
+
+def compare_pair(y, pred_a, pred_b, metric, *, name_a: str, name_b: str,
+                 rng: np.random.Generator, n_boot: int = 2000, level: float = 0.9) -> dict:
+    """One verdict-table row: each model's score with its interval and the paired
+    difference, all from one shared set of resampled test rows."""
+    metric = _as_metric(metric)
+    y, (pred_a, pred_b) = _check_inputs(y, [pred_a, pred_b], level, n_boot)
+    va, vb = _resampled_values(metric, y, [pred_a, pred_b], n_boot, rng)
+    est_a, est_b = metric(y, pred_a), metric(y, pred_b)
+    low, high = _percentile_interval(va - vb, level, f"the {metric.name} difference")
+    win = _winner(low, high, metric.lower_is_better)
+    return {
+        "metric": metric.name, "lower_is_better": metric.lower_is_better, "level": level,
+        "name_a": name_a, "estimate_a": est_a, "interval_a": _percentile_interval(va, level, metric.name),
+        "name_b": name_b, "estimate_b": est_b, "interval_b": _percentile_interval(vb, level, metric.name),
+        "diff": est_a - est_b, "diff_low": low, "diff_high": high,
+        "winner": None if win is None else (name_a, name_b)[win],
+        "verdict": verdict(name_a, name_b, est_a - est_b, low, high, metric.name,
+                           metric.lower_is_better, level),
+    }
+
+
+# ---------------------------------------------------------------- ground truth
+
+
+def support_recovery(selected_idx, true_idx, p: int) -> dict:
+    """Precision, recall and F1 of a selected feature set against the true support.
+
+    Precision is NaN when nothing was selected, recall NaN when the truth is empty
+    (undefined rather than a made-up 0 or 1)."""
+    sel, true = (np.unique(np.asarray(a, dtype=int).ravel()) for a in (selected_idx, true_idx))
+    for what, idx in (("selected", sel), ("true", true)):
+        if idx.size and (idx[0] < 0 or idx[-1] >= p):
+            raise ValueError(f"{what} indices must lie in [0, {p}); got range [{idx[0]}, {idx[-1]}]")
+    tp = int(np.intersect1d(sel, true).size)
+    fp, fn = int(sel.size - tp), int(true.size - tp)
+    precision = tp / sel.size if sel.size else math.nan
+    recall = tp / true.size if true.size else math.nan
+    f1 = 2 * tp / (2 * tp + fp + fn) if (2 * tp + fp + fn) else math.nan
+    return {"precision": precision, "recall": recall, "f1": f1,
+            "true_positives": tp, "false_positives": fp, "false_negatives": fn,
+            "n_selected": int(sel.size), "n_true": int(true.size)}
+
+
+def coefficient_error(w_hat, w_true) -> dict:
+    """Distances between estimated and true coefficients (truth linear in the features)."""
+    w_hat, w_true = np.asarray(w_hat, dtype=float).ravel(), np.asarray(w_true, dtype=float).ravel()
+    if w_hat.shape != w_true.shape:
+        raise ValueError(f"coefficient vectors differ in length: {w_hat.size} vs {w_true.size}")
+    err = w_hat - w_true
+    norm_true = float(np.linalg.norm(w_true))
+    l2 = float(np.linalg.norm(err))
+    return {"l2": l2, "l1": float(np.abs(err).sum()), "linf": float(np.abs(err).max(initial=0.0)),
+            "relative_l2": l2 / norm_true if norm_true > 0 else math.nan}

@@ -1,0 +1,274 @@
+import math
+import warnings
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
+from scipy import stats
+from scipy.special import expit
+from sklearn import metrics as skm
+
+from pipeline import evaluate
+from pipeline.evaluate import (
+    CLASSIFICATION_METRICS,
+    REGRESSION_METRICS,
+    bootstrap_ci,
+    classification_metrics,
+    coefficient_error,
+    compare_pair,
+    corrected_resampled_ttest,
+    metric_function,
+    paired_bootstrap_diff,
+    regression_metrics,
+    support_recovery,
+    verdict,
+)
+
+
+def _regression_data(seed=0, n=60):
+    rng = np.random.default_rng(seed)
+    y = rng.normal(size=n)
+    return y, y + rng.standard_t(3, size=n)
+
+
+def _classification_data(seed=0, n=60):
+    rng = np.random.default_rng(seed)
+    y = np.where(rng.random(n) < 0.35, 1.0, -1.0)
+    decision = np.round(0.8 * y + rng.normal(size=n), 1)  # rounding makes ties for the AUC
+    return y, decision
+
+
+# ------------------------------------------------------------ metrics vs scikit-learn
+
+
+def test_regression_metrics_match_scikit_learn():
+    # reference library: scikit-learn metric functions (pinball alpha = our tau)
+    y, pred = _regression_data()
+    got = regression_metrics(y, pred, tau=0.8)
+    assert got["mse"] == pytest.approx(skm.mean_squared_error(y, pred))
+    assert got["rmse"] == pytest.approx(math.sqrt(skm.mean_squared_error(y, pred)))
+    assert got["mae"] == pytest.approx(skm.mean_absolute_error(y, pred))
+    assert got["pinball"] == pytest.approx(skm.mean_pinball_loss(y, pred, alpha=0.8))
+    assert got["r2"] == pytest.approx(skm.r2_score(y, pred))
+
+
+def test_pinball_hand_value():
+    # tau = 0.25, residuals y - f = (2, -1, 0): 0.25*2 + 0.75*1 + 0 = 1.25, mean 1.25/3
+    got = regression_metrics(np.array([3.0, 0.0, 1.0]), np.array([1.0, 1.0, 1.0]), tau=0.25)
+    assert got["pinball"] == pytest.approx(1.25 / 3)
+
+
+def test_classification_metrics_match_scikit_learn():
+    # reference library: scikit-learn; labels {-1,+1}; label = +1 iff decision > 0;
+    # probability of +1 = sigmoid(decision), as for LogisticRegression.predict_proba
+    y, f = _classification_data()
+    got = classification_metrics(y, f)
+    labels = np.where(f > 0, 1, -1)
+    y01 = (y > 0).astype(int)
+    assert got["accuracy"] == pytest.approx(skm.accuracy_score(y, labels))
+    assert got["balanced_accuracy"] == pytest.approx(skm.balanced_accuracy_score(y, labels))
+    assert got["roc_auc"] == pytest.approx(skm.roc_auc_score(y01, f))
+    assert got["log_loss"] == pytest.approx(np.mean(np.logaddexp(0, -y * f)))  # logistic loss
+    assert got["brier"] == pytest.approx(np.mean((expit(f) - y01) ** 2))
+
+
+def test_classification_rejects_01_labels():
+    with pytest.raises(ValueError, match="-1 or \\+1"):
+        classification_metrics(np.array([0, 1, 1]), np.array([0.1, 0.2, -0.3]))
+
+
+def test_unknown_metric_names_the_allowed_ones():
+    with pytest.raises(ValueError, match="allowed: mse"):
+        metric_function("mape")
+
+
+@pytest.mark.parametrize("name", REGRESSION_METRICS + CLASSIFICATION_METRICS)
+def test_batched_rows_equal_scikit_learn_per_row(name):
+    # The bootstrap's vectorised forms must give what scikit-learn gives on each resample.
+    classification = name in CLASSIFICATION_METRICS
+    y, pred = _classification_data(3, 25) if classification else _regression_data(3, 25)
+    rng = np.random.default_rng(4)
+    idx = rng.integers(0, len(y), size=(300, len(y)))
+    if classification:
+        idx[0] = np.flatnonzero(y < 0)[0]   # a resample with one class only
+        pred = pred * 30                     # large margins exercise the probability clipping
+    else:
+        idx[0] = 5                           # constant y in one resample (R² edge case)
+    metric = metric_function(name, tau=0.3)
+    rows = metric.many(y[idx], pred[idx])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # scikit-learn warns on one-class resamples
+        singles = np.array([metric(y[i], pred[i]) for i in idx])
+    np.testing.assert_allclose(rows, singles, rtol=1e-10, atol=1e-12, equal_nan=True)
+
+
+# ------------------------------------------------------------ corrected resampled t-test
+
+
+def test_corrected_ttest_hand_computation():
+    # Nadeau & Bengio (2003), Machine Learning 52: variance (1/J + n_test/n_train)·σ̂².
+    # Hand: d = 1..5, J = 5, mean 3, σ̂² = 2.5, factor 1/5 + 20/80 = 0.45,
+    # corrected variance 1.125, t = 3/√1.125 = 2.8284271, 4 degrees of freedom.
+    out = corrected_resampled_ttest([1, 2, 3, 4, 5], n_train=80, n_test=20)
+    assert out["correction"] == pytest.approx(0.45)
+    assert out["variance"] == pytest.approx(2.5)
+    assert out["t"] == pytest.approx(2.8284271, abs=1e-7)
+    assert out["dof"] == 4
+    # p-value and 90 % interval from Student's t (reference library: scipy.stats.t)
+    assert out["p_value"] == pytest.approx(2 * stats.t.sf(2.8284271247, 4))
+    half = stats.t.ppf(0.95, 4) * math.sqrt(1.125)
+    assert (out["low"], out["high"]) == pytest.approx((3 - half, 3 + half))
+
+
+def test_corrected_ttest_is_the_naive_test_with_a_wider_variance():
+    # reference library: scipy.stats.ttest_1samp is the uncorrected test (variance σ̂²/J)
+    d = np.random.default_rng(5).normal(0.3, 1.0, size=10)
+    naive = stats.ttest_1samp(d, 0.0)
+    out = corrected_resampled_ttest(d, n_train=90, n_test=10)
+    assert out["t"] == pytest.approx(naive.statistic * math.sqrt((1 / 10) / (1 / 10 + 10 / 90)))
+    assert out["p_value"] > naive.pvalue
+
+
+def test_corrected_ttest_constant_differences():
+    assert corrected_resampled_ttest([0.0, 0.0, 0.0], 10, 5)["p_value"] == 1.0
+    out = corrected_resampled_ttest([0.2, 0.2, 0.2], 10, 5)
+    assert out["t"] == math.inf and out["p_value"] == 0.0
+    with pytest.raises(ValueError):
+        corrected_resampled_ttest([1.0], 10, 5)
+
+
+# ------------------------------------------------------------ bootstrap
+
+
+def test_bootstrap_coverage_of_nominal_90_percent():
+    # Seeded simulation: errors e ~ N(0, 1), so the population MAE is √(2/π) (half-normal
+    # mean, handbook value) and the MAE difference of noise scales 1 and 1.3 is
+    # -0.3·√(2/π). Percentile intervals should cover about 90 % of the time.
+    rng = np.random.default_rng(2024)
+    reps, n = 300, 100
+    true_mae, true_diff = math.sqrt(2 / math.pi), -0.3 * math.sqrt(2 / math.pi)
+    hit_single = hit_diff = 0
+    for _ in range(reps):
+        y = rng.normal(size=n)
+        e = rng.normal(size=n)
+        a, b = y + e, y + 1.3 * rng.normal(size=n)
+        _, lo, hi = bootstrap_ci(y, a, "mae", n_boot=1000, level=0.9, rng=rng)
+        hit_single += lo <= true_mae <= hi
+        _, lo, hi = paired_bootstrap_diff(y, a, b, "mae", n_boot=1000, level=0.9, rng=rng)
+        hit_diff += lo <= true_diff <= hi
+    assert 0.85 <= hit_single / reps <= 0.95
+    assert 0.85 <= hit_diff / reps <= 0.95
+
+
+def test_bootstrap_is_reproducible_and_blocking_does_not_change_it(monkeypatch):
+    y, pred = _regression_data(1, 50)
+    first = bootstrap_ci(y, pred, "rmse", rng=np.random.default_rng(9))
+    monkeypatch.setattr(evaluate, "_BLOCK_CELLS", 7 * 50)  # blocks of 7 resamples
+    second = bootstrap_ci(y, pred, "rmse", rng=np.random.default_rng(9))
+    assert first == second
+
+
+def test_plain_callable_metric_gives_the_same_interval():
+    y, pred = _regression_data(2, 40)
+    by_name = bootstrap_ci(y, pred, "mae", n_boot=300, rng=np.random.default_rng(1))
+    by_fn = bootstrap_ci(y, pred, skm.mean_absolute_error, n_boot=300, rng=np.random.default_rng(1))
+    assert by_fn == pytest.approx(by_name)
+
+
+def test_undefined_resamples_are_dropped_with_a_warning():
+    y = np.array([1.0, -1, -1, -1, -1, -1, -1, -1])
+    f = np.linspace(-1, 1, 8)
+    with pytest.warns(RuntimeWarning, match="undefined"):
+        est, lo, hi = bootstrap_ci(y, f, "roc_auc", n_boot=500, rng=np.random.default_rng(0))
+    assert lo <= hi and np.isfinite(lo)
+
+
+def test_bad_inputs_raise():
+    y, pred = _regression_data()
+    with pytest.raises(ValueError, match="level"):
+        bootstrap_ci(y, pred, "mse", level=90, rng=np.random.default_rng(0))
+    with pytest.raises(ValueError, match="equal length"):
+        paired_bootstrap_diff(y, pred, pred[:-1], "mse", rng=np.random.default_rng(0))
+
+
+vectors = st.integers(2, 40).flatmap(
+    lambda n: st.tuples(*(arrays(np.float64, n, elements=st.floats(-1e3, 1e3)) for _ in range(3))))
+
+
+@settings(max_examples=60, deadline=None)
+@given(vectors, st.sampled_from(["mse", "mae", "rmse", "pinball", "r2"]), st.integers(0, 2**32 - 1))
+def test_paired_difference_of_identical_predictions_is_exactly_zero(data, name, seed):
+    y, a, _ = data
+    assert paired_bootstrap_diff(y, a, a.copy(), name, n_boot=200,
+                                 rng=np.random.default_rng(seed)) == (0.0, 0.0, 0.0)
+
+
+@settings(max_examples=60, deadline=None)
+@given(vectors, st.sampled_from(["mse", "mae", "pinball"]), st.integers(0, 2**32 - 1))
+def test_interval_of_a_mean_loss_contains_its_estimate(data, name, seed):
+    y, a, b = data
+    est, lo, hi = bootstrap_ci(y, a, name, n_boot=400, rng=np.random.default_rng(seed))
+    assert lo <= est * (1 + 1e-12) + 1e-12 and est <= hi * (1 + 1e-12) + 1e-12
+    d, lo, hi = paired_bootstrap_diff(y, a, b, name, n_boot=400, rng=np.random.default_rng(seed))
+    assert lo - 1e-9 <= d <= hi + 1e-9
+
+
+@settings(max_examples=40, deadline=None)
+@given(vectors, st.integers(0, 2**32 - 1))
+def test_swapping_the_pair_negates_the_interval(data, seed):
+    y, a, b = data
+    d1, lo1, hi1 = paired_bootstrap_diff(y, a, b, "mse", n_boot=300, rng=np.random.default_rng(seed))
+    d2, lo2, hi2 = paired_bootstrap_diff(y, b, a, "mse", n_boot=300, rng=np.random.default_rng(seed))
+    assert (d2, lo2, hi2) == pytest.approx((-d1, -hi1, -lo1), rel=1e-9, abs=1e-9)
+
+
+def test_compare_pair_agrees_with_the_separate_functions():
+    y, a = _regression_data(6, 80)
+    b = y + 2.0 * np.random.default_rng(7).normal(size=80)
+    row = compare_pair(y, a, b, "mse", name_a="sparse", name_b="ridge", rng=np.random.default_rng(3))
+    assert (row["estimate_a"], *row["interval_a"]) == bootstrap_ci(y, a, "mse", rng=np.random.default_rng(3))
+    assert (row["diff"], row["diff_low"], row["diff_high"]) == pytest.approx(
+        paired_bootstrap_diff(y, a, b, "mse", rng=np.random.default_rng(3)))
+    assert row["verdict"].startswith("On mse,")
+
+
+# ------------------------------------------------------------ verdict
+
+
+def test_verdict_sentences():
+    noise = verdict("sparse", "ridge", -0.02, -0.05, 0.01, "mse", lower_is_better=True)
+    assert "not distinguishable from noise" in noise and "contains 0" in noise
+    a_wins = verdict("sparse", "ridge", -0.2, -0.3, -0.1, "mse", lower_is_better=True)
+    assert a_wins.startswith("On mse, sparse is better than ridge by 0.2 ")
+    b_wins = verdict("sparse", "ridge", -0.04, -0.06, -0.02, "roc_auc", lower_is_better=False)
+    assert b_wins.startswith("On roc_auc, ridge is better than sparse by 0.04 ")
+    assert "could not be compared" in verdict("a", "b", 0.1, math.nan, math.nan, "mse", True)
+
+
+# ------------------------------------------------------------ ground truth
+
+
+def test_support_recovery_matches_scikit_learn_on_indicator_vectors():
+    # reference library: precision_recall_fscore_support on 0/1 membership vectors of length p
+    p, selected, true = 12, [0, 2, 3, 7, 11], [0, 1, 2, 3]
+    got = support_recovery(selected, true, p)
+    t = np.isin(np.arange(p), true).astype(int)
+    s = np.isin(np.arange(p), selected).astype(int)
+    prec, rec, f1, _ = skm.precision_recall_fscore_support(t, s, average="binary")
+    assert (got["precision"], got["recall"], got["f1"]) == pytest.approx((prec, rec, f1))
+    assert (got["true_positives"], got["false_positives"], got["false_negatives"]) == (3, 2, 1)
+
+
+def test_support_recovery_edge_cases():
+    empty = support_recovery([], [1, 2], 5)
+    assert math.isnan(empty["precision"]) and empty["recall"] == 0.0 and empty["f1"] == 0.0
+    with pytest.raises(ValueError, match="selected indices"):
+        support_recovery([5], [1], 5)
+
+
+def test_coefficient_error_hand_values():
+    # error (1, -2, 0, 2): l2 = 3, l1 = 5, linf = 2; ‖w_true‖ = √(1+4) = √5
+    got = coefficient_error([2.0, 0.0, 0.0, 2.0], [1.0, 2.0, 0.0, 0.0])
+    assert got == pytest.approx({"l2": 3.0, "l1": 5.0, "linf": 2.0, "relative_l2": 3 / math.sqrt(5)})
