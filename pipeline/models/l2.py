@@ -1,0 +1,122 @@
+"""Ridge-type (L2) family in representer form: the interface the runner calls.
+
+    minimise (1/n) Σ loss(yᵢ, b + (Kc)ᵢ) + (λ/2) cᵀKc,  intercept b unpenalised.
+
+The caller builds K from features fitted on training rows only. Classification
+labels are {−1, +1}. A solver failure at one λ does not raise: that λ gets
+converged False and a status message, and the path goes on.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from pipeline.models.l2_eigen import KernelEigen, effective_df, kernel_eigen
+from pipeline.models.l2_path import L2Path
+from pipeline.models.l2_squared import squared_path, squared_primal_path
+
+__all__ = ["L2Path", "KernelEigen", "kernel_eigen", "l2_lambda_grid", "fit_l2_path",
+           "fit_l2_primal_path", "predict_path", "predict_rows", "primal_weights", "loss_name"]
+
+# Blocks of test rows in prediction: memory stays at block × n floats.
+PREDICT_BLOCK_ROWS = 4096
+
+
+def loss_name(loss) -> str:
+    """Accept a loss object from pipeline.losses (``.name``) or its name."""
+    return loss if isinstance(loss, str) else str(getattr(loss, "name"))
+
+
+def _df_to_lambda(d: np.ndarray, n: int, target: float) -> float:
+    """λ with Σ d/(d + nλ) = target, by bisection in log λ (df falls as λ grows)."""
+    lo, hi = np.log(1e-16 * max(d.max(), 1e-300) / n), np.log(1e8 * max(d.max(), 1e-300) / n)
+    for _ in range(200):
+        mid = 0.5 * (lo + hi)
+        if effective_df(d, [np.exp(mid)], n)[0] > target:
+            lo = mid
+        else:
+            hi = mid
+    return float(np.exp(0.5 * (lo + hi)))
+
+
+def l2_lambda_grid(K, n_lambdas: int, df_range=(1.0, None), min_lambda_ratio: float = 1e-10,
+                   fit_intercept: bool = True) -> np.ndarray:
+    """Decreasing geometric λ grid from df(λ_max) = df_range[0] to df(λ_min) = df_range[1].
+
+    ``df_range[1]`` None means 0.95·(n − 1). λ_min is kept ≥ min_lambda_ratio·d_max/n
+    so that K̃ + nλI stays well conditioned (fast-decaying spectra such as the rbf
+    one cannot reach df ≈ n − 1 otherwise). ``K`` may be a KernelEigen already made.
+    """
+    eig = K if isinstance(K, KernelEigen) else kernel_eigen(K, fit_intercept, on_psd_fail="ignore")
+    d, n = eig.eigenvalues, eig.n
+    df_lo, df_hi = df_range
+    df_hi = 0.95 * (n - 1) if df_hi is None else df_hi
+    rank_df = float(np.sum(d > 1e-12 * max(d.max(), 1e-300)))
+    df_hi = min(df_hi, 0.999 * rank_df)
+    lam_max = _df_to_lambda(d, n, df_lo)
+    lam_min = max(_df_to_lambda(d, n, df_hi), min_lambda_ratio * d.max() / n)
+    if n_lambdas == 1:
+        return np.array([lam_max])
+    return np.geomspace(lam_max, min(lam_min, lam_max), n_lambdas)
+
+
+def fit_l2_path(K, y, loss, lambdas, *, fit_intercept: bool = True, eigen: KernelEigen | None = None,
+                psd_tol: float = 1e-8, on_psd_fail: str = "raise", solver_options: dict | None = None
+                ) -> L2Path:
+    """Fit the whole λ path on the training Gram K (n, n).
+
+    Squared loss: closed form from one eigendecomposition, with exact LOO and GCV.
+    Other losses: see pipeline.models.l2_general (Newton in eigen-coordinates for
+    smooth losses, cvxpy for non-smooth ones), warm-started along the path.
+    The PSD check runs on the eigenvalues (raise / warn / ignore per on_psd_fail).
+    """
+    y = np.asarray(y, dtype=float).ravel()
+    lambdas = np.asarray(lambdas, dtype=float).ravel()
+    if np.any(lambdas <= 0):
+        raise ValueError("every λ must be positive (an unpenalised fit has no unique optimum)")
+    eig = eigen if eigen is not None else kernel_eigen(K, fit_intercept, psd_tol, on_psd_fail)
+    if eig.n != y.shape[0]:
+        raise ValueError(f"Gram has {eig.n} rows but y has {y.shape[0]}")
+    name = loss_name(loss)
+    if name == "squared":
+        return squared_path(eig, y, lambdas)
+    from pipeline.models.l2_general import general_path  # cvxpy import only when needed
+    return general_path(eig, y, loss, lambdas, **(solver_options or {}))
+
+
+def fit_l2_primal_path(Phi, y, lambdas, fit_intercept: bool = True) -> tuple[L2Path, np.ndarray]:
+    """Squared-loss path through the explicit features Φ (n, p), cheaper when p < n.
+
+    Gives the same path as fit_l2_path(ΦΦᵀ, …); also returns primal weights (L, p).
+    """
+    return squared_primal_path(Phi, y, lambdas, fit_intercept)
+
+
+def predict_path(path: L2Path, K_test_train, block_rows: int = PREDICT_BLOCK_ROWS) -> np.ndarray:
+    """Decision values (L, m) for the test rows of the cross Gram K_test_train (m, n)."""
+    Kt = np.asarray(K_test_train, dtype=float)
+    if Kt.ndim != 2 or Kt.shape[1] != path.dual_coef.shape[1]:
+        raise ValueError(f"cross Gram must have {path.dual_coef.shape[1]} columns, got {Kt.shape}")
+    out = np.empty((path.dual_coef.shape[0], Kt.shape[0]))
+    for start in range(0, Kt.shape[0], block_rows):
+        out[:, start:start + block_rows] = path.dual_coef @ Kt[start:start + block_rows].T
+    out += path.intercept[:, None]
+    return out
+
+
+def predict_rows(path: L2Path, X_test, X_train, kernel: str, block_rows: int = PREDICT_BLOCK_ROWS,
+                 **kernel_params) -> np.ndarray:
+    """Decision values (L, m) computing the cross Gram block by block: memory block × n."""
+    from pipeline.kernels import gram, resolve_params
+    params = resolve_params(X_train, kernel, **kernel_params)
+    X_test = np.asarray(X_test, dtype=float)
+    out = np.empty((path.dual_coef.shape[0], X_test.shape[0]))
+    for start in range(0, X_test.shape[0], block_rows):
+        block = gram(X_test[start:start + block_rows], X_train, kernel, **params)
+        out[:, start:start + block_rows] = path.dual_coef @ block.T
+    out += path.intercept[:, None]
+    return out
+
+
+def primal_weights(path: L2Path, Phi_train) -> np.ndarray:
+    """w = Φᵀc (L, p) for an explicit-feature kernel K = ΦΦᵀ; f = b + Φw."""
+    return path.dual_coef @ np.asarray(Phi_train, dtype=float)
