@@ -1,0 +1,135 @@
+"""Command line: parse, call the runner, print. User mistakes exit 2 with one paragraph."""
+from __future__ import annotations
+
+import argparse
+import os
+import pathlib
+import sys
+import textwrap
+import warnings
+
+from .config import ConfigError, load_config
+from .data import DataError
+
+EXIT_USER_ERROR = 2
+
+
+def _fail(message: str) -> int:
+    print(textwrap.fill(f"penduel: {message}", width=100, break_long_words=False, break_on_hyphens=False),
+          file=sys.stderr)
+    return EXIT_USER_ERROR
+
+
+def cmd_validate(args) -> int:
+    import yaml
+
+    spec, _ = load_config(args.config)
+    print(f"# {args.config}: valid. Resolved settings (defaults filled in):")
+    print(yaml.safe_dump(spec.resolved(), sort_keys=False, allow_unicode=True), end="")
+    return 0
+
+
+def _summary_table(result) -> str:
+    primary = "rmse" if result.dataset.task == "regression" else "balanced_accuracy"
+    head = f"{'loss':18s} {'family':16s} {'λ chosen':>10s} {'test ' + primary:>24s} {'nonzero':>8s} {'df':>7s} {'fit s':>7s}"
+    lines = [head, "-" * len(head)]
+    for r in result.results:
+        lo, hi = r.intervals.get(primary, (float("nan"), float("nan")))
+        cell = f"{r.metrics[primary]:.4g} [{lo:.3g}, {hi:.3g}]"
+        nnz = str(r.n_nonzero) if r.n_nonzero is not None else "all"
+        lines.append(f"{r.loss_label:18s} {r.title:16s} {r.lambda_chosen:10.3g} {cell:>24s} {nnz:>8s} "
+                     f"{r.effective_df:7.1f} {r.fit_seconds:7.2f}")
+    return "\n".join(lines)
+
+
+def cmd_run(args) -> int:
+    from .report import write_report
+    from .runner import run_experiment
+    from .tracking import ExecutionLog
+
+    spec, base_dir = load_config(args.config)
+    if args.tracking_uri:
+        spec = spec.model_copy(update={"tracking": spec.tracking.model_copy(update={"uri": args.tracking_uri})})
+    print(f"penduel: running '{spec.name}' — {len(spec.losses)} loss(es), "
+          f"{spec.selection.cv_folds}-fold CV, tracking store {spec.tracking.uri}", file=sys.stderr)
+    with ExecutionLog(spec) as log:
+        result = run_experiment(spec, base_dir, progress=not args.quiet)
+        log.log_results(result)
+        path = write_report(result, log.run_id, pathlib.Path.cwd())
+        log.log_report(path)
+    print(_summary_table(result))
+    for note in result.notes:
+        print(f"note: {note}")
+    print(f"\nfinished in {result.seconds:.1f} s")
+    print(f"report: {path}")
+    print(f"run id: {log.run_id}")
+    return 0
+
+
+def cmd_ui(args) -> int:
+    import subprocess
+
+    uri = args.tracking_uri
+    if uri is None and args.config:
+        spec, _ = load_config(args.config)
+        uri = spec.tracking.uri
+    uri = uri or "sqlite:///mlflow.db"
+    print(f"penduel: tracking UI for {uri} at http://{args.host}:{args.port} (Ctrl-C stops it)", file=sys.stderr)
+    cmd = [sys.executable, "-m", "mlflow", "server", "--backend-store-uri", uri, "--host", args.host,
+           "--port", str(args.port)]
+    try:
+        return subprocess.call(cmd)
+    except KeyboardInterrupt:
+        return 0
+
+
+def cmd_scenarios(args) -> int:
+    from .config import ScenarioSource
+
+    print("Synthetic scenarios (data.kind: scenario, data.name: ...):")
+    field = ScenarioSource.model_fields["name"]
+    print(f"  {field.description}")
+    for name, f in ScenarioSource.model_fields.items():
+        if name not in ("kind", "name"):
+            print(f"  {name:14s} default {f.default!r:8}  {f.description}")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="penduel", description="Compare sparse (L1) and ridge-type (L2) "
+                                     "penalised models on identical splits, log them and write a report.")
+    sub = parser.add_subparsers(dest="verb", required=True)
+    p = sub.add_parser("run", help="run one experiment file")
+    p.add_argument("config")
+    p.add_argument("--tracking-uri", help="override tracking.uri of the config")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.set_defaults(func=cmd_run)
+    p = sub.add_parser("validate", help="check an experiment file and print it with defaults filled in")
+    p.add_argument("config")
+    p.set_defaults(func=cmd_validate)
+    p = sub.add_parser("ui", help="open the tracking UI on this machine")
+    p.add_argument("--config", help="take the tracking store from this experiment file")
+    p.add_argument("--tracking-uri")
+    p.add_argument("--host", default="127.0.0.1", help="address to bind (default 127.0.0.1, this machine only)")
+    p.add_argument("--port", type=int, default=5000)
+    p.set_defaults(func=cmd_ui)
+    p = sub.add_parser("scenarios", help="list the synthetic scenarios and their settings")
+    p.set_defaults(func=cmd_scenarios)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    warnings.filterwarnings("ignore", category=FutureWarning)
+    os.environ.setdefault("PYTHONWARNINGS", "ignore::FutureWarning")
+    args = build_parser().parse_args(argv)
+    try:
+        return args.func(args)
+    except (ConfigError, DataError) as exc:
+        return _fail(str(exc))
+    except KeyboardInterrupt:
+        print("penduel: interrupted; the tracking run is marked KILLED.", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -1,0 +1,323 @@
+"""The experiment file: pydantic models, safe YAML loading, clear errors.
+
+This is the only place defaults live. Every other module receives an
+`ExperimentSpec` (or a piece of it) with every value resolved.
+"""
+from __future__ import annotations
+
+import difflib
+import hashlib
+import json
+import pathlib
+from typing import Annotated, Any, Literal, Union
+
+import yaml
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator, model_validator
+
+LOSS_CHOICES = ("squared", "absolute", "huber", "quantile", "logistic", "hinge", "squared_hinge")
+REGRESSION_LOSSES = ("squared", "absolute", "huber", "quantile")
+CLASSIFICATION_LOSSES = ("logistic", "hinge", "squared_hinge")
+SCENARIO_CHOICES = ("spectral_bands", "binary_blobs", "dense_effects")
+BUNDLED_CHOICES = ("diabetes", "breast_cancer")
+
+
+class ConfigError(ValueError):
+    """A user mistake in the experiment file: one paragraph, shown without a traceback."""
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+# ---------------------------------------------------------------- data sources
+class FileSource(_Strict):
+    kind: Literal["csv", "parquet"] = Field(description="Read a CSV or Parquet file.")
+    path: str = Field(description="File path, relative to the config file's folder.")
+    target: str = Field(description="Name of the column to predict.")
+
+
+class BundledSource(_Strict):
+    kind: Literal["bundled"] = Field(description="An open dataset shipped with scikit-learn.")
+    name: Literal["diabetes", "breast_cancer"] = Field(
+        description="diabetes (Efron et al. 2004) or breast_cancer (Wisconsin diagnostic, UCI).")
+
+
+class ScenarioSource(_Strict):
+    kind: Literal["scenario"] = Field(description="A synthetic scenario that records its ground truth.")
+    name: Literal["spectral_bands", "binary_blobs", "dense_effects"] = Field(
+        description="spectral_bands: correlated bands, sparse signal; binary_blobs: two-class, "
+                    "few informative features; dense_effects: many small effects.")
+    n_samples: int = Field(160, ge=10, le=1_000_000, description="Number of rows.")
+    n_features: int = Field(400, ge=2, le=1_000_000, description="Number of columns.")
+    n_informative: int = Field(6, ge=1, description="Columns that carry the signal.")
+    correlation: float = Field(0.95, ge=0.0, lt=1.0,
+                               description="Correlation between neighbouring columns (spectral_bands).")
+    noise: float = Field(1.0, gt=0.0, description="Noise standard deviation (regression) or label-flip scale.")
+    seed: int = Field(0, ge=0, description="Seed of the data draw (separate from the experiment seed).")
+
+    @model_validator(mode="after")
+    def _informative_fits(self) -> "ScenarioSource":
+        if self.n_informative > self.n_features:
+            raise ValueError(f"n_informative ({self.n_informative}) exceeds n_features ({self.n_features})")
+        return self
+
+
+DataSource = Annotated[Union[FileSource, BundledSource, ScenarioSource], Field(discriminator="kind")]
+
+
+# ---------------------------------------------------------------- features
+class IdentityMap(_Strict):
+    kind: Literal["identity"] = Field(description="The input columns themselves.")
+
+
+class PolynomialMap(_Strict):
+    kind: Literal["polynomial"] = Field(description="Products of standardised inputs up to a degree.")
+    degree: int = Field(2, ge=2, le=5, description="Highest total degree.")
+    interaction_only: bool = Field(False, description="Only products of distinct columns.")
+
+
+class RandomFourierMap(_Strict):
+    kind: Literal["random_fourier"] = Field(
+        description="Random Fourier features approximating a Gaussian kernel (Rahimi & Recht 2007).")
+    n_components: int = Field(300, ge=1, le=5_000_000, description="Number of random features.")
+    bandwidth: Union[float, Literal["median"]] = Field(
+        "median", description="Gaussian bandwidth σ on standardised inputs, or 'median' for the "
+                              "median pairwise distance of training rows.")
+
+    @field_validator("bandwidth")
+    @classmethod
+    def _positive(cls, v):
+        if not isinstance(v, str) and v <= 0:
+            raise ValueError("bandwidth must be positive or 'median'")
+        return v
+
+
+FeatureMap = Annotated[Union[IdentityMap, PolynomialMap, RandomFourierMap], Field(discriminator="kind")]
+
+
+class FeaturesSpec(_Strict):
+    maps: tuple[FeatureMap, ...] = Field((IdentityMap(kind="identity"),),
+                                         description="Feature maps whose outputs are concatenated.")
+    memory_budget_mib: int = Field(2048, ge=16, description="Largest explicit feature matrix allowed, in MiB.")
+
+    @field_validator("maps")
+    @classmethod
+    def _not_empty(cls, v):
+        if len(v) == 0:
+            raise ValueError("at least one feature map is needed")
+        return v
+
+
+# ---------------------------------------------------------------- families
+class L1Spec(_Strict):
+    enabled: bool = Field(True, description="Fit the sparse family.")
+    n_lambdas: int = Field(30, ge=2, le=500, description="Points on the λ path.")
+    lambda_ratio: float = Field(0.01, gt=0.0, lt=1.0, description="Smallest λ as a fraction of λ_max.")
+    tol: float = Field(1e-7, gt=0.0, lt=1.0, description="Optimality tolerance of each fit.")
+    solver: str = Field("auto", description="Solver back-end ('auto' picks per loss).")
+
+
+class L2Spec(_Strict):
+    enabled: bool = Field(True, description="Fit the ridge-type family.")
+    kernel: str = Field("linear", description="Kernel on the features; 'linear' is K = ΦΦᵀ of the feature map.")
+    n_lambdas: int = Field(30, ge=2, le=500, description="Points on the λ path.")
+
+
+class FamiliesSpec(_Strict):
+    l1: L1Spec = L1Spec()
+    l2: L2Spec = L2Spec()
+
+
+class LossSpec(_Strict):
+    name: Literal["squared", "absolute", "huber", "quantile", "logistic", "hinge", "squared_hinge"]
+    delta: float = Field(1.0, gt=0.0, description="Huber threshold (on standardised target).")
+    tau: float = Field(0.5, gt=0.0, lt=1.0, description="Quantile level.")
+
+    def params(self) -> dict[str, float]:
+        if self.name == "huber":
+            return {"delta": self.delta}
+        if self.name == "quantile":
+            return {"tau": self.tau}
+        return {}
+
+    @property
+    def label(self) -> str:
+        p = self.params()
+        return self.name + "".join(f"_{k}{v:g}" for k, v in p.items())
+
+
+class SplitSpec(_Strict):
+    test_fraction: float = Field(0.25, gt=0.0, lt=0.9, description="Share of rows held out for testing.")
+
+
+class SelectionSpec(_Strict):
+    cv_folds: int = Field(5, ge=2, le=50, description="Folds of K-fold cross-validation.")
+    rule: Literal["min", "one_se"] = Field("min", description="Pick the λ of least CV error, or the simplest "
+                                                              "within one standard error of it.")
+
+
+class TrackingSpec(_Strict):
+    uri: str = Field("sqlite:///mlflow.db", description="mlflow tracking URI (SQLite file by default).")
+    experiment_name: str | None = Field(None, description="Tracking experiment; defaults to the experiment name.")
+
+
+class ReportSpec(_Strict):
+    directory: str = Field("reports", description="Folder where reports are written.")
+
+
+class ExecutionSpec(_Strict):
+    backend: Literal["local", "processes", "dask"] = Field(
+        "local", description="Where fits run: this process, worker processes, or a Dask cluster.")
+    n_jobs: int = Field(1, ge=1, le=256, description="Worker processes (processes) or local Dask workers.")
+    scheduler_address: str | None = Field(None, description="Dask scheduler address; none starts a local cluster.")
+
+
+class ExperimentSpec(_Strict):
+    name: str = Field(description="Experiment name, used for the tracking experiment and report folder.",
+                      min_length=1, max_length=120, pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
+    description: str = Field("", description="Free text shown in the report.")
+    seed: int = Field(0, ge=0, description="Root of every random choice.")
+    data: DataSource
+    split: SplitSpec = SplitSpec()
+    features: FeaturesSpec = FeaturesSpec()
+    losses: tuple[LossSpec, ...] = Field((LossSpec(name="squared"),), description="Losses to compare on.")
+    families: FamiliesSpec = FamiliesSpec()
+    selection: SelectionSpec = SelectionSpec()
+    tracking: TrackingSpec = TrackingSpec()
+    report: ReportSpec = ReportSpec()
+    execution: ExecutionSpec = ExecutionSpec()
+
+    @field_validator("losses", mode="before")
+    @classmethod
+    def _loss_strings(cls, v):
+        if isinstance(v, (list, tuple)):
+            return [{"name": x} if isinstance(x, str) else x for x in v]
+        return v
+
+    @field_validator("losses")
+    @classmethod
+    def _losses_not_empty(cls, v):
+        if len(v) == 0:
+            raise ValueError("at least one loss is needed")
+        labels = [loss.label for loss in v]
+        if len(set(labels)) != len(labels):
+            raise ValueError(f"a loss is listed twice: {labels}")
+        return v
+
+    @model_validator(mode="after")
+    def _consistent(self) -> "ExperimentSpec":
+        if not (self.families.l1.enabled or self.families.l2.enabled):
+            raise ValueError("both families are disabled; enable families.l1 or families.l2")
+        tasks = {"regression" if loss.name in REGRESSION_LOSSES else "classification" for loss in self.losses}
+        if len(tasks) > 1:
+            raise ValueError("losses mix regression losses (squared, absolute, huber, quantile) with "
+                             "classification losses (logistic, hinge, squared_hinge); list one kind")
+        return self
+
+    @property
+    def task(self) -> str:
+        return "regression" if self.losses[0].name in REGRESSION_LOSSES else "classification"
+
+    def resolved(self) -> dict[str, Any]:
+        return self.model_dump(mode="json")
+
+    def config_hash(self) -> str:
+        text = json.dumps(self.resolved(), sort_keys=True)
+        return hashlib.sha256(text.encode()).hexdigest()[:16]
+
+
+# ---------------------------------------------------------------- loading
+def _describe(value: Any) -> str:
+    text = repr(value)
+    return text if len(text) <= 80 else text[:77] + "..."
+
+
+def _allowed(model_error: dict) -> str:
+    ctx = model_error.get("ctx") or {}
+    if "expected" in ctx:
+        return f"allowed: {ctx['expected']}"
+    return model_error["msg"].lower()
+
+
+def _closest(word: str, choices) -> str:
+    match = difflib.get_close_matches(str(word), list(choices), n=1, cutoff=0.5)
+    return f" Did you mean {match[0]!r}?" if match else ""
+
+
+def _format_validation(err: ValidationError, source: str) -> str:
+    parts = []
+    for e in err.errors()[:5]:
+        loc = ".".join(str(x) for x in e["loc"] if not (isinstance(x, str) and x in (
+            "csv", "parquet", "bundled", "scenario", "identity", "polynomial", "random_fourier",
+            "function-after[_positive(), union[float,literal['median']]]")))
+        if e["type"] == "extra_forbidden":
+            parts.append(f"field '{loc}' is not a known setting (found {_describe(e['input'])}).")
+            continue
+        if e["type"] == "missing":
+            parts.append(f"field '{loc}' is required but missing.")
+            continue
+        hint = ""
+        if e["type"] == "literal_error":
+            expected = (e.get("ctx") or {}).get("expected", "")
+            choices = [c.strip().strip("'") for c in expected.replace(" or ", ",").split(",") if c.strip()]
+            hint = _closest(e["input"], choices)
+        parts.append(f"field '{loc}' has value {_describe(e['input'])}; {_allowed(e)}.{hint}")
+    more = len(err.errors()) - 5
+    if more > 0:
+        parts.append(f"({more} more problem(s) not shown.)")
+    return f"{source}: invalid experiment config — " + " ".join(parts)
+
+
+def parse_config(mapping: Any, source: str = "config") -> ExperimentSpec:
+    if not isinstance(mapping, dict):
+        raise ConfigError(f"{source}: the file must hold a mapping of settings (name:, data:, ...), "
+                          f"found {type(mapping).__name__}.")
+    try:
+        return ExperimentSpec.model_validate(mapping)
+    except ValidationError as err:
+        raise ConfigError(_format_validation(err, source)) from None
+
+
+def load_yaml(path: str | pathlib.Path) -> Any:
+    path = pathlib.Path(path)
+    if not path.is_file():
+        raise ConfigError(f"{path}: config file not found (looked for it at {path.resolve()}).")
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"{path}: cannot read the config file ({exc}).") from None
+    try:
+        return yaml.safe_load(text)
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark else ""
+        problem = getattr(exc, "problem", None) or str(exc)
+        raise ConfigError(f"{path}: YAML syntax error{where}: {problem}. Check indentation and quoting "
+                          f"there.") from None
+
+
+def load_config(path: str | pathlib.Path) -> tuple[ExperimentSpec, pathlib.Path]:
+    """Validated spec and the folder relative paths in it are resolved against."""
+    path = pathlib.Path(path)
+    return parse_config(load_yaml(path), str(path)), path.resolve().parent
+
+
+def schema_reference() -> str:
+    """Markdown reference of every setting, generated from the models (used by README checks)."""
+    lines: list[str] = []
+
+    def walk(model: type[BaseModel], prefix: str) -> None:
+        for name, field in model.model_fields.items():
+            path = f"{prefix}{name}"
+            ann = field.annotation
+            default = "required" if field.is_required() else _describe(
+                field.default.model_dump(mode="json") if isinstance(field.default, BaseModel) else field.default)
+            sub = ann if isinstance(ann, type) and issubclass(ann, BaseModel) else None
+            if sub is not None:
+                walk(sub, path + ".")
+                continue
+            desc = field.description or ""
+            lines.append(f"| `{path}` | {default} | {desc} |")
+
+    walk(ExperimentSpec, "")
+    return "\n".join(lines)

@@ -1,0 +1,67 @@
+"""The value every later stage receives: features, target, names, task, ground truth, hash."""
+from __future__ import annotations
+
+import hashlib
+from dataclasses import dataclass, field
+
+import numpy as np
+
+
+class DataError(ValueError):
+    """A problem with the user's data: one paragraph, shown without a traceback."""
+
+
+@dataclass(frozen=True)
+class Truth:
+    """Ground truth of a synthetic scenario, in the columns of X."""
+    support: tuple[int, ...]
+    coefficients: np.ndarray | None  # (p,) when the truth is linear in the columns
+    intercept: float = 0.0
+
+
+@dataclass(frozen=True)
+class Dataset:
+    X: np.ndarray                       # (n, p) float64
+    y: np.ndarray                       # (n,) float64; classification targets are −1/+1
+    feature_names: tuple[str, ...]
+    target_name: str
+    task: str                           # "regression" | "classification"
+    source: str                         # human description of where the rows came from
+    class_labels: tuple[str, str] | None = None   # original labels for −1 and +1
+    truth: Truth | None = None
+    notes: tuple[str, ...] = field(default_factory=tuple)  # what loading changed (dropped columns, encodings)
+
+    @property
+    def n_samples(self) -> int:
+        return self.X.shape[0]
+
+    @property
+    def n_features(self) -> int:
+        return self.X.shape[1]
+
+    def content_hash(self) -> str:
+        h = hashlib.sha256()
+        h.update(np.ascontiguousarray(self.X, dtype=np.float64).tobytes())
+        h.update(np.ascontiguousarray(self.y, dtype=np.float64).tobytes())
+        h.update("\x1f".join(self.feature_names).encode())
+        h.update(self.target_name.encode())
+        return h.hexdigest()[:16]
+
+    def summary(self) -> dict:
+        y = self.y
+        out = {
+            "source": self.source,
+            "rows": int(self.n_samples),
+            "columns": int(self.n_features),
+            "target": self.target_name,
+            "task": self.task,
+        }
+        if self.task == "classification":
+            labels = self.class_labels or ("-1", "+1")
+            out["class_counts"] = {labels[0]: int((y < 0).sum()), labels[1]: int((y > 0).sum())}
+        else:
+            out.update(target_mean=float(y.mean()), target_sd=float(y.std(ddof=1)),
+                       target_min=float(y.min()), target_max=float(y.max()))
+        if self.truth is not None:
+            out["true_support_size"] = len(self.truth.support)
+        return out

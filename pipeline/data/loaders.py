@@ -1,0 +1,165 @@
+"""Turn a data section of the config into a checked `Dataset`."""
+from __future__ import annotations
+
+import difflib
+import pathlib
+
+import numpy as np
+import pandas as pd
+
+from .dataset import DataError, Dataset
+from .scenarios import make_scenario
+
+MAX_CATEGORY_LEVELS = 50
+
+
+def load_dataset(source, base_dir: pathlib.Path, task: str) -> Dataset:
+    """`source` is a data section of an ExperimentSpec; `task` follows from the losses."""
+    if source.kind == "scenario":
+        ds = make_scenario(source)
+        if ds.task != task:
+            raise DataError(f"data.name: scenario '{source.name}' is a {ds.task} problem but the losses "
+                            f"listed are {task} losses; choose losses of the matching kind.")
+        return ds
+    if source.kind == "bundled":
+        return _bundled(source.name, task)
+    path = pathlib.Path(source.path)
+    if not path.is_absolute():
+        path = base_dir / path
+    frame = _read_table(path, source.kind)
+    return frame_to_dataset(frame, source.target, task, source=str(path))
+
+
+def _read_table(path: pathlib.Path, kind: str) -> pd.DataFrame:
+    if not path.is_file():
+        raise DataError(f"data.path: file '{path}' not found. Give a path relative to the config file's "
+                        f"folder or an absolute path.")
+    try:
+        if kind == "csv":
+            frame = pd.read_csv(path)
+        else:
+            frame = pd.read_parquet(path)
+    except (pd.errors.ParserError, UnicodeDecodeError, ValueError, OSError) as exc:
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise DataError(f"data.path: cannot read '{path}' as {kind.upper()} ({first}). Check the file is a "
+                        f"well-formed {kind.upper()} table with a header row.") from None
+    except Exception as exc:  # pyarrow raises its own error types for garbled Parquet
+        raise DataError(f"data.path: cannot read '{path}' as {kind.upper()} ({type(exc).__name__}: {exc}).") \
+            from None
+    if frame.shape[0] == 0 or frame.shape[1] == 0:
+        raise DataError(f"data.path: '{path}' holds no rows or no columns (found {frame.shape[0]} rows, "
+                        f"{frame.shape[1]} columns).")
+    return frame
+
+
+def frame_to_dataset(frame: pd.DataFrame, target: str, task: str, source: str) -> Dataset:
+    frame = frame.copy()
+    frame.columns = [str(c) for c in frame.columns]
+    if target not in frame.columns:
+        match = difflib.get_close_matches(target, frame.columns, n=1)
+        hint = f" Did you mean '{match[0]}'?" if match else ""
+        shown = ", ".join(repr(c) for c in frame.columns[:10]) + (" ..." if frame.shape[1] > 10 else "")
+        raise DataError(f"data.target: column '{target}' is not in {source} (columns: {shown}).{hint}")
+    y_raw = frame.pop(target)
+    if frame.shape[1] == 0:
+        raise DataError(f"data.target: {source} has no column besides the target '{target}'.")
+    notes: list[str] = []
+    y, labels = _target(y_raw, target, task, source)
+    X, names = _features(frame, source, notes)
+    return Dataset(X=X, y=y, feature_names=tuple(names), target_name=target, task=task, source=source,
+                   class_labels=labels, notes=tuple(notes))
+
+
+def _target(y_raw: pd.Series, target: str, task: str, source: str):
+    missing = y_raw.isna().to_numpy()
+    if missing.any():
+        row = int(np.flatnonzero(missing)[0])
+        raise DataError(f"data.target: column '{target}' has {int(missing.sum())} missing value(s) in "
+                        f"{source}, first at data row {row}; remove or fill those rows.")
+    if task == "classification":
+        classes = sorted(pd.unique(y_raw).tolist(), key=str)
+        if len(classes) != 2:
+            shown = ", ".join(repr(c) for c in classes[:6]) + (" ..." if len(classes) > 6 else "")
+            raise DataError(f"data.target: classification losses need exactly two classes, but column "
+                            f"'{target}' has {len(classes)} ({shown}).")
+        y = np.where(y_raw.to_numpy() == classes[1], 1.0, -1.0)
+        return y, (str(classes[0]), str(classes[1]))
+    values = pd.to_numeric(y_raw, errors="coerce")
+    bad = values.isna().to_numpy()
+    if bad.any():
+        row = int(np.flatnonzero(bad)[0])
+        raise DataError(f"data.target: regression losses need a numeric target, but column '{target}' has "
+                        f"non-numeric value {y_raw.iloc[row]!r} at data row {row}. Use a classification "
+                        f"loss (logistic, hinge, squared_hinge) for labels.")
+    y = values.to_numpy(dtype=float)
+    if not np.isfinite(y).all():
+        row = int(np.flatnonzero(~np.isfinite(y))[0])
+        raise DataError(f"data.target: column '{target}' has value {y[row]} at data row {row}; only finite "
+                        f"numbers are allowed.")
+    return y, None
+
+
+def _features(frame: pd.DataFrame, source: str, notes: list[str]):
+    blocks, names = [], []
+    for col in frame.columns:
+        series = frame[col]
+        if pd.api.types.is_bool_dtype(series) or pd.api.types.is_numeric_dtype(series):
+            values = series.to_numpy(dtype=float)
+            bad = ~np.isfinite(values)
+            if bad.any():
+                row = int(np.flatnonzero(bad)[0])
+                raise DataError(f"data: feature column '{col}' has {int(bad.sum())} missing or infinite "
+                                f"value(s) in {source}, first {values[row]} at data row {row}; remove or "
+                                f"impute them before running.")
+            blocks.append(values[:, None])
+            names.append(col)
+            continue
+        if series.isna().any():
+            row = int(np.flatnonzero(series.isna().to_numpy())[0])
+            raise DataError(f"data: text column '{col}' has a missing value at data row {row} in {source}.")
+        levels = sorted(pd.unique(series).tolist(), key=str)
+        if len(levels) > MAX_CATEGORY_LEVELS:
+            raise DataError(f"data: column '{col}' is not numeric and has {len(levels)} distinct values "
+                            f"(e.g. {levels[0]!r}); at most {MAX_CATEGORY_LEVELS} levels are one-hot encoded. "
+                            f"Convert it to numbers or drop it.")
+        # One column per level except the first (it is the reference level).
+        for level in levels[1:]:
+            blocks.append((series == level).to_numpy(dtype=float)[:, None])
+            names.append(f"{col}={level}")
+        notes.append(f"text column '{col}' one-hot encoded into {len(levels) - 1} column(s), "
+                     f"reference level {levels[0]!r}")
+    X = np.hstack(blocks)
+    constant = np.ptp(X, axis=0) == 0
+    if constant.all():
+        raise DataError(f"data: every feature column of {source} is constant; nothing can be learned.")
+    if constant.any():
+        dropped = [n for n, c in zip(names, constant) if c]
+        notes.append(f"dropped {len(dropped)} constant column(s): {', '.join(dropped[:10])}"
+                     + (" ..." if len(dropped) > 10 else ""))
+        X = X[:, ~constant]
+        names = [n for n, c in zip(names, constant) if not c]
+    return X, names
+
+
+def _bundled(name: str, task: str) -> Dataset:
+    from sklearn import datasets
+
+    if name == "diabetes":
+        if task != "regression":
+            raise DataError("data.name: 'diabetes' is a regression dataset; use regression losses "
+                            "(squared, absolute, huber, quantile).")
+        raw = datasets.load_diabetes(scaled=False)
+        return Dataset(X=np.asarray(raw.data, float), y=np.asarray(raw.target, float),
+                       feature_names=tuple(raw.feature_names), target_name="disease_progression",
+                       task="regression",
+                       source="diabetes (Efron, Hastie, Johnstone & Tibshirani 2004; scikit-learn load_diabetes)")
+    raw = datasets.load_breast_cancer()
+    if task != "classification":
+        raise DataError("data.name: 'breast_cancer' is a classification dataset; use classification losses "
+                        "(logistic, hinge, squared_hinge).")
+    # scikit-learn codes malignant as 0 and benign as 1.
+    y = np.where(raw.target == 1, 1.0, -1.0)
+    return Dataset(X=np.asarray(raw.data, float), y=y, feature_names=tuple(raw.feature_names),
+                   target_name="diagnosis", task="classification",
+                   source="Wisconsin diagnostic breast cancer (UCI; scikit-learn load_breast_cancer)",
+                   class_labels=("malignant", "benign"))
