@@ -129,7 +129,9 @@ class FamiliesSpec(_Strict):
 
 
 class LossSpec(_Strict):
-    name: Literal["squared", "absolute", "huber", "quantile", "logistic", "hinge", "squared_hinge"]
+    name: Literal["squared", "absolute", "huber", "quantile", "logistic", "hinge", "squared_hinge"] = Field(
+        description="squared, absolute, huber, quantile (regression); logistic, hinge, squared_hinge "
+                    "(classification). A plain string in the list stands for {name: ...}.")
     delta: float = Field(1.0, gt=0.0, description="Huber threshold (on standardised target).")
     tau: float = Field(0.5, gt=0.0, lt=1.0, description="Quantile level.")
 
@@ -177,7 +179,8 @@ class ExperimentSpec(_Strict):
                       min_length=1, max_length=120, pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
     description: str = Field("", description="Free text shown in the report.")
     seed: int = Field(0, ge=0, description="Root of every random choice.")
-    data: DataSource
+    data: DataSource = Field(description="Where the rows come from: a file, a bundled open dataset or a "
+                                         "synthetic scenario (chosen by data.kind).")
     split: SplitSpec = SplitSpec()
     features: FeaturesSpec = FeaturesSpec()
     losses: tuple[LossSpec, ...] = Field((LossSpec(name="squared"),), description="Losses to compare on.")
@@ -302,22 +305,58 @@ def load_config(path: str | pathlib.Path) -> tuple[ExperimentSpec, pathlib.Path]
     return parse_config(load_yaml(path), str(path)), path.resolve().parent
 
 
-def schema_reference() -> str:
-    """Markdown reference of every setting, generated from the models (used by README checks)."""
-    lines: list[str] = []
+def _default_text(field) -> str:
+    if field.is_required():
+        return "required"
+    value = field.default
+    if isinstance(value, BaseModel):
+        value = value.model_dump(mode="json")
+    elif isinstance(value, tuple):
+        value = [v.model_dump(mode="json") if isinstance(v, BaseModel) else v for v in value]
+    return f"`{json.dumps(value, ensure_ascii=False)}`"
 
-    def walk(model: type[BaseModel], prefix: str) -> None:
+
+def _variants(annotation) -> list[type[BaseModel]]:
+    """Model classes inside an annotation such as Annotated[Union[A, B], ...] or tuple[...]."""
+    import typing
+
+    found: list[type[BaseModel]] = []
+
+    def visit(t):
+        if isinstance(t, type) and issubclass(t, BaseModel):
+            found.append(t)
+            return
+        for arg in typing.get_args(t):
+            visit(arg)
+
+    visit(annotation)
+    return found
+
+
+def schema_reference() -> str:
+    """Markdown table of every setting, generated from the models (the README embeds it)."""
+    lines = ["| setting | default | meaning |", "| --- | --- | --- |"]
+
+    def walk(model: type[BaseModel], prefix: str, note: str = "") -> None:
         for name, field in model.model_fields.items():
             path = f"{prefix}{name}"
-            ann = field.annotation
-            default = "required" if field.is_required() else _describe(
-                field.default.model_dump(mode="json") if isinstance(field.default, BaseModel) else field.default)
-            sub = ann if isinstance(ann, type) and issubclass(ann, BaseModel) else None
-            if sub is not None:
-                walk(sub, path + ".")
+            variants = _variants(field.annotation)
+            is_list = "tuple" in str(field.annotation)
+            if variants and not (len(variants) == 1 and not is_list and variants[0] is field.annotation):
+                lines.append(f"| `{path}` | {_default_text(field)} | {field.description or ''} |")
+                for v in variants:
+                    kind = v.model_fields.get("kind")
+                    label = f" (kind: {' or '.join(kind.annotation.__args__)})" if kind is not None else ""
+                    walk(v, f"{path}{'[]' if is_list else ''}.", label)
                 continue
-            desc = field.description or ""
-            lines.append(f"| `{path}` | {default} | {desc} |")
+            if variants:
+                walk(variants[0], path + ".")
+                continue
+            lines.append(f"| `{path}`{note} | {_default_text(field)} | {field.description or ''} |")
 
     walk(ExperimentSpec, "")
     return "\n".join(lines)
+
+
+if __name__ == "__main__":
+    print(schema_reference())

@@ -1,0 +1,37 @@
+# penduel — every target sets up .venv first when it is missing or out of date.
+PYTHON ?= python3
+VENV   := .venv
+BIN    := $(VENV)/bin
+STAMP  := $(VENV)/.installed
+CONFIG ?= configs/demo.yaml
+PORT   ?= 5000
+
+.PHONY: run test test-all bench ui report compare validate clean
+
+$(STAMP): pyproject.toml
+	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e '.[dev]'
+	@touch $(STAMP)
+
+run: $(STAMP)  ## run the demo experiment (or CONFIG=...)
+	$(BIN)/penduel run $(CONFIG)
+
+test: $(STAMP)  ## the test suite (slow checks excluded)
+	$(BIN)/python -m pytest -q
+
+test-all: $(STAMP)  ## every test, slow ones included
+	$(BIN)/python -m pytest -q -m ""
+
+bench: $(STAMP)  ## side-by-side benchmarks; writes reports/bench/results.json
+	$(BIN)/python -m benchmarks.run
+
+validate: $(STAMP)
+	$(BIN)/penduel validate $(CONFIG)
+
+ui: $(STAMP)  ## tracking UI on http://127.0.0.1:$(PORT)
+	$(BIN)/penduel ui --config $(CONFIG) --port $(PORT)
+
+clean:
+	rm -rf $(VENV) *.egg-info .pytest_cache .hypothesis mlflow.db mlruns mlartifacts .penduel-cache
+	find reports -mindepth 1 ! -name README.md -exec rm -rf {} +
