@@ -43,7 +43,11 @@ def dual_value(X, y, u, lam, alpha, loss: Loss) -> tuple[float, np.ndarray]:
     xu = X.T @ u
     if alpha >= 1.0:
         top = float(np.max(np.abs(xu))) if xu.size else 0.0
-        scale = min(1.0, n * lam / top) if top > 0 else 1.0
+        if lam > 0:
+            scale = min(1.0, n * lam / top) if top > 0 else 1.0
+        else:  # unpenalised: feasible only if X'u = 0 up to rounding, else no certificate
+            rounding = 1e-10 * float(np.abs(X).sum(axis=0).max(initial=0.0)) * float(np.abs(u).max(initial=0.0))
+            scale = 1.0 if top <= rounding else 0.0
         u, xu = u * scale, xu * scale
         pen = 0.0
     else:
@@ -64,14 +68,16 @@ def duality_gap(X, y, coef, intercept, u, lam, alpha, loss: Loss) -> tuple[float
 def kkt_violation(grad, coef, lam, alpha) -> float:
     """Largest violation of the optimality conditions, relative to lam*alpha.
 
-    grad_j = x_j'u/n. Zero coefficient: |grad_j| <= lam*alpha. Nonzero:
+    grad_j = x_j'u/n (absolute, not relative, when lam = 0). Zero coefficient: |grad_j| <= lam*alpha. Nonzero:
     grad_j + lam*(alpha*sign(b_j) + (1-alpha) b_j) = 0.
     """
     l1, l2 = lam * alpha, lam * (1 - alpha)
     nz = coef != 0
     out = np.maximum(np.abs(grad) - l1, 0.0)
     out[nz] = np.abs(grad[nz] + l1 * np.sign(coef[nz]) + l2 * coef[nz])
-    return float(out.max() / l1) if out.size else 0.0
+    if not out.size:
+        return 0.0
+    return float(out.max() / l1) if l1 > 0 else float(out.max())  # lam = 0: absolute gradient
 
 
 def zero_by_optimality(coef, grad, lam, alpha, margin=1e-6) -> np.ndarray:

@@ -96,11 +96,21 @@ def solve_piecewise_lp(XW, y, lam, loss: Loss) -> Restricted:
     return Restricted(coef, b0, np.clip(dual, lo, hi), "optimal", "HiGHS")
 
 
+_BACKEND_OPTIONS = {
+    "CLARABEL": lambda t: {"tol_gap_abs": t, "tol_gap_rel": t, "tol_feas": t},
+    "SCS": lambda t: {"eps_abs": max(t, 1e-9), "eps_rel": max(t, 1e-9), "max_iters": 200000},
+    "OSQP": lambda t: {"eps_abs": max(t, 1e-10), "eps_rel": max(t, 1e-10), "max_iter": 200000},
+}
+
+
 def _cvxpy_solver_order(loss: Loss) -> list[str]:
     return ["CLARABEL", "SCS"] if loss.name == "logistic" else ["CLARABEL", "OSQP", "SCS"]
 
 
-def solve_cvxpy(XW, y, lam, alpha, loss: Loss, warm=None, tol=1e-9) -> Restricted:
+def solve_cvxpy(XW, y, lam, alpha, loss: Loss, warm=None, tol=1e-9, backends=None) -> Restricted:
+    """Auxiliary-variable form. The loss is applied to z, never to X_W b directly: with
+    cvxpy 1.9.3 bound propagation through multiply/abs/pos of a constant matrix times a
+    free variable can hand HiGHS wrong bounds and a wrong "optimal" point."""
     n, k = XW.shape
     b = cp.Variable(k)
     b0 = cp.Variable()
@@ -112,10 +122,10 @@ def solve_cvxpy(XW, y, lam, alpha, loss: Loss, warm=None, tol=1e-9) -> Restricte
         objective = objective + 0.5 * l2 * cp.sum_squares(b)
     problem = cp.Problem(cp.Minimize(objective), [link])
     status, used = "not run", ""
-    for name in _cvxpy_solver_order(loss):
+    for name in backends or _cvxpy_solver_order(loss):
         used = name
         try:
-            opts = {"tol_gap_abs": tol, "tol_gap_rel": tol, "tol_feas": tol} if name == "CLARABEL" else {}
+            opts = _BACKEND_OPTIONS.get(name, lambda t: {})(tol)
             problem.solve(solver=name, **opts)
             status = problem.status
         except cp.error.SolverError as exc:
