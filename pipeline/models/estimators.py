@@ -1,0 +1,126 @@
+"""scikit-learn-compatible estimators over the two families.
+
+L2 (representer form) part: KernelL2Regressor, KernelL2Classifier. Both minimise
+(1/n) Σ loss(yᵢ, b + (Kc)ᵢ) + (λ/2) cᵀKc with the intercept unpenalised; with
+``lam=None`` and the squared loss, λ is the exact-LOO minimiser over a df-spanning
+grid; otherwise ``lam=None`` means the fixed value ``DEFAULT_LAM``.
+"""
+from __future__ import annotations
+
+from types import SimpleNamespace
+
+import numpy as np
+from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
+from sklearn.utils.multiclass import check_classification_targets
+from sklearn.utils.validation import check_is_fitted, validate_data
+
+from pipeline.kernels import gram, resolve_params
+from pipeline.losses import get_loss
+from pipeline.models.l2 import fit_l2_path, kernel_eigen, l2_lambda_grid, predict_rows
+
+# ---------------------------------------------------------------- L2 family
+DEFAULT_LAM = 1e-3
+
+
+class _KernelL2Base(BaseEstimator):
+    _allowed_task = "regression"
+
+    def _check_params(self):
+        loss = get_loss(self.loss, **(self.loss_params or {}))
+        if loss.task != self._allowed_task:
+            raise ValueError(f"{type(self).__name__} takes a {self._allowed_task} loss; "
+                             f"{loss.name!r} is a {loss.task} loss")
+        if self.lam is not None and not self.lam > 0:
+            raise ValueError(f"lam must be positive or None, got {self.lam!r}")
+        return loss
+
+    def _fit_targets(self, X, targets, n_lambdas=30):
+        """Fit one path per column of targets (n, k), sharing one eigendecomposition."""
+        loss = self._check_params()
+        self.kernel_params_ = resolve_params(X, self.kernel, **(self.kernel_params or {}))
+        self.X_fit_ = X
+        eig = kernel_eigen(gram(X, kernel=self.kernel, **self.kernel_params_), self.fit_intercept,
+                           on_psd_fail="warn")
+        coefs, intercepts, dfs = [], [], []
+        for t in targets.T:
+            if self.lam is None and loss.name == "squared" and X.shape[0] > 2:
+                grid = l2_lambda_grid(eig, n_lambdas)
+                path = fit_l2_path(None, t, loss, grid, eigen=eig)
+                best = int(np.nanargmin(path.loo_error))
+            else:
+                lam = DEFAULT_LAM if self.lam is None else self.lam
+                path = fit_l2_path(None, t, loss, [lam], eigen=eig)
+                best = 0
+            self.lam_ = float(path.lambdas[best])
+            coefs.append(path.dual_coef[best])
+            intercepts.append(path.intercept[best])
+            dfs.append(path.effective_df[best])
+        self.dual_coef_ = np.array(coefs)          # (k, n)
+        self.intercept_ = np.array(intercepts)     # (k,)
+        self.effective_df_ = np.array(dfs)
+        return self
+
+    def _decision(self, X):
+        check_is_fitted(self, "dual_coef_")
+        X = validate_data(self, X, reset=False)
+        path = SimpleNamespace(dual_coef=self.dual_coef_, intercept=self.intercept_)
+        return predict_rows(path, X, self.X_fit_, self.kernel, **self.kernel_params_).T  # (m, k)
+
+
+class KernelL2Regressor(RegressorMixin, _KernelL2Base):
+    """Kernel ridge-type regressor; losses squared, absolute, huber, quantile."""
+
+    def __init__(self, kernel="rbf", kernel_params=None, loss="squared", loss_params=None,
+                 lam=None, n_lambdas=30, fit_intercept=True):
+        self.kernel = kernel
+        self.kernel_params = kernel_params
+        self.loss = loss
+        self.loss_params = loss_params
+        self.lam = lam
+        self.n_lambdas = n_lambdas
+        self.fit_intercept = fit_intercept
+
+    def fit(self, X, y):
+        X, y = validate_data(self, X, y, y_numeric=True, dtype=float)
+        return self._fit_targets(X, y.reshape(-1, 1), self.n_lambdas)
+
+    def predict(self, X):
+        return self._decision(X)[:, 0]
+
+
+class KernelL2Classifier(ClassifierMixin, _KernelL2Base):
+    """Kernel ridge-type classifier; losses logistic, hinge, squared_hinge.
+
+    Labels are mapped to {−1, +1} internally; more than two classes are fitted one
+    versus rest, all classes sharing one eigendecomposition of the Gram.
+    """
+    _allowed_task = "classification"
+
+    def __init__(self, kernel="rbf", kernel_params=None, loss="logistic", loss_params=None,
+                 lam=None, fit_intercept=True):
+        self.kernel = kernel
+        self.kernel_params = kernel_params
+        self.loss = loss
+        self.loss_params = loss_params
+        self.lam = lam
+        self.fit_intercept = fit_intercept
+
+    def fit(self, X, y):
+        X, y = validate_data(self, X, y, dtype=float)
+        check_classification_targets(y)
+        self.classes_, codes = np.unique(y, return_inverse=True)
+        if len(self.classes_) < 2:
+            raise ValueError(f"classification needs at least two classes; got 1 class, {self.classes_.tolist()}")
+        signs = np.where(codes[:, None] == np.arange(len(self.classes_))[None, :], 1.0, -1.0)
+        targets = signs[:, 1:] if len(self.classes_) == 2 else signs
+        return self._fit_targets(X, targets)
+
+    def decision_function(self, X):
+        scores = self._decision(X)
+        return scores[:, 0] if len(self.classes_) == 2 else scores
+
+    def predict(self, X):
+        scores = self.decision_function(X)
+        if scores.ndim == 1:
+            return self.classes_[(scores > 0).astype(int)]
+        return self.classes_[np.argmax(scores, axis=1)]
