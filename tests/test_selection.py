@@ -124,3 +124,26 @@ def test_nested_cv_keeps_outer_test_rows_out_of_selection():
     # mean 3, noise 1: no shrinkage wins clearly, so the full-mean column is chosen
     assert np.all(result.chosen_index == len(factors) - 1)
     assert result.mean == pytest.approx(result.outer_errors.mean())
+
+
+@settings(max_examples=150, deadline=None)
+@given(tables, st.data())
+def test_failed_columns_are_never_chosen(table, data):
+    failed = data.draw(st.lists(st.booleans(), min_size=table.shape[1], max_size=table.shape[1]))
+    if all(failed):
+        failed[-1] = False
+    table = table.copy()
+    for j, bad in enumerate(failed):
+        if bad:
+            table[data.draw(st.integers(0, table.shape[0] - 1)), j] = np.nan
+    for rule in ("min", "one_se"):
+        assert not failed[choose_lambda_index(table, rule)]
+
+
+def test_leave_one_out_table_works_as_n_folds():
+    # LOO is n-fold CV: a table of per-row squared LOO residuals (n, L) goes straight in.
+    # Hand: column means 9.667, 1.167, 1.110; se of column 2 = sqrt(0.8175/3) = 0.522, so
+    # the band is 1.632 and column 1 is the simplest inside it.
+    residuals = np.array([[3.0, 1.0, 1.1], [2.0, 0.5, 0.4], [4.0, 1.5, 1.4]])
+    assert choose_lambda_index(residuals**2, "min") == 2
+    assert choose_lambda_index(residuals**2, "one_se") == 1
