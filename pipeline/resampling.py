@@ -136,3 +136,8 @@ def resample_fits(fit: Callable, X: np.ndarray, y: np.ndarray, resamples: list[n
     predictions = np.stack([o[2] for o in out])
     predictions = np.where(in_fit_mask(X.shape[0], resamples)[:, None, :], np.nan, predictions)
     return ResampledFits(coefs, intercepts, predictions, tuple(resamples))
+
+
+def held_out_rows(n: int, rows: np.ndarray) -> np.ndarray:
+    """Rows of 0..n-1 not used by a resample (out-of-bag rows for the bootstrap)."""
+    return np.setdiff1d(np.arange(n), rows)

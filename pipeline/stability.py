@@ -212,3 +212,38 @@ def correlated_groups_sharing(Z: np.ndarray, X: np.ndarray, min_abs_corr: float 
             "substitution": any_member - float(freq[members].max()),
         })
     return sorted(groups, key=lambda g: -g["any_member_frequency"])
+
+
+def family_stability(coefs: np.ndarray, held_out_preds: np.ndarray | None = None, k=None,
+                     level: float = 0.95, tol: float = 0.0) -> dict:
+    """Stability summary of one family at one λ over M resamples.
+
+    coefs: (M, p) explicit-feature weights; the selected set is the support (k None, sparse
+    family) or the k largest |w| per resample (k an int or one per resample, ridge family).
+    held_out_preds: (M, n) with NaN on rows each fit saw. Sign agreement counts, over every
+    selection made, the share that carries the feature's majority sign.
+    """
+    coefs = np.asarray(coefs, dtype=float)
+    Z = selected(coefs, tol).astype(np.int8) if k is None else top_k_sets(coefs, k)
+    chosen = np.where(Z.astype(bool), coefs, 0.0)
+    per_feature = sign_consistency(chosen, tol)
+    counts = Z.sum(axis=0)
+    agree = float(np.nansum(per_feature * counts) / counts.sum()) if counts.sum() else float("nan")
+    return {
+        "index": nogueira_stability(Z, level),
+        "mean_set_size": float(Z.sum(axis=1).mean()),
+        "selection_frequency": Z.mean(axis=0),
+        "sign_consistency": per_feature,
+        "sign_agreement": agree,
+        "prediction_instability": (float("nan") if held_out_preds is None
+                                   else prediction_instability(held_out_preds)),
+    }
+
+
+def compare_families(l1_coefs: np.ndarray, l2_coefs: np.ndarray, l1_preds=None, l2_preds=None,
+                     level: float = 0.95, tol: float = 0.0) -> dict:
+    """Both families on identical resamples: L1 support sets against, resample by resample, the
+    same number of largest |w| of the ridge fit (its top-k set, k = that resample's L1 support size)."""
+    l1 = family_stability(l1_coefs, l1_preds, None, level, tol)
+    k = selected(l1_coefs, tol).sum(axis=1)
+    return {"l1": l1, "l2": family_stability(l2_coefs, l2_preds, k, level, tol)}

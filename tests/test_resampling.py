@@ -7,7 +7,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from sklearn.linear_model import Lasso, lasso_path
 
-from pipeline.resampling import in_fit_mask, resample_fits, resample_indices
+from pipeline.resampling import held_out_rows, in_fit_mask, resample_fits, resample_indices
 
 
 @given(st.integers(4, 200), st.sampled_from([0.3, 0.5, 0.8]), st.integers(0, 1000))
@@ -68,9 +68,10 @@ def test_bad_arguments_are_refused(kwargs, match):
         resample_indices(10, **kwargs)
 
 
-def test_in_fit_mask():
+def test_in_fit_mask_and_held_out_rows():
     mask = in_fit_mask(4, [np.array([0, 2]), np.array([1, 1, 3])])
     np.testing.assert_array_equal(mask, [[True, False, True, False], [False, True, False, True]])
+    np.testing.assert_array_equal(held_out_rows(4, np.array([1, 1, 3])), [0, 2])
 
 
 def _lasso_fit(X, y):

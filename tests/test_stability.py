@@ -10,7 +10,7 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
 from pipeline.stability import (
-    correlated_groups_sharing, held_out_matrix, lambda_range_for_error_bound, mb_error_bound,
+    compare_families, correlated_groups_sharing, held_out_matrix, lambda_range_for_error_bound, mb_error_bound,
     nogueira_stability, prediction_instability, selection_probabilities, sign_consistency, stable_set,
     top_k_sets, union_sizes)
 
@@ -261,3 +261,21 @@ def test_lasso_splits_selection_across_neighbouring_bands():
     # frequency is spread over several neighbouring bands, not concentrated on the true one
     assert all(len(g["features"]) >= 2 and sum(g["frequencies"]) > g["any_member_frequency"]
                for g in near_truth)
+
+
+def test_compare_families_by_hand():
+    l1 = np.array([[1.0, 0, -2, 0], [1, 0, 2, 0], [0.5, 0.1, 0, 0]])
+    l2 = np.array([[3.0, 1, 2, 0.5], [3, 2, 1, 0], [-3, 0.1, 2, 1]])
+    # both families' sets: {0,2}, {0,2}|{0,1}, {0,1}|{0,2}: Φ̂ = 1/3 as in the three-set hand example
+    nan = np.nan
+    preds = np.array([[1.0, nan], [3.0, 4.0], [nan, 6.0]])
+    out = compare_families(l1, l2, preds, preds)
+    for family in ("l1", "l2"):
+        assert out[family]["index"]["stability"] == pytest.approx(1 / 3)
+        assert out[family]["mean_set_size"] == 2.0
+        assert out[family]["prediction_instability"] == pytest.approx(2.0)   # var(1,3) = var(4,6) = 2
+    # L1 signs: feature 0 +++ , feature 1 +, feature 2 +− : (3 + 1 + 1) / 6 agree with the majority
+    assert out["l1"]["sign_agreement"] == pytest.approx(5 / 6)
+    # L2 top-2 signs: feature 0 ++−, feature 1 +, feature 2 ++ : (2 + 1 + 2) / 6
+    assert out["l2"]["sign_agreement"] == pytest.approx(5 / 6)
+    np.testing.assert_allclose(out["l2"]["selection_frequency"], [1, 1 / 3, 2 / 3, 0])
