@@ -9,9 +9,10 @@ PORT   ?= 5000
 .PHONY: run test test-all bench ui report compare validate clean
 
 $(STAMP): pyproject.toml
+	@echo "setting up $(VENV) (the first time takes a few minutes; log in $(VENV)/install.log)"
 	@test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
-	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e '.[dev]'
+	@$(BIN)/python -m pip install --upgrade pip > $(VENV)/install.log 2>&1 || { cat $(VENV)/install.log; exit 1; }
+	@$(BIN)/python -m pip install -e '.[dev]' >> $(VENV)/install.log 2>&1 || { cat $(VENV)/install.log; exit 1; }
 	@touch $(STAMP)
 
 run: $(STAMP)  ## run the demo experiment (or CONFIG=...)

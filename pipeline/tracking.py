@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import logging
 import os
+import pathlib
 import platform
 import subprocess
 import tempfile
@@ -181,6 +182,11 @@ class ExecutionLog:
         self._log_frame(rid, cv, "cv_table.csv")
 
     def log_report(self, path) -> None:
+        """The HTML report goes to every run; its data (report_data.json) to the parent, so the report
+        can be rendered again from the store alone."""
         for rid in [self.run_id, *self.child_ids.values()]:
             self.client.log_artifact(rid, str(path))
+        data = pathlib.Path(path).parent / "report_data.json"
+        if data.is_file():
+            self.client.log_artifact(self.run_id, str(data))
         self.client.set_tag(self.run_id, "penduel.report", str(path))

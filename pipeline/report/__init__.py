@@ -1,20 +1,17 @@
-"""The self-contained HTML report of one execution."""
+"""The self-contained HTML report of one execution, rendered from its payload."""
 from __future__ import annotations
 
 import datetime as dt
+import json
 import pathlib
 from importlib import resources
 
 import jinja2
-import numpy as np
 import yaml
 
-from ..evaluate import metric_function, paired_bootstrap_diff, support_recovery, verdict
-from ..seeds import generator
 from . import plots
+from .payload import build_payload
 
-PRIMARY = {"regression": "rmse", "classification": "balanced_accuracy"}
-N_BOOT = 1000
 RULE_TEXT = {"min": "least CV error", "one_se": "the one-standard-error rule"}
 
 
@@ -24,106 +21,85 @@ def _env() -> jinja2.Environment:
 
 
 def _g(x, digits=4) -> str:
-    if x is None or (isinstance(x, float) and not np.isfinite(x)):
-        return "—"
-    return f"{x:.{digits}g}"
+    return "—" if x is None else f"{x:.{digits}g}"
 
 
-def _with_interval(r, name) -> str:
-    lo, hi = r.intervals.get(name, (np.nan, np.nan))
-    return f"{_g(r.metrics[name])} [{_g(lo)}, {_g(hi)}]"
+def _with_interval(f, name) -> str:
+    lo, hi = f["intervals"].get(name, (None, None))
+    return f"{_g(f['metrics'].get(name))} [{_g(lo)}, {_g(hi)}]"
 
 
-def _verdicts(result, by_loss, primary) -> list[dict]:
-    metric = metric_function(primary)
-    rng = generator(result.spec.seed, "bootstrap")
-    out = []
-    for label, fams in by_loss.items():
-        d = {f.family: f for f in fams}
-        row = {"loss": label, "l1": _with_interval(d["l1"], primary) if "l1" in d else "not fitted",
-               "l2": _with_interval(d["l2"], primary) if "l2" in d else "not fitted"}
-        if "l1" in d and "l2" in d:
-            diff, lo, hi = paired_bootstrap_diff(result.y_test, d["l1"].test_pred, d["l2"].test_pred, metric,
-                                                 n_boot=N_BOOT, level=0.9, rng=rng)
-            row["diff"] = f"{_g(diff)} [{_g(lo)}, {_g(hi)}]"
-            row["sentence"] = verdict("sparse (L1)", "ridge-type (L2)", diff, lo, hi, primary,
-                                      metric.lower_is_better)
-        else:
-            row["diff"], row["sentence"] = "—", "Only one family was fitted."
-        out.append(row)
-    return out
-
-
-def _truth(result, r):
-    truth = result.dataset.truth
-    if truth is None or r.coefficients is None:
-        return None
-    raw = {name: j for j, name in enumerate(result.dataset.feature_names)}
-    selected = [raw[name] for name, c in zip(result.feature_names, r.coefficients) if c != 0 and name in raw]
-    rec = support_recovery(selected, truth.support, result.dataset.n_features)
-    return {"true": len(truth.support), "selected": len(selected), "precision": _g(rec["precision"], 3),
-            "recall": _g(rec["recall"], 3), "f1": _g(rec["f1"], 3)}
-
-
-def _problems(r) -> str:
-    bad = [f"λ={lam:.3g}: {status}" for lam, ok, status in zip(r.lambdas, r.path.converged, r.path.status) if not ok]
+def _problems(f) -> str:
+    bad = [f"λ={lam:.3g}: {status}" for lam, ok, status in zip(f["lambdas"], f["converged"], f["status"]) if not ok]
     return "; ".join(bad[:8]) + (f" (and {len(bad) - 8} more)" if len(bad) > 8 else "")
 
 
-def render(result, run_id: str) -> str:
-    task = result.dataset.task
-    primary = PRIMARY[task]
+def _loss_blocks(p) -> list[dict]:
     by_loss: dict[str, list] = {}
-    for r in result.results:
-        by_loss.setdefault(r.loss_label, []).append(r)
-    summary, blocks = [], []
+    for f in p["families"]:
+        by_loss.setdefault(f["loss_label"], []).append(f)
+    blocks = []
     for label, fams in by_loss.items():
-        for r in fams:
-            summary.append({"loss": label, "family": r.title, "lam": _g(r.lambda_chosen),
-                            "primary": _with_interval(r, primary),
-                            "nnz": r.n_nonzero if r.n_nonzero is not None else f"all {len(result.feature_names)}",
-                            "df": _g(r.effective_df, 3), "fit": f"{r.fit_seconds:.2f}", "cv": f"{r.cv_seconds:.2f}",
-                            "ok": f"{int(r.path.converged.sum())} of {len(r.lambdas)}"})
-        l1 = next((r for r in fams if r.family == "l1"), None)
-        names = sorted({k for r in fams for k in r.metrics})
-        top = []
-        if l1 is not None and l1.coefficients is not None:
-            order = np.argsort(-np.abs(l1.coefficients))[:15]
-            top = [(result.feature_names[j], _g(float(l1.coefficients[j]))) for j in order if l1.coefficients[j] != 0]
+        l1 = next((f for f in fams if f["family"] == "l1"), None)
+        names = sorted({k for f in fams for k in f["metrics"]})
         blocks.append({
-            "loss": label, "families": [r.title for r in fams],
-            "metric_rows": [{"name": m, "cells": [_with_interval(r, m) if m in r.metrics else "—" for r in fams]}
+            "loss": label, "families": [f["title"] for f in fams],
+            "metric_rows": [{"name": m, "cells": [_with_interval(f, m) if m in f["metrics"] else "—" for f in fams]}
                             for m in names],
             "cv_plot": plots.cv_curves(fams, label), "df_plot": plots.error_vs_df(fams, label),
-            "path_plot": plots.coefficient_path(l1, result.feature_names) if l1 is not None and l1.path.coef is not None
-            else None,
-            "top_features": top, "truth": _truth(result, l1) if l1 is not None else None,
-            "problems": "; ".join(p for p in (_problems(r) for r in fams) if p)})
-    ds = result.dataset.summary()
-    data_rows = [(k.replace("_", " "), v if not isinstance(v, float) else _g(v)) for k, v in ds.items()]
-    data_rows += [("features built", f"{len(result.feature_names)} (maps: "
-                   f"{', '.join(m.kind for m in result.spec.features.maps)})"),
-                  ("training rows", len(result.train_rows)), ("test rows", len(result.test_rows))]
-    from ..tracking import package_versions
-    versions = package_versions()
+            "path_plot": plots.coefficient_path(l1) if l1 and l1["coef_path"] and l1["coef_path"]["names"] else None,
+            "top_features": [(n, _g(c)) for n, c in l1["top_features"]] if l1 else [],
+            "truth": None if not (l1 and l1["truth"]) else {k: (_g(v, 3) if isinstance(v, float) or v is None else v)
+                                                          for k, v in l1["truth"].items()},
+            "problems": "; ".join(x for x in (_problems(f) for f in fams) if x)})
+    return blocks
+
+
+def render(p: dict, run_id: str) -> str:
+    primary = p["primary"]
+    summary = [{"loss": f["loss_label"], "family": f["title"], "lam": _g(f["lambda_chosen"]),
+                "primary": _with_interval(f, primary),
+                "nnz": f["n_nonzero"] if f["n_nonzero"] is not None else f"all {f['n_features']}",
+                "df": _g(f["effective_df"], 3), "fit": f"{f['fit_seconds']:.2f}", "cv": f"{f['cv_seconds']:.2f}",
+                "ok": f"{sum(f['converged'])} of {len(f['lambdas'])}"} for f in p["families"]]
+    by_loss = {}
+    for f in p["families"]:
+        by_loss.setdefault(f["loss_label"], {})[f["family"]] = f
+    verdicts = []
+    for v in p["verdicts"]:
+        fams = by_loss[v["loss"]]
+        verdicts.append({"loss": v["loss"],
+                         "l1": _with_interval(fams["l1"], primary) if "l1" in fams else "not fitted",
+                         "l2": _with_interval(fams["l2"], primary) if "l2" in fams else "not fitted",
+                         "diff": "—" if v["diff"] is None else f"{_g(v['diff'])} [{_g(v['low'])}, {_g(v['high'])}]",
+                         "sentence": v["sentence"]})
+    data_rows = [(k.replace("_", " "), _g(v) if isinstance(v, float) else v) for k, v in p["dataset"].items()]
+    data_rows += [("features built", f"{p['n_features_built']} (maps: {', '.join(p['feature_maps'])})"),
+                  ("training rows", p["n_train"]), ("test rows", p["n_test"])]
     css = (resources.files("pipeline.report") / "templates" / "report.css").read_text(encoding="utf-8")
     return _env().get_template("execution.html").render(
-        name=result.spec.name, description=result.spec.description, run_id=run_id,
+        name=p["name"], description=p["description"], run_id=run_id,
         written=dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
-        config_hash=result.spec.config_hash(), data_hash=result.data_hash, seconds=result.seconds,
-        n_test=len(result.test_rows), n_rows=result.dataset.n_samples, n_boot=N_BOOT,
-        primary_label=primary.replace("_", " ") + ("" if metric_function(primary).lower_is_better else
-                                                   " (higher is better)"),
-        rule_text=RULE_TEXT[result.spec.selection.rule], verdicts=_verdicts(result, by_loss, primary),
-        summary=summary, loss_blocks=blocks, n_folds=result.spec.selection.cv_folds, data_rows=data_rows,
-        notes=list(result.notes), config_yaml=yaml.safe_dump(result.spec.resolved(), sort_keys=False,
-                                                             allow_unicode=True),
-        versions=", ".join(f"{k} {v}" for k, v in versions.items()), version=versions["penduel"], css=css)
+        config_hash=p["config_hash"], data_hash=p["data_hash"], seconds=p["seconds"],
+        n_test=p["n_test"], n_rows=p["n_rows"], n_boot=p["n_boot"],
+        primary_label=primary.replace("_", " ") + ("" if p["primary_lower_is_better"] else " (higher is better)"),
+        rule_text=RULE_TEXT[p["rule"]], verdicts=verdicts, summary=summary, loss_blocks=_loss_blocks(p),
+        n_folds=p["n_folds"], data_rows=data_rows, notes=p["notes"],
+        config_yaml=yaml.safe_dump(p["config"], sort_keys=False, allow_unicode=True),
+        versions=", ".join(f"{k} {v}" for k, v in p["versions"].items()), version=p["versions"]["penduel"], css=css)
+
+
+def report_path(base_dir: pathlib.Path, directory: str, name: str, run_id: str) -> pathlib.Path:
+    return pathlib.Path(base_dir) / directory / name / run_id / "index.html"
+
+
+def write_payload_report(payload: dict, run_id: str, base_dir: pathlib.Path) -> pathlib.Path:
+    path = report_path(base_dir, payload["config"]["report"]["directory"], payload["name"], run_id)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text(render(payload, run_id), encoding="utf-8")
+    (path.parent / "report_data.json").write_text(json.dumps(payload, allow_nan=False), encoding="utf-8")
+    return path
 
 
 def write_report(result, run_id: str, base_dir: pathlib.Path) -> pathlib.Path:
-    out_dir = pathlib.Path(base_dir) / result.spec.report.directory / result.spec.name / run_id
-    out_dir.mkdir(parents=True, exist_ok=True)
-    path = out_dir / "index.html"
-    path.write_text(render(result, run_id), encoding="utf-8")
-    return path
+    return write_payload_report(build_payload(result), run_id, base_dir)
