@@ -47,9 +47,10 @@ class Metric:
         return np.array([self(y[i], pred[i]) for i in idx])
 
 
-def _gathered(rows: Callable[[np.ndarray, np.ndarray], np.ndarray]):
-    """Resampled form of a function of (B, n) row arrays."""
-    return lambda y, pred, idx: rows(y[idx], pred[idx])
+def _mean_of(pointwise: Callable[[np.ndarray, np.ndarray], np.ndarray]):
+    """Resampled form of a mean of per-row losses: the losses are computed once on all
+    rows and only gathered per resample (no (B, n) arithmetic)."""
+    return lambda y, pred, idx: pointwise(y, pred)[idx].mean(axis=1)
 
 
 def _resample_counts(idx: np.ndarray, n: int) -> np.ndarray:
@@ -63,28 +64,44 @@ def _labels(decision):
     return np.where(decision > 0, 1.0, -1.0)
 
 
-def _pinball_rows(tau):
-    def rows(y, pred):
-        r = y - pred
-        return np.mean(np.maximum(tau * r, (tau - 1) * r), axis=-1)
-    return rows
+def _squared(y, f):
+    return (y - f) ** 2
 
 
-def _r2_rows(y, pred):
-    sse = np.sum((y - pred) ** 2, axis=-1)
-    sst = np.sum((y - y.mean(axis=-1, keepdims=True)) ** 2, axis=-1)
+def _absolute(y, f):
+    return np.abs(y - f)
+
+
+def _pinball(tau):
+    def pointwise(y, f):
+        r = y - f
+        return np.maximum(tau * r, (tau - 1) * r)
+    return pointwise
+
+
+def _rmse_resampled(y, f, idx):
+    return np.sqrt(_squared(y, f)[idx].mean(axis=1))
+
+
+def _r2_resampled(y, f, idx):
+    sse = _squared(y, f)[idx].sum(axis=1)
+    y_rows = y[idx]
+    sst = np.sum((y_rows - y_rows.mean(axis=1, keepdims=True)) ** 2, axis=1)
     with np.errstate(divide="ignore", invalid="ignore"):
         r2 = 1.0 - sse / sst
     # scikit-learn's force_finite: constant y gives 1 for a perfect fit, else 0
     return np.where(sst == 0, np.where(sse == 0, 1.0, 0.0), r2)
 
 
-def _balanced_accuracy_rows(y, decision):
-    hit = _labels(decision) == y
-    pos, neg = y > 0, y < 0
+def _hits(y, decision):
+    return (_labels(decision) == y).astype(float)
+
+
+def _balanced_accuracy_resampled(y, decision, idx):
+    hit, pos = (_labels(decision) == y)[idx], (y > 0)[idx]
     with np.errstate(divide="ignore", invalid="ignore"):
-        tpr = np.sum(hit & pos, axis=-1) / np.sum(pos, axis=-1)
-        tnr = np.sum(hit & neg, axis=-1) / np.sum(neg, axis=-1)
+        tpr = np.sum(hit & pos, axis=1) / np.sum(pos, axis=1)
+        tnr = np.sum(hit & ~pos, axis=1) / np.sum(~pos, axis=1)
     return np.nanmean(np.stack([tpr, tnr]), axis=0)
 
 
@@ -115,45 +132,35 @@ def _roc_auc_single(y, decision):
 _EPS = np.finfo(float).eps
 
 
-def _log_loss_rows(y, decision):
+def _log_loss_pointwise(y, decision):
     # same clipping of probabilities as scikit-learn's log_loss (float64 machine eps)
-    p = np.clip(expit(decision), _EPS, 1 - _EPS)
-    q = np.clip(1 - expit(decision), _EPS, 1 - _EPS)
-    return -np.mean(np.where(y > 0, np.log(p), np.log(q)), axis=-1)
+    p = expit(decision)
+    return -np.log(np.clip(np.where(y > 0, p, 1 - p), _EPS, 1 - _EPS))
 
 
-def _regression(name, lower, single, rows):
-    return Metric(name, "regression", lower, single, _gathered(rows))
-
-
-def _classification(name, lower, single, rows=None, resampled=None):
-    return Metric(name, "classification", lower, single, resampled or _gathered(rows))
+def _brier_pointwise(y, decision):
+    return (expit(decision) - (y > 0)) ** 2
 
 
 def _build_metrics(tau: float) -> dict[str, Metric]:
+    reg, cls = "regression", "classification"
     return {
-        "mse": _regression("mse", True, skm.mean_squared_error,
-                           lambda y, f: np.mean((y - f) ** 2, axis=-1)),
-        "rmse": _regression("rmse", True, skm.root_mean_squared_error,
-                            lambda y, f: np.sqrt(np.mean((y - f) ** 2, axis=-1))),
-        "mae": _regression("mae", True, skm.mean_absolute_error,
-                           lambda y, f: np.mean(np.abs(y - f), axis=-1)),
-        "pinball": _regression("pinball", True,
-                               lambda y, f: skm.mean_pinball_loss(y, f, alpha=tau), _pinball_rows(tau)),
-        "r2": _regression("r2", False, skm.r2_score, _r2_rows),
-        "accuracy": _classification("accuracy", False,
-                                    lambda y, f: skm.accuracy_score(y, _labels(f)),
-                                    lambda y, f: np.mean(_labels(f) == y, axis=-1)),
-        "balanced_accuracy": _classification(
-            "balanced_accuracy", False,
-            lambda y, f: skm.balanced_accuracy_score(y, _labels(f)), _balanced_accuracy_rows),
-        "roc_auc": _classification("roc_auc", False, _roc_auc_single, resampled=_roc_auc_resampled),
-        "log_loss": _classification("log_loss", True,
-                                    lambda y, f: skm.log_loss(y, expit(f), labels=[-1, 1]),
-                                    _log_loss_rows),
-        "brier": _classification("brier", True,
-                                 lambda y, f: skm.brier_score_loss(y, expit(f), pos_label=1),
-                                 lambda y, f: np.mean((expit(f) - (y > 0)) ** 2, axis=-1)),
+        "mse": Metric("mse", reg, True, skm.mean_squared_error, _mean_of(_squared)),
+        "rmse": Metric("rmse", reg, True, skm.root_mean_squared_error, _rmse_resampled),
+        "mae": Metric("mae", reg, True, skm.mean_absolute_error, _mean_of(_absolute)),
+        "pinball": Metric("pinball", reg, True, lambda y, f: skm.mean_pinball_loss(y, f, alpha=tau),
+                          _mean_of(_pinball(tau))),
+        "r2": Metric("r2", reg, False, skm.r2_score, _r2_resampled),
+        "accuracy": Metric("accuracy", cls, False, lambda y, f: skm.accuracy_score(y, _labels(f)),
+                           _mean_of(_hits)),
+        "balanced_accuracy": Metric("balanced_accuracy", cls, False,
+                                    lambda y, f: skm.balanced_accuracy_score(y, _labels(f)),
+                                    _balanced_accuracy_resampled),
+        "roc_auc": Metric("roc_auc", cls, False, _roc_auc_single, _roc_auc_resampled),
+        "log_loss": Metric("log_loss", cls, True, lambda y, f: skm.log_loss(y, expit(f), labels=[-1, 1]),
+                           _mean_of(_log_loss_pointwise)),
+        "brier": Metric("brier", cls, True, lambda y, f: skm.brier_score_loss(y, expit(f), pos_label=1),
+                        _mean_of(_brier_pointwise)),
     }
 
 
@@ -170,11 +177,11 @@ def metric_function(name: str, tau: float = 0.5) -> Metric:
 
 
 def loss_metric(loss) -> Metric:
-    """Mean held-out value of a loss object (anything with `.name`, `.task` and an
-    elementwise `.value(y, f)`), so each loss's own objective can be bootstrapped."""
+    """Mean held-out value of a loss object (anything with `.name`, `.task` and a
+    per-row `.value(y, f)`), so each loss's own objective can be bootstrapped."""
     return Metric(f"{loss.name}_loss", getattr(loss, "task", "any"), True,
                   lambda y, f: float(np.mean(loss.value(y, f))),
-                  _gathered(lambda y, f: np.mean(loss.value(y, f), axis=-1)))
+                  _mean_of(loss.value))
 
 
 def regression_metrics(y, pred, tau: float = 0.5) -> dict[str, float]:
@@ -195,7 +202,7 @@ def _as_metric(metric) -> Metric:
         return metric
     if isinstance(metric, str):
         return metric_function(metric)
-    if callable(metric):  # a plain function: correct but evaluated resample by resample
+    if callable(metric):  # a plain function: taken as lower-is-better, evaluated resample by resample
         return Metric(getattr(metric, "__name__", "metric"), "any", True, metric)
     raise TypeError(f"metric must be a name, a Metric or a callable; got {type(metric).__name__}")
 
