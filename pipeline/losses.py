@@ -229,7 +229,20 @@ class HuberLoss(Loss):
             return lo
         res = minimize_scalar(lambda b: float(np.sum(self.value(y, b))), bounds=(lo, hi),
                               method="bounded", options={"xatol": 1e-12 * max(1.0, hi - lo)})
-        return float(res.x)
+        b = float(res.x)
+        # exact finish: sum clip(y - b, -delta, delta) = 0 is linear in b once the
+        # set of samples inside the quadratic zone is fixed
+        for _ in range(50):
+            r = y - b
+            inside = np.abs(r) <= self.delta
+            if not inside.any():
+                break
+            outside = np.sum(np.sign(r[~inside])) * self.delta
+            new = float((np.sum(y[inside]) + outside) / inside.sum())
+            if new == b:
+                break
+            b = new
+        return b
 
 
 # ------------------------------------------------------------ classification

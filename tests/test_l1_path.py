@@ -87,6 +87,20 @@ def test_screening_rules_agree():
     np.testing.assert_allclose(a.coef, b.coef, atol=1e-6)
 
 
+@pytest.mark.parametrize("name", ["squared", "huber", "logistic", "squared_hinge"])
+def test_solver_routes_agree(name):
+    """Active-set continuation, the forced convex-solver route and cvxpy give one path."""
+    loss = get_loss(name)
+    X, y = _problem(loss.task, n=90, p=40, seed=5)
+    lams = default_lambdas(X, y, loss, 6, 0.02)
+    auto = fit_l1_path(X, y, loss, lams)
+    forced = fit_l1_path(X, y, loss, lams, solver="osqp" if name == "squared" else "cvxpy")
+    assert "active-set" in auto.solver and "active-set" not in forced.solver
+    assert np.all(auto.converged) and np.all(forced.converged)
+    np.testing.assert_allclose(auto.objective, forced.objective, rtol=1e-9)
+    np.testing.assert_array_equal(auto.n_nonzero, forced.n_nonzero)
+
+
 def test_lambda_grid_and_predict():
     g = lambda_grid(2.0, 5, 0.01)
     assert g[0] == 2.0 and g[-1] == pytest.approx(0.02) and np.allclose(g[1:] / g[:-1], g[1] / g[0])
@@ -114,7 +128,7 @@ def test_solver_failure_is_recorded_not_raised(monkeypatch):
         return real(*args, **kwargs)
 
     monkeypatch.setattr(l1_restricted, "solve_squared_gram", flaky)
-    path = fit_l1_path(X, y, "squared", lams)
+    path = fit_l1_path(X, y, "squared", lams, solver="osqp")
     failed = [i for i, s in enumerate(path.status) if s.startswith("error")]
     assert len(failed) == 1 and not path.converged[failed[0]]
     assert "simulated solver crash" in path.status[failed[0]]

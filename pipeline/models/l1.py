@@ -5,6 +5,10 @@ At each lambda the problem restricted to a working set W is solved by a convex
 solver (see l1_restricted); one product X'u checks the optimality conditions on
 every column and violators join W. W is seeded by the sequential strong rule
 (Tibshirani et al. 2012, JRSS-B 74(2)) or by the previous active set.
+
+For smooth losses, solver "auto" / "active_set" first tries active-set continuation
+from the previous lambda (l1_active.refine over every column); the convex solver
+runs only where that does not settle. Solver "osqp" / "cvxpy" forces the solver route.
 """
 from __future__ import annotations
 
@@ -12,12 +16,14 @@ import time
 from dataclasses import dataclass, field
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from pipeline.losses import Loss, get_loss, intercept_only_dual, lambda_max
 from pipeline.models import l1_certificate as cert
 from pipeline.models import l1_restricted as rs
+from pipeline.models.l1_active import GramCache, refine
 
-SOLVERS = ("auto", "osqp", "highs", "cvxpy")
+SOLVERS = ("auto", "active_set", "osqp", "highs", "cvxpy")
 SCREENING = ("strong", "active")
 
 
@@ -67,7 +73,7 @@ def predict_path(path: L1Path, X) -> np.ndarray:
 def _route(loss: Loss, alpha: float, solver: str) -> str:
     if solver not in SOLVERS:
         raise ValueError(f"unknown solver '{solver}': valid are {', '.join(SOLVERS)}")
-    if solver != "auto":
+    if solver not in ("auto", "active_set"):
         return solver
     if loss.name == "squared":
         return "osqp"
@@ -92,8 +98,10 @@ def _solve_restricted(route, XW, y, lam, alpha, loss, warm, tol):
 class _PathFitter:
     """State carried along the path: warm start, last gradient, active set."""
 
-    def __init__(self, X, y, loss, alpha, tol, route, max_rounds, screening):
+    def __init__(self, X, y, loss, alpha, tol, route, max_rounds, screening, continuation):
         self.X, self.y, self.loss = X, y, loss
+        self.continuation = continuation and loss.smooth
+        self.gram = GramCache(X, y) if self.continuation and loss.name == "squared" else None
         self.n, self.p = X.shape
         self.alpha, self.tol, self.route = alpha, tol, route
         self.max_rounds, self.screening = max_rounds, screening
@@ -112,7 +120,7 @@ class _PathFitter:
         return active
 
     def _fit_on(self, W, lam):
-        """Solve on W, decide zeros from optimality, polish; returns (coef, b0, u)."""
+        """Solve on W, decide zeros from optimality, refine; returns (coef, b0, u, status)."""
         X, y, loss, alpha = self.X, self.y, self.loss, self.alpha
         coef = np.zeros(self.p)
         if W.size == 0:
@@ -122,31 +130,30 @@ class _PathFitter:
         self.solver_used.add(res.solver)
         gradW = XW.T @ res.dual / self.n
         cw = cert.zero_by_optimality(res.coef, gradW, lam, alpha)
-        b0 = res.intercept
-        dual = res.dual
-        if loss.smooth and np.any(cw):
-            cw, b0, dual = self._polish(XW, cw, b0, lam, res)
+        b0, dual = res.intercept, res.dual
+        if loss.smooth and res.status == "optimal":
+            ref = refine(XW, y, cw, b0, lam, alpha, loss, tol=self.tol * 1e-3)
+            if ref.ok:
+                cw, b0, dual = ref.coef, ref.intercept, ref.dual
         coef[W] = cw
         return coef, b0, dual, res.status
 
-    def _polish(self, XW, cw, b0, lam, res):
-        """Newton on the support; grow/shrink the support a few times if signs disagree."""
-        y, loss, alpha = self.y, self.loss, self.alpha
-        for _ in range(5):
-            new, nb0, ok = cert.newton_polish(XW, y, cw, b0, lam, alpha, loss)
-            if not ok:
-                break
-            dual = loss.derivative(y, XW @ new + nb0)
-            g = XW.T @ dual / self.n
-            missing = np.flatnonzero((new == 0) & (np.abs(g) > lam * alpha * (1 + 1e-12)))
-            if missing.size == 0:
-                return new, nb0, dual
-            cw, b0 = new.copy(), nb0
-            # a tiny start with the sign the gradient demands
-            cw[missing] = -np.sign(g[missing]) * 1e-12
-        return cw, b0, loss.derivative(y, XW @ cw + b0) if loss.smooth else res.dual
+    def _continue(self, lam):
+        """Active-set continuation from the previous lambda over every column."""
+        ref = refine(self.X, self.y, self.coef, self.intercept, lam, self.alpha, self.loss,
+                     tol=self.tol * 1e-3, gram=self.gram)
+        if not ref.ok:
+            return None
+        self.solver_used.add("active-set")
+        self.coef, self.intercept, self.dual, self.grad = ref.coef, ref.intercept, ref.dual, ref.grad
+        self.prev_lam = lam
+        return "optimal", ref.iterations, int(np.count_nonzero(ref.coef))
 
     def step(self, lam):
+        if self.continuation:
+            done = self._continue(lam)
+            if done is not None:
+                return done
         W = self.seed(lam)
         status, rounds = "optimal", 0
         viol_tol = lam * self.alpha * (1 + self.tol)
@@ -175,6 +182,13 @@ def fit_l1_path(X, y, loss, lambdas, *, alpha=1.0, tol=1e-7, solver="auto",
     X is standardised by the caller; y float (regression) or in {-1, +1}
     (classification). A failure at one lambda is recorded, never raised.
     """
+    # one BLAS thread: the small dense solves here lose to threading overhead, and
+    # parallelism comes from running many fits side by side (pipeline.execution)
+    with threadpool_limits(limits=1, user_api="blas"):
+        return _fit_path(X, y, loss, lambdas, alpha, tol, solver, max_working_set_rounds, screening)
+
+
+def _fit_path(X, y, loss, lambdas, alpha, tol, solver, max_working_set_rounds, screening) -> L1Path:
     start = time.perf_counter()
     loss = get_loss(loss) if isinstance(loss, str) else loss
     X = np.ascontiguousarray(X, dtype=float)
@@ -187,7 +201,8 @@ def fit_l1_path(X, y, loss, lambdas, *, alpha=1.0, tol=1e-7, solver="auto",
     if loss.task == "classification" and not np.all(np.isin(y, (-1.0, 1.0))):
         raise ValueError("classification losses need labels in {-1, +1}")
     route = _route(loss, alpha, solver)
-    fitter = _PathFitter(X, y, loss, alpha, tol, route, max_working_set_rounds, screening)
+    fitter = _PathFitter(X, y, loss, alpha, tol, route, max_working_set_rounds, screening,
+                         continuation=solver in ("auto", "active_set"))
     L, p = lambdas.size, X.shape[1]
     coefs, icpts = np.zeros((L, p)), np.zeros(L)
     gaps, kkts, objs = np.zeros(L), np.zeros(L), np.zeros(L)

@@ -5,7 +5,7 @@ per-sample dual point u (the loss subgradient at the fit, u_i in d loss_i / d f)
 a status text. Three formulations, chosen for speed with a convex solver:
 
 - squared loss: Gram form 0.5 b'Gb - c'b + lam*||b||_1 (intercept eliminated by
-  centring), split b = b+ - b-, solved by OSQP as a bound-constrained QP;
+  centring) in epigraph form, solved by OSQP;
 - piecewise-linear losses with a pure L1 penalty: an explicit split LP solved by
   the HiGHS simplex, whose equality duals are the subgradient at kinks;
 - every other case: cvxpy with an auxiliary z = X_W b + b0 whose constraint dual
@@ -45,21 +45,25 @@ def solve_squared_gram(XW, y, lam, alpha, warm=None, tol=1e-9) -> Restricted:
     G = Xc.T @ Xc / n
     c = Xc.T @ (y - y_mean) / n
     l1, l2 = _penalty_split(lam, alpha)
-    Gr = G + l2 * np.eye(k)
-    P = sp.triu(sp.csc_matrix(np.block([[Gr, -Gr], [-Gr, Gr]])), format="csc")
-    q = np.r_[l1 - c, l1 + c]
-    A = sp.identity(2 * k, format="csc")
+    # epigraph form: min 0.5 b'(G + l2 I)b - c'b + l1 * 1't, -t <= b <= t. Its KKT matrix
+    # holds G once (the split b+ - b- form holds it four times and factors ~8x slower)
+    P = sp.block_diag([sp.triu(sp.csc_matrix(G + l2 * np.eye(k))), sp.csc_matrix((k, k))], format="csc")
+    q = np.r_[-c, np.full(k, l1)]
+    eye = sp.identity(k, format="csc")
+    A = sp.vstack([sp.hstack([eye, -eye]), sp.hstack([eye, eye])], format="csc")
+    lower = np.r_[np.full(k, -np.inf), np.zeros(k)]
+    upper = np.r_[np.zeros(k), np.full(k, np.inf)]
     solver = osqp.OSQP()
-    solver.setup(P, q, A, np.zeros(2 * k), np.full(2 * k, np.inf), eps_abs=tol, eps_rel=tol,
+    solver.setup(P, q, A, lower, upper, eps_abs=tol, eps_rel=tol,
                  max_iter=20000, polishing=True, verbose=False)
     if warm is not None:
-        solver.warm_start(x=np.r_[np.maximum(warm, 0), np.maximum(-warm, 0)])
+        solver.warm_start(x=np.r_[warm, np.abs(warm)])
     res = solver.solve(raise_error=False)
     status = str(res.info.status)
     x = res.x
     if x is None or not np.all(np.isfinite(x)):
         return Restricted(np.zeros(k) if warm is None else warm, y_mean, y_mean - y, status, "OSQP")
-    coef = x[:k] - x[k:]
+    coef = x[:k]
     b0 = float(y_mean - x_mean @ coef)
     dual = (XW @ coef + b0) - y
     ok = "solved" in status.lower()
