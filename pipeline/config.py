@@ -154,8 +154,34 @@ class SplitSpec(_Strict):
 
 class SelectionSpec(_Strict):
     cv_folds: int = Field(5, ge=2, le=50, description="Folds of K-fold cross-validation.")
+    repeats: int = Field(1, ge=1, le=50, description="Repeats of K-fold CV, each with fresh folds (same for "
+                                                     "both families).")
     rule: Literal["min", "one_se"] = Field("min", description="Pick the λ of least CV error, or the simplest "
                                                               "within one standard error of it.")
+    l2_criterion: Literal["cv", "loo", "gcv"] = Field(
+        "cv", description="How the ridge-type family picks λ for the squared loss: K-fold CV, exact "
+                          "leave-one-out or generalised CV (other losses always use K-fold CV).")
+    nested: bool = Field(False, description="Also estimate the error of the whole select-then-fit procedure "
+                                            "by nested CV (outer folds = cv_folds); costs cv_folds times more.")
+
+
+class StabilitySpec(_Strict):
+    enabled: bool = Field(True, description="Refit both families on resamples of the training rows.")
+    scheme: Literal["subsample", "bootstrap", "complementary_pairs"] = Field(
+        "subsample", description="Resampling scheme (complementary pairs: Shah & Samworth 2013).")
+    n_resamples: int = Field(50, ge=2, le=10_000, description="Number of resamples (even for complementary pairs).")
+    fraction: float = Field(0.5, gt=0.0, le=1.0, description="Share of training rows per subsample.")
+    threshold: float = Field(0.75, gt=0.5, le=1.0, description="Selection probability for the stable set.")
+    target_false_selections: float = Field(
+        1.0, gt=0.0, description="Target E[V] (expected falsely selected features) for the λ range "
+                                 "(Meinshausen & Bühlmann 2010 bound).")
+    losses: tuple[str, ...] | None = Field(None, description="Loss labels to resample; default: the first loss.")
+
+    @model_validator(mode="after")
+    def _pairs_even(self) -> "StabilitySpec":
+        if self.scheme == "complementary_pairs" and (self.n_resamples % 2 or self.fraction != 0.5):
+            raise ValueError("complementary_pairs needs an even n_resamples and fraction 0.5")
+        return self
 
 
 class TrackingSpec(_Strict):
@@ -165,6 +191,12 @@ class TrackingSpec(_Strict):
 
 class ReportSpec(_Strict):
     directory: str = Field("reports", description="Folder where reports are written.")
+
+
+class CacheSpec(_Strict):
+    directory: str = Field(".penduel-cache", description="Folder of finished fit tasks, relative to the current "
+                                                         "folder; a rerun reuses them.")
+    enabled: bool = Field(True, description="Reuse and store finished fit tasks.")
 
 
 class ExecutionSpec(_Strict):
@@ -189,6 +221,8 @@ class ExperimentSpec(_Strict):
     tracking: TrackingSpec = TrackingSpec()
     report: ReportSpec = ReportSpec()
     execution: ExecutionSpec = ExecutionSpec()
+    stability: StabilitySpec = StabilitySpec()
+    cache: CacheSpec = CacheSpec()
 
     @field_validator("losses", mode="before")
     @classmethod

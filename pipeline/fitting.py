@@ -62,6 +62,9 @@ class FitOutcome:
     solver: str
     fit_seconds: float
     feature_names: tuple[str, ...]
+    loo_error: np.ndarray | None = None   # (L,) L2 squared loss only, fitting scale
+    gcv: np.ndarray | None = None
+    df_kind: str = ""                      # what effective_df counts
 
 
 def build_features(shared: Shared, train_idx):
@@ -95,6 +98,8 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
         nnz, df = path.n_nonzero, path.n_nonzero.astype(float)
         cert, cert_kind, solver = path.certificate, path.certificate_kind, path.solver
         converged, status = path.converged, path.status
+        loo, gcv = None, None
+        df_kind = "number of nonzero coefficients"
     else:
         from .kernels import gram
         from .models.l2 import fit_l2_path, predict_path, primal_weights
@@ -109,6 +114,8 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
         nnz, df = None, path.effective_df
         cert, cert_kind, solver = None, "", "representer"
         converged, status = path.converged, path.status
+        loo, gcv = path.loo_error, path.gcv
+        df_kind = getattr(path, "df_kind", "trace of the hat matrix")
     seconds = time.perf_counter() - start
     eval_loss = np.array([loss.value(t_ev, f).mean() for f in f_ev])
     if coef is not None:
@@ -118,4 +125,4 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
         eval_loss=eval_loss, eval_pred=center + scale * f_ev, coef=coef, intercept=np.asarray(intercept),
         n_nonzero=nnz, effective_df=np.asarray(df, float), certificate=cert, certificate_kind=cert_kind,
         converged=np.asarray(converged), status=tuple(status), solver=solver, fit_seconds=seconds,
-        feature_names=tuple(builder.get_feature_names_out()))
+        feature_names=tuple(builder.get_feature_names_out()), loo_error=loo, gcv=gcv, df_kind=df_kind)

@@ -11,12 +11,15 @@ from sklearn.model_selection import train_test_split
 from . import seeds
 from .config import ExperimentSpec
 from .data import DataError, Dataset, load_dataset
-from .evaluate import bootstrap_ci, classification_metrics, loss_metric, metric_function, regression_metrics
+from .evaluate import (bootstrap_ci, classification_metrics, corrected_resampled_ttest, loss_metric,
+                       metric_function, regression_metrics)
+from .cache import cache_for, run_cached, task_keys
 from .execution import run_tasks
 from .features import output_width
 from .fitting import FitOutcome, FitTask, Shared, build_features, run_fit, target_scaling
 from .losses import get_loss, lambda_max
 from .selection import choose_lambda_index, cv_summary, make_folds
+from .stability_stage import resample_splits, stability_losses, summarise_families
 
 PRIMARY_METRIC = {"regression": "rmse", "classification": "log_loss"}
 FAMILY_TITLES = {"l1": "sparse (L1)", "l2": "ridge-type (L2)"}
@@ -44,6 +47,9 @@ class FamilyResult:
     cv_seconds: float              # all fold fits together
     coefficients: np.ndarray | None  # (p_features,) at the chosen λ, on the feature-output scale
     intercept: float
+    selected_by: str = ""
+    nested: dict | None = None       # nested-CV estimate of the select-then-fit procedure
+    resamples: tuple = ()            # FitOutcome per resample (stability stage)
 
     @property
     def title(self) -> str:
@@ -62,6 +68,10 @@ class ExperimentResult:
     results: tuple[FamilyResult, ...]
     seconds: float
     notes: tuple[str, ...] = field(default_factory=tuple)
+    tasks_reused: int = 0          # fit tasks taken from the cache instead of refitted
+    tasks_total: int = 0
+    comparisons: dict = field(default_factory=dict)   # loss label -> corrected t-test across CV folds
+    stability: dict = field(default_factory=dict)     # loss label -> resampling summary
 
 
 def check_feature_budget(spec: ExperimentSpec, dataset: Dataset, n_train: int) -> int:
@@ -114,9 +124,29 @@ def _l2_grid(spec, shared, train_rows):
     return l2_lambda_grid(gram(Z, kernel=spec.families.l2.kernel), spec.families.l2.n_lambdas)
 
 
-def plan_tasks(spec: ExperimentSpec, shared: Shared, train_rows, test_rows, folds) -> list[FitTask]:
+def plan_splits(spec: ExperimentSpec, dataset: Dataset, train_rows, test_rows) -> list[tuple]:
+    """(name, fit rows, evaluation rows) for every split any task uses; both families share them all."""
+    classify = dataset.task == "classification"
+    K = spec.selection.cv_folds
+    folds = make_folds(len(train_rows), K, seeds.generator(spec.seed, "folds"), y=dataset.y[train_rows],
+                       stratify=classify, repeats=spec.selection.repeats)
+    splits = [(f"fold{k}", train_rows[tr], train_rows[va]) for k, (tr, va) in enumerate(folds)]
+    splits.append(("final", train_rows, test_rows))
+    if spec.selection.nested:
+        rng = seeds.generator(spec.seed, "nested")
+        for o, (otr, ote) in enumerate(make_folds(len(train_rows), K, rng, y=dataset.y[train_rows],
+                                                  stratify=classify)):
+            outer_train = train_rows[otr]
+            inner = make_folds(len(outer_train), K, rng, y=dataset.y[outer_train], stratify=classify)
+            splits += [(f"outer{o}.fold{k}", outer_train[tr], outer_train[va]) for k, (tr, va) in enumerate(inner)]
+            splits.append((f"outer{o}.final", outer_train, train_rows[ote]))
+    return splits
+
+
+def plan_tasks(spec: ExperimentSpec, shared: Shared, train_rows, test_rows, splits, resamples) -> list[FitTask]:
     tasks = []
     l2_grid = _l2_grid(spec, shared, train_rows) if spec.families.l2.enabled else None
+    resampled = stability_losses(spec)
     for loss_spec in spec.losses:
         loss = get_loss(loss_spec.name, **loss_spec.params())
         grids = {}
@@ -124,12 +154,11 @@ def plan_tasks(spec: ExperimentSpec, shared: Shared, train_rows, test_rows, fold
             grids["l1"] = _l1_grid(spec, shared, train_rows, loss)
         if spec.families.l2.enabled:
             grids["l2"] = l2_grid
+        these = splits + (resamples if loss_spec.label in resampled else [])
         for family, grid in grids.items():
             common = dict(family=family, loss_name=loss_spec.name, loss_params=tuple(sorted(loss_spec.params().items())),
                           loss_label=loss_spec.label, lambdas=grid)
-            for k, (tr, va) in enumerate(folds):
-                tasks.append(FitTask(split=f"fold{k}", train_idx=train_rows[tr], eval_idx=train_rows[va], **common))
-            tasks.append(FitTask(split="final", train_idx=train_rows, eval_idx=test_rows, **common))
+            tasks += [FitTask(split=name, train_idx=tr, eval_idx=ev, **common) for name, tr, ev in these]
     return tasks
 
 
@@ -151,18 +180,38 @@ def test_metrics(task: str, y, pred, loss, rng) -> tuple[dict, dict]:
     return metrics, intervals
 
 
+def _choose(spec, family, loss_name, cv_errors, final) -> tuple[int, str]:
+    crit = spec.selection.l2_criterion
+    if family == "l2" and loss_name == "squared" and crit != "cv" and final.loo_error is not None:
+        values = final.loo_error if crit == "loo" else final.gcv
+        return int(np.nanargmin(values)), crit
+    return choose_lambda_index(cv_errors, spec.selection.rule), f"{spec.selection.cv_folds}-fold CV, {spec.selection.rule}"
+
+
+def _nested_estimate(spec, by_split: dict) -> dict | None:
+    """Outer-fold held-out loss of the whole procedure (inner CV picks λ, refit on the outer fold)."""
+    values = []
+    for o in range(spec.selection.cv_folds):
+        inner = [by_split[f"outer{o}.fold{k}"].eval_loss for k in range(spec.selection.cv_folds)]
+        idx = choose_lambda_index(np.vstack(inner), spec.selection.rule)
+        values.append(float(by_split[f"outer{o}.final"].eval_loss[idx]))
+    v = np.array(values)
+    return {"mean": float(v.mean()), "se": float(v.std(ddof=1) / np.sqrt(len(v))), "outer": values}
+
+
 def assemble(spec, shared, tasks, outcomes, test_rows, rng) -> list[FamilyResult]:
-    by_key: dict[tuple, list[tuple[FitTask, FitOutcome]]] = {}
+    by_key: dict[tuple, dict[str, tuple[FitTask, FitOutcome]]] = {}
     for t, o in zip(tasks, outcomes):
-        by_key.setdefault((t.loss_label, t.family), []).append((t, o))
+        by_key.setdefault((t.loss_label, t.family), {})[t.split] = (t, o)
     results = []
     y_test = shared.y[test_rows]
-    for (label, family), pairs in by_key.items():
-        folds = [o for t, o in pairs if t.split != "final"]
-        final_task, final = next((t, o) for t, o in pairs if t.split == "final")
+    n_cv = spec.selection.cv_folds * spec.selection.repeats
+    for (label, family), splits in by_key.items():
+        folds = [splits[f"fold{k}"][1] for k in range(n_cv)]
+        final_task, final = splits["final"]
         cv_errors = np.vstack([o.eval_loss for o in folds])
         cv_mean, cv_se = cv_summary(cv_errors)
-        idx = choose_lambda_index(cv_errors, spec.selection.rule)
+        idx, how = _choose(spec, family, final_task.loss_name, cv_errors, final)
         loss = get_loss(final_task.loss_name, **dict(final_task.loss_params))
         pred = final.eval_pred[idx]
         metrics, intervals = test_metrics(shared.task, y_test, pred, loss, rng)
@@ -175,8 +224,44 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng) -> list[FamilyResult
             effective_df=float(final.effective_df[idx]), fit_seconds=final.fit_seconds,
             cv_seconds=float(sum(o.fit_seconds for o in folds)),
             coefficients=None if final.coef is None else final.coef[idx],
-            intercept=float(final.intercept[idx])))
+            intercept=float(final.intercept[idx]), selected_by=how,
+            nested=_nested_estimate(spec, {k: o for k, (_, o) in splits.items()}) if spec.selection.nested else None,
+            resamples=tuple(o for k, (_, o) in sorted(splits.items()) if k.startswith("resample"))))
     return results
+
+
+def compare_on_folds(spec, results, fold_sizes) -> dict:
+    """Per loss: corrected resampled t-test (Nadeau & Bengio 2003) of the two families' CV losses at
+    their chosen λ, fold by fold on identical folds."""
+    out = {}
+    by_loss: dict[str, dict] = {}
+    for r in results:
+        by_loss.setdefault(r.loss_label, {})[r.family] = r
+    n_tr, n_te = fold_sizes
+    for label, d in by_loss.items():
+        if "l1" in d and "l2" in d:
+            diffs = d["l1"].cv_errors[:, d["l1"].chosen_index] - d["l2"].cv_errors[:, d["l2"].chosen_index]
+            try:
+                out[label] = corrected_resampled_ttest(diffs, n_tr, n_te, level=0.9)
+            except ValueError:
+                continue
+    return out
+
+
+def stability_summaries(spec, results, feature_names, shared, train_rows) -> dict:
+    out = {}
+    Z_train = None
+    by_loss: dict[str, dict] = {}
+    for r in results:
+        if r.resamples:
+            by_loss.setdefault(r.loss_label, {})[r.family] = r
+    for label, d in by_loss.items():
+        if Z_train is None:
+            Z_train = build_features(shared, train_rows).transform(shared.X[train_rows])
+        out[label] = summarise_families(spec, {f: list(r.resamples) for f, r in d.items()},
+                                        {f: r.lambdas for f, r in d.items()},
+                                        {f: r.chosen_index for f, r in d.items()}, feature_names, Z_train)
+    return out
 
 
 def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool = True) -> ExperimentResult:
@@ -188,15 +273,24 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
                     feature_seed=seeds.int_seed(spec.seed, "features"), input_names=dataset.feature_names,
                     l1_options={"tol": spec.families.l1.tol, "solver": spec.families.l1.solver},
                     l2_kernel=spec.families.l2.kernel)
-    folds = make_folds(len(train_rows), spec.selection.cv_folds, seeds.generator(spec.seed, "folds"),
-                       y=dataset.y[train_rows], stratify=dataset.task == "classification")
-    tasks = plan_tasks(spec, shared, train_rows, test_rows, folds)
-    outcomes = run_tasks(run_fit, tasks, backend=spec.execution.backend, n_jobs=spec.execution.n_jobs,
-                         progress="fits" if progress else None,
-                         scheduler_address=spec.execution.scheduler_address, shared=shared)
+    splits = plan_splits(spec, dataset, train_rows, test_rows)
+    resamples = resample_splits(spec, train_rows, test_rows, dataset.y[train_rows], dataset.task) \
+        if stability_losses(spec) else []
+    tasks = plan_tasks(spec, shared, train_rows, test_rows, splits, resamples)
+    data_hash = dataset.content_hash()
+    outcomes, reused = run_cached(run_tasks, run_fit, tasks, task_keys(spec, data_hash, tasks),
+                                  cache_for(spec, FitOutcome), backend=spec.execution.backend,
+                                  n_jobs=spec.execution.n_jobs, progress="fits" if progress else None,
+                                  scheduler_address=spec.execution.scheduler_address, shared=shared)
+    notes = dataset.notes + ((f"reused {reused} of {len(tasks)} finished fit task(s) from the cache "
+                              f"'{spec.cache.directory}' (refits avoided)",) if reused else ())
     results = assemble(spec, shared, tasks, outcomes, test_rows, seeds.generator(spec.seed, "bootstrap"))
     feature_names = next(o.feature_names for o in outcomes)
-    return ExperimentResult(spec=spec, dataset=dataset, data_hash=dataset.content_hash(), train_rows=train_rows,
+    fold0 = splits[0]
+    comparisons = compare_on_folds(spec, results, (len(fold0[1]), len(fold0[2])))
+    stability = stability_summaries(spec, results, feature_names, shared, train_rows)
+    return ExperimentResult(spec=spec, dataset=dataset, data_hash=data_hash, train_rows=train_rows,
                             test_rows=test_rows, y_test=dataset.y[test_rows], feature_names=feature_names,
                             results=tuple(results), seconds=time.perf_counter() - start,
-                            notes=dataset.notes)
+                            notes=notes, tasks_reused=reused, tasks_total=len(tasks),
+                            comparisons=comparisons, stability=stability)

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import numpy as np
 
-STREAMS = {"split": 1, "folds": 2, "features": 3, "bootstrap": 4, "resampling": 5, "tasks": 6}
+STREAMS = {"split": 1, "folds": 2, "features": 3, "bootstrap": 4, "resampling": 5, "tasks": 6, "nested": 7}
 
 
 def seed_sequence(seed: int, stream: str) -> np.random.SeedSequence:

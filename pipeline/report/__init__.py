@@ -51,13 +51,73 @@ def _loss_blocks(p) -> list[dict]:
             "top_features": [(n, _g(c)) for n, c in l1["top_features"]] if l1 else [],
             "truth": None if not (l1 and l1["truth"]) else {k: (_g(v, 3) if isinstance(v, float) or v is None else v)
                                                           for k, v in l1["truth"].items()},
-            "problems": "; ".join(x for x in (_problems(f) for f in fams) if x)})
+            "problems": "; ".join(x for x in (_problems(f) for f in fams) if x),
+            "truth_rows": [_truth_row(f) for f in fams if f.get("truth")],
+            "certificates": [_certificate_row(f) for f in fams if f.get("certificate")],
+            "stability": _stability_block(p.get("stability", {}).get(label)),
+            "df_kinds": [(f["title"], f["df_kind"]) for f in fams if f.get("df_kind")]})
     return blocks
+
+
+def _truth_row(f) -> dict:
+    t, err = f["truth"], f["truth"].get("coef_error") or {}
+    return {"family": f["title"], "true": t["true"], "selected": t["selected"] if f["family"] == "l1" else "all",
+            "precision": _g(t["precision"], 3) if f["family"] == "l1" else "—",
+            "recall": _g(t["recall"], 3) if f["family"] == "l1" else "—",
+            "f1": _g(t["f1"], 3) if f["family"] == "l1" else "—",
+            "l2_error": _g(err.get("l2")), "relative": _g(err.get("relative_l2"), 3)}
+
+
+def _certificate_row(f) -> dict:
+    cert = [c for c in f["certificate"] if c is not None]
+    return {"family": f["title"], "kind": f["certificate_kind"].replace("_", " "), "solver": f["solver"],
+            "worst": _g(max(cert) if cert else None, 3), "chosen": _g(f["certificate"][f["chosen_index"]], 3),
+            "ok": f"{sum(f['converged'])} of {len(f['converged'])}"}
+
+
+def _stability_block(stab) -> dict | None:
+    if not stab:
+        return None
+    rows = []
+    for fam, title in (("l1", "sparse (L1): support"), ("l2", "ridge-type (L2): top-k by |w|")):
+        s = (stab.get("families") or {}).get(fam)
+        if s:
+            rows.append({"family": title, "index": f"{_g(s['stability'], 3)} [{_g(s['lower'], 3)}, {_g(s['upper'], 3)}]",
+                         "size": _g(s["mean_set_size"], 3), "signs": _g(s["sign_agreement"], 3),
+                         "instability": _g(s["prediction_instability"], 3)})
+    ec = stab.get("error_control") or {}
+    return {"rows": rows, "scheme": stab["scheme"].replace("_", " "), "n": stab["n_resamples"],
+            "fraction": stab["fraction"], "threshold": stab["threshold"],
+            "paths_plot": plots.stability_paths(stab) if stab.get("l1_paths") else None,
+            "freq_plot": plots.selection_frequency(stab) if stab.get("frequency") else None,
+            "target": stab["target_false_selections"], "ec": ec and {
+                "range": "none of the grid" if ec.get("lambda_min") is None else
+                f"{_g(ec['lambda_min'])} … {_g(ec['lambda_max'])}",
+                "q": _g(ec.get("q"), 3), "bound": _g(ec.get("bound"), 3), "stable": ", ".join(ec.get("stable_set") or [])
+                or "none"},
+            "stable_at_chosen": ", ".join(stab.get("stable_at_chosen") or []) or "none",
+            "groups": [{"features": ", ".join(g["features"]), "freqs": ", ".join(_g(x, 2) for x in g["frequencies"]),
+                        "any": _g(g["any_member_frequency"], 2), "together": _g(g["mean_members_selected"], 2)}
+                       for g in stab.get("groups") or []]}
+
+
+def _fold_test(t) -> str:
+    if not t:
+        return "—"
+    return (f"{_g(t['mean'])} [{_g(t['low'])}, {_g(t['high'])}], p = {_g(t['p_value'], 2)} "
+            f"({t['dof'] + 1} folds)")
 
 
 def render(p: dict, run_id: str) -> str:
     primary = p["primary"]
+    stab_index = {}
+    for label, st in (p.get("stability") or {}).items():
+        for fam, s in (st.get("families") or {}).items():
+            stab_index[(label, fam)] = f"{_g(s['stability'], 3)} [{_g(s['lower'], 3)}, {_g(s['upper'], 3)}]"
     summary = [{"loss": f["loss_label"], "family": f["title"], "lam": _g(f["lambda_chosen"]),
+                "stability": stab_index.get((f["loss_label"], f["family"]), "not resampled"),
+                "selected_by": f.get("selected_by", ""),
+                "nested": "—" if not f.get("nested") else f"{_g(f['nested']['mean'])} ± {_g(f['nested']['se'], 2)}",
                 "primary": _with_interval(f, primary),
                 "nnz": f["n_nonzero"] if f["n_nonzero"] is not None else f"all {f['n_features']}",
                 "df": _g(f["effective_df"], 3), "fit": f"{f['fit_seconds']:.2f}", "cv": f"{f['cv_seconds']:.2f}",
@@ -72,7 +132,7 @@ def render(p: dict, run_id: str) -> str:
                          "l1": _with_interval(fams["l1"], primary) if "l1" in fams else "not fitted",
                          "l2": _with_interval(fams["l2"], primary) if "l2" in fams else "not fitted",
                          "diff": "—" if v["diff"] is None else f"{_g(v['diff'])} [{_g(v['low'])}, {_g(v['high'])}]",
-                         "sentence": v["sentence"]})
+                         "sentence": v["sentence"], "fold_test": _fold_test(p.get("fold_tests", {}).get(v["loss"]))})
     data_rows = [(k.replace("_", " "), _g(v) if isinstance(v, float) else v) for k, v in p["dataset"].items()]
     data_rows += [("features built", f"{p['n_features_built']} (maps: {', '.join(p['feature_maps'])})"),
                   ("training rows", p["n_train"]), ("test rows", p["n_test"])]

@@ -10,7 +10,7 @@ import math
 
 import numpy as np
 
-from ..evaluate import metric_function, paired_bootstrap_diff, support_recovery, verdict
+from ..evaluate import coefficient_error, metric_function, paired_bootstrap_diff, support_recovery, verdict
 from ..seeds import generator
 
 PAYLOAD_VERSION = 1
@@ -25,6 +25,23 @@ def _num(x):
         return None
     x = float(x)
     return x if math.isfinite(x) else None
+
+
+def _clean(obj):
+    """Recursively JSON-safe: arrays to lists, NaN/inf to None."""
+    if isinstance(obj, dict):
+        return {str(k): _clean(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_clean(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return _clean(obj.tolist())
+    if isinstance(obj, (bool, np.bool_)):
+        return bool(obj)
+    if isinstance(obj, (int, np.integer)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        return _num(obj)
+    return obj
 
 
 def _nums(a) -> list:
@@ -46,8 +63,14 @@ def _truth(result, r) -> dict | None:
     raw = {name: j for j, name in enumerate(result.dataset.feature_names)}
     selected = [raw[name] for name, c in zip(result.feature_names, r.coefficients) if c != 0 and name in raw]
     rec = support_recovery(selected, truth.support, result.dataset.n_features)
-    return {"true": len(truth.support), "selected": len(selected),
-            **{k: _num(rec[k]) for k in ("precision", "recall", "f1")}}
+    out = {"true": len(truth.support), "selected": len(selected),
+           **{k: _num(rec[k]) for k in ("precision", "recall", "f1")}, "coef_error": None}
+    names = list(result.feature_names)
+    if truth.coefficients is not None and names[:len(raw)] == list(result.dataset.feature_names):
+        # Truth is linear in the original columns; compare on them (identity map first in the features).
+        err = coefficient_error(r.coefficients[:len(raw)], truth.coefficients)
+        out["coef_error"] = {k: _num(v) for k, v in err.items()}
+    return out
 
 
 def _family(result, r) -> dict:
@@ -62,7 +85,8 @@ def _family(result, r) -> dict:
         "status": list(r.path.status), "solver": r.path.solver,
         "certificate": None if r.path.certificate is None else _nums(r.path.certificate),
         "certificate_kind": r.path.certificate_kind, "n_features": len(result.feature_names),
-        "coef_path": None, "top_features": [], "truth": None,
+        "coef_path": None, "top_features": [], "truth": None, "selected_by": r.selected_by,
+        "nested": _clean(r.nested), "df_kind": r.path.df_kind,
     }
     if r.family == "l1" and r.path.coef is not None:
         out["coef_path"] = _path_columns(r.path.coef, result.feature_names)
@@ -70,8 +94,7 @@ def _family(result, r) -> dict:
         order = np.argsort(-np.abs(r.coefficients), kind="stable")[:15]
         out["top_features"] = [[str(result.feature_names[j]), float(r.coefficients[j])] for j in order
                                if r.coefficients[j] != 0]
-        if r.family == "l1":
-            out["truth"] = _truth(result, r)
+        out["truth"] = _truth(result, r)
     return out
 
 
@@ -111,5 +134,7 @@ def build_payload(result) -> dict:
         "feature_maps": [m.kind for m in spec.features.maps], "n_features_built": len(result.feature_names),
         "families": [_family(result, r) for r in result.results],
         "verdicts": _verdicts(result, primary),
+        "fold_tests": _clean(result.comparisons),
+        "stability": _clean(result.stability),
         "versions": package_versions(),
     }

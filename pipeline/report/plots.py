@@ -83,3 +83,48 @@ def coefficient_path(f, top: int = 12) -> str:
     ax.legend(fontsize=7, loc="center left", bbox_to_anchor=(1.01, 0.5), frameon=False)
     fig.tight_layout()
     return _encode(fig)
+
+
+def stability_paths(stab: dict, top: int = 12) -> str:
+    """Selection probability of the most often selected features along λ (sparse family)."""
+    paths = stab["l1_paths"]
+    lambdas = _arr(paths["lambdas"])
+    fig, ax = plt.subplots(figsize=(6.8, 3.6))
+    palette = EXTRA + [COLOURS["l1"], COLOURS["l2"]]
+    styles = ["-", "--", ":", "-."]
+    for i, (name, probs) in enumerate(zip(paths["names"], paths["probabilities"])):
+        kw = dict(color=palette[i % len(palette)], ls=styles[(i // len(palette)) % 4], lw=1.3,
+                  label=name[:40]) if i < top else dict(color="0.75", lw=0.6)
+        ax.plot(lambdas, _arr(probs), **kw)
+    ax.axhline(stab["threshold"], color="0.2", ls=":", lw=1.0)
+    ax.set_xscale("log")
+    ax.set_ylim(-0.02, 1.02)
+    ax.set_xlabel("λ (log scale)")
+    ax.set_ylabel("selection probability")
+    ax.set_title(f"Stability paths over {stab['n_resamples']} resamples (dotted: threshold)", fontsize=10)
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize=7, loc="center left", bbox_to_anchor=(1.01, 0.5), frameon=False)
+    fig.tight_layout()
+    return _encode(fig)
+
+
+def selection_frequency(stab: dict) -> str:
+    """How often each top feature is selected at the chosen λ: L1 support vs the L2 top-k set."""
+    freq = stab["frequency"]
+    names = freq["names"][::-1]
+    y = np.arange(len(names))
+    fig, ax = plt.subplots(figsize=(6.8, 0.28 * len(names) + 1.2))
+    h = 0.4 if "l2" in freq else 0.8
+    ax.barh(y + (h / 2 if "l2" in freq else 0), _arr(freq["l1"][::-1]), height=h, color=COLOURS["l1"],
+            label="sparse (L1): in the support")
+    if "l2" in freq:
+        ax.barh(y - h / 2, _arr(freq["l2"][::-1]), height=h, color=COLOURS["l2"], hatch="//",
+                label="ridge-type (L2): among the k largest |w|")
+    ax.set_yticks(y, [n[:40] for n in names], fontsize=7)
+    ax.set_xlim(0, 1)
+    ax.set_xlabel("share of resamples")
+    ax.set_title("Selection frequency at the chosen λ", fontsize=10)
+    ax.legend(fontsize=7, loc="lower right")
+    ax.grid(alpha=0.3, axis="x")
+    fig.tight_layout()
+    return _encode(fig)

@@ -1,0 +1,164 @@
+"""Content-addressed cache of finished fit tasks, so an interrupted run loses no finished work.
+
+An entry's key is a SHA-256 over everything that decides the task's result: the config
+sections that reach the fit (data, split, features, the task's family settings, CV folds,
+seed), the data hash, the task id and its row/λ arrays, and the package version. The value
+is one ``.npz`` file holding the result's arrays plus its other fields as JSON text; it is
+read back with ``allow_pickle=False``, so no cache file is ever unpickled. Each entry is
+written to a temporary name and renamed into place, so a kill mid-write leaves no torn entry.
+"""
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import os
+import pathlib
+import tempfile
+from importlib import metadata
+from typing import Any, Callable
+
+import numpy as np
+
+CACHE_FORMAT = 1
+_META = "__meta__"
+
+
+def package_version() -> str:
+    """Release number plus a digest of the package's source, so changed code never reuses old fits."""
+    try:
+        release = metadata.version("penduel")
+    except metadata.PackageNotFoundError:
+        release = "unknown"
+    h = hashlib.sha256()
+    root = pathlib.Path(__file__).resolve().parent
+    for path in sorted(root.rglob("*.py")):
+        h.update(path.relative_to(root).as_posix().encode())
+        h.update(path.read_bytes())
+    return f"{release}+{h.hexdigest()[:12]}"
+
+
+def _digest_arrays(h, *arrays) -> None:
+    for a in arrays:
+        a = np.ascontiguousarray(a)
+        h.update(f"{a.dtype.str}{a.shape}".encode())
+        h.update(a.tobytes())
+
+
+def run_prefix(spec, data_hash: str) -> dict[str, str]:
+    """Per-family key prefixes: settings shared by every task of one family in this run."""
+    resolved = spec.resolved()
+    common = {"format": CACHE_FORMAT, "version": package_version(), "data_hash": data_hash,
+              "seed": resolved["seed"], "data": resolved["data"], "split": resolved["split"],
+              "features": resolved["features"], "cv_folds": resolved["selection"]["cv_folds"]}
+    return {family: json.dumps({**common, "family": resolved["families"][family]}, sort_keys=True)
+            for family in ("l1", "l2")}
+
+
+def task_key(prefix: str, task) -> str:
+    h = hashlib.sha256(prefix.encode())
+    h.update(json.dumps([task.task_id, task.loss_name, list(task.loss_params)], sort_keys=True).encode())
+    _digest_arrays(h, task.train_idx, task.eval_idx, task.lambdas)
+    return h.hexdigest()
+
+
+# ---------------------------------------------------------------- encoding without pickle
+def encode(value) -> dict[str, np.ndarray]:
+    """A dataclass of arrays, strings, numbers, tuples and None as a dict of plain arrays."""
+    arrays, meta = {}, {}
+    for f in dataclasses.fields(value):
+        v = getattr(value, f.name)
+        if isinstance(v, np.ndarray):
+            if v.dtype == object:
+                raise TypeError(f"field {f.name} is an object array; it cannot be stored without pickle")
+            arrays[f.name] = v
+        elif isinstance(v, tuple):
+            meta[f.name] = {"tuple": list(v)}
+        else:
+            meta[f.name] = {"plain": v}
+    arrays[_META] = np.frombuffer(json.dumps(meta).encode(), dtype=np.uint8)
+    return arrays
+
+
+def decode(cls, arrays) -> Any:
+    meta = json.loads(bytes(arrays[_META]).decode())
+    values = {}
+    for f in dataclasses.fields(cls):
+        if f.name in arrays:
+            values[f.name] = arrays[f.name]
+        else:
+            m = meta[f.name]
+            values[f.name] = tuple(m["tuple"]) if "tuple" in m else m["plain"]
+    return cls(**values)
+
+
+class TaskCache:
+    """Finished task results under `directory`, one file per key."""
+
+    def __init__(self, directory: str | os.PathLike, result_type: type):
+        self.directory = pathlib.Path(directory)
+        self.result_type = result_type
+
+    def path(self, key: str) -> pathlib.Path:
+        return self.directory / key[:2] / f"{key}.npz"
+
+    def get(self, key: str):
+        path = self.path(key)
+        try:
+            with np.load(path, allow_pickle=False) as data:
+                return decode(self.result_type, {k: data[k] for k in data.files})
+        except FileNotFoundError:
+            return None
+        except (OSError, ValueError, KeyError, TypeError, json.JSONDecodeError):
+            path.unlink(missing_ok=True)   # unreadable entry: drop it and fit again
+            return None
+
+    def put(self, key: str, value) -> None:
+        path = self.path(key)
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".tmp-", suffix=".npz")
+        try:
+            with os.fdopen(fd, "wb") as fh:
+                np.savez(fh, **encode(value))
+            os.replace(tmp, path)
+        except BaseException:
+            pathlib.Path(tmp).unlink(missing_ok=True)
+            raise
+
+
+@dataclasses.dataclass(frozen=True)
+class StoringFit:
+    """fn(task, shared) that also stores its result as soon as it is finished (picklable for workers)."""
+    fn: Callable
+    directory: str
+    result_type: type
+    keys: dict                      # task_id -> key
+
+    def __call__(self, task, shared):
+        result = self.fn(task, shared)
+        TaskCache(self.directory, self.result_type).put(self.keys[task.task_id], result)
+        return result
+
+
+def task_keys(spec, data_hash: str, tasks) -> list[str]:
+    prefixes = run_prefix(spec, data_hash)
+    return [task_key(prefixes[t.family], t) for t in tasks]
+
+
+def cache_for(spec, result_type: type) -> TaskCache | None:
+    return TaskCache(spec.cache.directory, result_type) if spec.cache.enabled else None
+
+
+def run_cached(run_tasks: Callable, fn: Callable, tasks: list, keys: list[str], cache: TaskCache | None,
+               **options) -> tuple[list, int]:
+    """Results of fn over tasks in task order, reusing cached ones; also the number of fits avoided."""
+    if cache is None:
+        return run_tasks(fn, tasks, **options), 0
+    found = [cache.get(k) for k in keys]
+    todo = [i for i, r in enumerate(found) if r is None]
+    storing = StoringFit(fn, str(cache.directory), cache.result_type,
+                         {tasks[i].task_id: keys[i] for i in todo})
+    fresh = run_tasks(storing, [tasks[i] for i in todo], **options) if todo else []
+    for i, r in zip(todo, fresh):
+        found[i] = r
+    return found, len(tasks) - len(todo)

@@ -1,0 +1,95 @@
+"""The resampling stage: both families refitted on identical resamples of the training rows.
+
+Each resample is one more fit task per (loss, family), run and cached like the CV fits; its
+held-out rows are the test rows (never in any resample), so prediction instability is measured
+on rows no fit saw. The summary reads the fits at each family's chosen λ.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from . import seeds
+from .resampling import resample_indices
+from .stability import (compare_families, correlated_groups_sharing, lambda_range_for_error_bound,
+                        selection_probabilities)
+
+TOP_FEATURES = 20
+
+
+def stability_losses(spec) -> tuple[str, ...]:
+    if not spec.stability.enabled:
+        return ()
+    labels = [loss.label for loss in spec.losses]
+    wanted = spec.stability.losses or (labels[0],)
+    unknown = [w for w in wanted if w not in labels]
+    if unknown:
+        from .data import DataError
+        raise DataError(f"stability.losses: {unknown} not among the experiment's losses ({labels}); "
+                        f"use the labels shown there (e.g. 'huber_delta1').")
+    return tuple(wanted)
+
+
+def resample_splits(spec, train_rows: np.ndarray, test_rows: np.ndarray, y_train, task: str) -> list:
+    st = spec.stability
+    strata = y_train if task == "classification" else None
+    rows = resample_indices(len(train_rows), st.scheme, st.n_resamples, st.fraction,
+                            rng=seeds.generator(spec.seed, "resampling"), y=strata)
+    return [(f"resample{m}", train_rows[r], test_rows) for m, r in enumerate(rows)]
+
+
+def _names(feature_names, idx):
+    return [str(feature_names[j]) for j in idx]
+
+
+def summarise_families(spec, outcomes_by_family: dict, lambdas_by_family: dict, chosen: dict,
+                       feature_names, Z_train: np.ndarray | None) -> dict:
+    st = spec.stability
+    out = {"scheme": st.scheme, "n_resamples": st.n_resamples, "fraction": st.fraction,
+           "threshold": st.threshold, "target_false_selections": st.target_false_selections}
+    l1, l2 = outcomes_by_family.get("l1"), outcomes_by_family.get("l2")
+    have_l1 = l1 is not None and l1[0].coef is not None
+    have_l2 = l2 is not None and l2[0].coef is not None
+    if have_l1:
+        paths = np.stack([o.coef for o in l1])                    # (M, L, p)
+        probs = selection_probabilities(paths)                    # (L, p)
+        idx = chosen["l1"]
+        top = np.argsort(-probs.max(0), kind="stable")[:TOP_FEATURES]
+        control = lambda_range_for_error_bound(paths, lambdas_by_family["l1"], st.threshold,
+                                               st.target_false_selections)
+        at_chosen = probs[idx]
+        freq_order = np.argsort(-at_chosen, kind="stable")[:TOP_FEATURES]
+        out["l1_paths"] = {"lambdas": [float(x) for x in lambdas_by_family["l1"]],
+                           "names": _names(feature_names, top), "probabilities": probs[:, top].T.tolist()}
+        out["frequency"] = {"names": _names(feature_names, freq_order), "l1": at_chosen[freq_order].tolist()}
+        out["error_control"] = {
+            "lambda_min": control["lambda_min"], "lambda_max": control["lambda_max"], "q": control["q"],
+            "bound": control["bound"], "q_allowed": control["q_allowed"],
+            "stable_set": _names(feature_names, control["stable_set"])}
+        out["stable_at_chosen"] = _names(feature_names, np.flatnonzero(at_chosen >= st.threshold))
+        if Z_train is not None:
+            sel = np.stack([o.coef[idx] for o in l1]) != 0
+            groups = correlated_groups_sharing(sel, Z_train, min_abs_corr=0.7, min_frequency=0.1)
+            out["groups"] = [{"features": _names(feature_names, g["features"]),
+                              "frequencies": [float(f) for f in g["frequencies"]],
+                              "any_member_frequency": g["any_member_frequency"],
+                              "mean_members_selected": g["mean_members_selected"]} for g in groups[:8]]
+    if have_l1 and have_l2:
+        l1_coefs = np.stack([o.coef[chosen["l1"]] for o in l1])
+        l2_coefs = np.stack([o.coef[chosen["l2"]] for o in l2])
+        l1_pred = np.stack([o.eval_pred[chosen["l1"]] for o in l1])
+        l2_pred = np.stack([o.eval_pred[chosen["l2"]] for o in l2])
+        both = compare_families(l1_coefs, l2_coefs, l1_pred, l2_pred)
+        out["families"] = {fam: _family_row(both[fam]) for fam in ("l1", "l2")}
+        if "frequency" in out:
+            l2_freq = both["l2"]["selection_frequency"]
+            names = out["frequency"]["names"]
+            lookup = {str(n): j for j, n in enumerate(feature_names)}
+            out["frequency"]["l2"] = [float(l2_freq[lookup[n]]) for n in names]
+    return out
+
+
+def _family_row(summary: dict) -> dict:
+    idx = summary["index"]
+    return {"stability": idx["stability"], "lower": idx["lower"], "upper": idx["upper"], "level": idx["level"],
+            "mean_set_size": summary["mean_set_size"], "sign_agreement": summary["sign_agreement"],
+            "prediction_instability": summary["prediction_instability"]}
