@@ -231,23 +231,66 @@ def _resampled_values(metrics: list[Metric], y, preds, n_boot, rng) -> np.ndarra
     return np.concatenate(blocks, axis=-1)
 
 
-def _percentile_interval(values: np.ndarray, level: float, what: str) -> tuple[float, float]:
-    # Percentile interval (Efron & Tibshirani 1993, An Introduction to the Bootstrap, §13.3).
+def _jackknife_values(metrics: list[Metric], y, preds) -> np.ndarray:
+    """(n_metrics, n_preds, n) values with each row left out in turn (blocked like the
+    bootstrap, since the leave-one-out index matrix is n × (n − 1))."""
+    n = len(y)
+    base = np.arange(n - 1)
+    step = max(1, _BLOCK_CELLS // max(n, 1))
+    blocks = []
+    for start in range(0, n, step):
+        left_out = np.arange(start, min(start + step, n))
+        idx = base[None, :] + (base[None, :] >= left_out[:, None])
+        blocks.append(np.array([[m.on_resamples(y, pred, idx) for pred in preds] for m in metrics]))
+    return np.concatenate(blocks, axis=-1)
+
+
+INTERVAL_METHODS = ("percentile", "bca")
+
+
+def _finite(values: np.ndarray, what: str) -> np.ndarray:
     finite = values[np.isfinite(values)]
     if finite.size < values.size:
         warnings.warn(f"{values.size - finite.size} of {values.size} bootstrap resamples left "
-                      f"{what} undefined and were dropped", RuntimeWarning, stacklevel=3)
+                      f"{what} undefined and were dropped", RuntimeWarning, stacklevel=4)
+    return finite
+
+
+def _interval(values, level, what, method="percentile", estimate=None, jack=None) -> tuple[float, float]:
+    """Percentile interval (Efron & Tibshirani 1993, An Introduction to the Bootstrap, §13.3)
+    or bias-corrected and accelerated interval (same book, §14.3, eqs. 14.9-14.15)."""
+    finite = _finite(values, what)
     if finite.size == 0:
         return math.nan, math.nan
-    low, high = np.quantile(finite, [(1 - level) / 2, (1 + level) / 2])
+    alpha = np.array([(1 - level) / 2, (1 + level) / 2])
+    if method == "bca" and np.ptp(finite) > 0:
+        if not np.all(np.isfinite(jack)):
+            warnings.warn(f"leaving a row out left {what} undefined; no BCa interval", RuntimeWarning,
+                          stacklevel=3)
+            return math.nan, math.nan
+        # ties at the estimate count one half, so discrete scores (accuracy) stay usable
+        share = (np.sum(finite < estimate) + 0.5 * np.sum(finite == estimate)) / finite.size
+        if not 0 < share < 1:
+            warnings.warn(f"the {what} estimate lies outside its bootstrap distribution; no BCa "
+                          "interval", RuntimeWarning, stacklevel=3)
+            return math.nan, math.nan
+        z0 = stats.norm.ppf(share)
+        dev = jack.mean() - jack
+        denom = 6 * np.sum(dev**2) ** 1.5
+        accel = np.sum(dev**3) / denom if denom > 0 else 0.0
+        z = stats.norm.ppf(alpha)
+        alpha = stats.norm.cdf(z0 + (z0 + z) / (1 - accel * (z0 + z)))
+    low, high = np.quantile(finite, alpha)
     return float(low), float(high)
 
 
-def _check_inputs(y, preds, level, n_boot):
+def _check_inputs(y, preds, level, n_boot, method="percentile"):
     if not 0 < level < 1:
         raise ValueError(f"level must be strictly between 0 and 1; got {level}")
     if n_boot < 1:
         raise ValueError(f"n_boot must be positive; got {n_boot}")
+    if method not in INTERVAL_METHODS:
+        raise ValueError(f"unknown interval method {method!r}; allowed: {', '.join(INTERVAL_METHODS)}")
     y = np.asarray(y)
     preds = [np.asarray(p) for p in preds]
     for p in preds:
@@ -256,34 +299,41 @@ def _check_inputs(y, preds, level, n_boot):
     return y, preds
 
 
+def _bootstrap(metrics, y, preds, n_boot, level, rng, method):
+    """Checked inputs, resampled values and (for BCa) leave-one-out values."""
+    metrics = [_as_metric(m) for m in metrics]
+    y, preds = _check_inputs(y, preds, level, n_boot, method)
+    values = _resampled_values(metrics, y, preds, n_boot, rng)
+    jack = _jackknife_values(metrics, y, preds) if method == "bca" else np.full(values.shape[:2] + (0,), 0.0)
+    return metrics, y, preds, values, jack
+
+
 def bootstrap_ci(y, pred, metric, n_boot: int = 2000, level: float = 0.9, *,
-                 rng: np.random.Generator) -> tuple[float, float, float]:
-    """(estimate on all rows, low, high) of a percentile bootstrap interval over test rows."""
-    metric = _as_metric(metric)
-    y, (pred,) = _check_inputs(y, [pred], level, n_boot)
-    values = _resampled_values([metric], y, [pred], n_boot, rng)[0, 0]
-    return (metric(y, pred), *_percentile_interval(values, level, metric.name))
+                 rng: np.random.Generator, method: str = "percentile") -> tuple[float, float, float]:
+    """(estimate on all rows, low, high) of a bootstrap interval over test rows;
+    `method` "percentile" (default) or "bca"."""
+    return bootstrap_metrics(y, pred, [metric], n_boot, level, rng=rng, method=method).popitem()[1]
 
 
 def bootstrap_metrics(y, pred, metrics, n_boot: int = 2000, level: float = 0.9, *,
-                      rng: np.random.Generator) -> dict[str, tuple[float, float, float]]:
+                      rng: np.random.Generator, method: str = "percentile") -> dict[str, tuple[float, float, float]]:
     """bootstrap_ci for several metrics at once, all on the same resampled rows
     (one index matrix), keyed by metric name."""
-    metrics = [_as_metric(m) for m in metrics]
-    y, (pred,) = _check_inputs(y, [pred], level, n_boot)
-    values = _resampled_values(metrics, y, [pred], n_boot, rng)
-    return {m.name: (m(y, pred), *_percentile_interval(v[0], level, m.name)) for m, v in zip(metrics, values)}
+    metrics, y, (pred,), values, jack = _bootstrap(metrics, y, [pred], n_boot, level, rng, method)
+    out = {}
+    for m, v, j in zip(metrics, values, jack):
+        est = m(y, pred)
+        out[m.name] = (est, *_interval(v[0], level, m.name, method, est, j[0]))
+    return out
 
 
 def paired_bootstrap_diff(y, pred_a, pred_b, metric, n_boot: int = 2000, level: float = 0.9, *,
-                          rng: np.random.Generator) -> tuple[float, float, float]:
-    """metric(a) − metric(b) on all rows, with a percentile interval from resampling the
-    SAME rows for both, so the noise the two share cancels."""
-    metric = _as_metric(metric)
-    y, (pred_a, pred_b) = _check_inputs(y, [pred_a, pred_b], level, n_boot)
-    va, vb = _resampled_values([metric], y, [pred_a, pred_b], n_boot, rng)[0]
-    diff = metric(y, pred_a) - metric(y, pred_b)
-    return (diff, *_percentile_interval(va - vb, level, f"the {metric.name} difference"))
+                          rng: np.random.Generator, method: str = "percentile") -> tuple[float, float, float]:
+    """metric(a) − metric(b) on all rows, with an interval from resampling the SAME rows
+    for both, so the noise the two share cancels."""
+    row = compare_pair(y, pred_a, pred_b, metric, name_a="a", name_b="b", rng=rng, n_boot=n_boot,
+                       level=level, method=method)
+    return row["diff"], row["diff_low"], row["diff_high"]
 
 
 # ---------------------------------------------------------------- comparisons
@@ -343,24 +393,24 @@ def verdict(name_a: str, name_b: str, diff: float, low: float, high: float, metr
             f"({direction} is better; {detail}, which excludes 0).")
 
 
-def compare_pair(y, pred_a, pred_b, metric, *, name_a: str, name_b: str,
-                 rng: np.random.Generator, n_boot: int = 2000, level: float = 0.9) -> dict:
+def compare_pair(y, pred_a, pred_b, metric, *, name_a: str, name_b: str, rng: np.random.Generator,
+                 n_boot: int = 2000, level: float = 0.9, method: str = "percentile") -> dict:
     """One verdict-table row: each model's score with its interval and the paired
-    difference, all from one shared set of resampled test rows."""
-    metric = _as_metric(metric)
-    y, (pred_a, pred_b) = _check_inputs(y, [pred_a, pred_b], level, n_boot)
-    va, vb = _resampled_values([metric], y, [pred_a, pred_b], n_boot, rng)[0]
+    difference a − b, all from one shared set of resampled test rows."""
+    (metric,), y, (pred_a, pred_b), values, jack = _bootstrap([metric], y, [pred_a, pred_b], n_boot,
+                                                              level, rng, method)
+    (va, vb), (ja, jb) = values[0], jack[0]
     est_a, est_b = metric(y, pred_a), metric(y, pred_b)
-    low, high = _percentile_interval(va - vb, level, f"the {metric.name} difference")
+    diff = est_a - est_b
+    low, high = _interval(va - vb, level, f"the {metric.name} difference", method, diff, ja - jb)
     win = _winner(low, high, metric.lower_is_better)
     return {
-        "metric": metric.name, "lower_is_better": metric.lower_is_better, "level": level,
-        "name_a": name_a, "estimate_a": est_a, "interval_a": _percentile_interval(va, level, metric.name),
-        "name_b": name_b, "estimate_b": est_b, "interval_b": _percentile_interval(vb, level, metric.name),
-        "diff": est_a - est_b, "diff_low": low, "diff_high": high,
+        "metric": metric.name, "lower_is_better": metric.lower_is_better, "level": level, "method": method,
+        "name_a": name_a, "estimate_a": est_a, "interval_a": _interval(va, level, metric.name, method, est_a, ja),
+        "name_b": name_b, "estimate_b": est_b, "interval_b": _interval(vb, level, metric.name, method, est_b, jb),
+        "diff": diff, "diff_low": low, "diff_high": high,
         "winner": None if win is None else (name_a, name_b)[win],
-        "verdict": verdict(name_a, name_b, est_a - est_b, low, high, metric.name,
-                           metric.lower_is_better, level),
+        "verdict": verdict(name_a, name_b, diff, low, high, metric.name, metric.lower_is_better, level),
     }
 
 
