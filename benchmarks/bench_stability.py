@@ -74,7 +74,7 @@ def _fit_rows(rows, data):
 def bench_resampling_two_workers():
     X, y = _problem()
     fit = functools.partial(fit_project_l1, lambdas=_grid(X, y))
-    resamples = resample_indices(N, "subsample", 40, rng=np.random.SeedSequence(1))
+    resamples = resample_indices(N, "subsample", 100, rng=np.random.SeedSequence(1))
 
     def stage(n_jobs):
         return run_tasks(_fit_rows, resamples, backend="processes" if n_jobs > 1 else "local",
@@ -87,7 +87,7 @@ def bench_resampling_two_workers():
     one, two = stage(1), stage(2)
     identical = all(a[0].tobytes() == b[0].tobytes() for a, b in zip(one, two))
     return [timed_pair("resampling_two_workers", lambda: stage(2), "same stage on one process",
-                       lambda: stage(1), goal="ratio >= 1.7 (2 workers vs 1, 40 L1 path fits)",
+                       lambda: stage(1), goal="ratio >= 1.7 (2 workers vs 1, 100 L1 path fits)",
                        repeats=3, min_ratio=1.7,
                        extra={"first_call_seconds_with_pool_start": cold, "bit_identical": identical,
                               "load_average_1min_before": load_before,

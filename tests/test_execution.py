@@ -5,7 +5,6 @@ import time
 
 import numpy as np
 import pytest
-from sklearn.linear_model import lasso_path
 
 from pipeline.execution import TaskFailed, local_dask_cluster, run_tasks, task_seeds
 
@@ -32,6 +31,8 @@ def _with_shared(task, shared):
 
 def _subsample_lasso(seed):
     """A small resampling fit: draw a half-subsample from the task seed, fit a lasso path."""
+    from sklearn.linear_model import lasso_path  # imported here so pool start-up stays light
+
     rng = np.random.default_rng(seed)
     data = np.random.default_rng(0)
     X = data.standard_normal((60, 25))

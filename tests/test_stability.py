@@ -10,7 +10,7 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
 from pipeline.stability import (
-    compare_families, correlated_groups_sharing, held_out_matrix, lambda_range_for_error_bound, mb_error_bound,
+    compare_families, correlated_groups_sharing, stability_summary, held_out_matrix, lambda_range_for_error_bound, mb_error_bound,
     nogueira_stability, prediction_instability, selection_probabilities, sign_consistency, stable_set,
     top_k_sets, union_sizes)
 
@@ -279,3 +279,37 @@ def test_compare_families_by_hand():
     # L2 top-2 signs: feature 0 ++−, feature 1 +, feature 2 ++ : (2 + 1 + 2) / 6
     assert out["l2"]["sign_agreement"] == pytest.approx(5 / 6)
     np.testing.assert_allclose(out["l2"]["selection_frequency"], [1, 1 / 3, 2 / 3, 0])
+
+
+def _lasso_and_ridge(X, y):
+    """Lasso path (scikit-learn alpha = λ) and one ridge fit (scikit-learn Ridge alpha = nλ) per resample."""
+    from sklearn.linear_model import Ridge, lasso_path
+
+    Xc, yc = X - X.mean(axis=0), y - y.mean()
+    lambdas = np.geomspace(1.0, 0.02, 12)
+    _, lasso_coefs, _ = lasso_path(Xc, yc, alphas=lambdas)
+    ridge = Ridge(alpha=X.shape[0] * 0.05).fit(X, y)
+    coef = np.vstack([lasso_coefs.T, ridge.coef_])
+    return coef, y.mean() - coef @ X.mean(axis=0)
+
+
+def test_stability_summary_on_a_sparse_problem():
+    from pipeline.resampling import resample_fits, resample_indices
+
+    rng = np.random.default_rng(8)
+    X = rng.standard_normal((100, 30))
+    y = X[:, :3] @ np.array([2.0, -2.0, 1.5]) + 0.5 * rng.standard_normal(100)
+    fits = resample_fits(_lasso_and_ridge, X, y, resample_indices(100, "complementary_pairs", 40, rng=0))
+    lambdas = np.geomspace(1.0, 0.02, 12)
+    l1_index = 6
+    out = stability_summary(fits.coefs[:, :12], lambdas, l1_index, fits.coefs[:, 12], X,
+                            l1_preds=fits.predictions[:, l1_index], l2_preds=fits.predictions[:, 12],
+                            threshold=0.9, target_ev=1.0)
+    assert out["selection_probabilities"].shape == (12, 30)
+    control = out["error_control"]
+    assert control["bound"] <= 1.0 and {0, 1, 2} <= set(control["stable_set"].tolist())
+    l1, l2 = out["families"]["l1"], out["families"]["l2"]
+    assert l2["mean_set_size"] == l1["mean_set_size"]          # ridge top-k uses the lasso's k
+    for family in (l1, l2):
+        assert -1.0 <= family["index"]["lower"] <= family["index"]["stability"] <= family["index"]["upper"]
+        assert family["prediction_instability"] > 0
