@@ -153,6 +153,8 @@ def general_path(eig: KernelEigen, y, loss, lambdas, *, tol: float = 1e-12, max_
     theta = np.array([row[0] for row in rows])
     b, beta = (theta[:, 0], theta[:, 1:]) if eig.centred else (np.zeros(len(rows)), theta)
     C = (beta / sq[None, :]) @ U_r.T               # c = U_r D_r^{-1/2} β
+    if eig.centred:
+        C -= C.mean(axis=1, keepdims=True)         # exact c ⟂ 1 (see l2_squared)
     return L2Path(lambdas=np.asarray(lambdas, float), dual_coef=C,
                   intercept=b - eig.intercept_shift(C),
                   effective_df=np.array([row[1] for row in rows]), loo_error=None, gcv=None,

@@ -17,20 +17,22 @@ from pipeline.models.l2_eigen import KernelEigen
 from pipeline.models.l2_path import L2Path
 
 
-def _loo_and_gcv(resid: np.ndarray, hat_diag: np.ndarray, trace: np.ndarray):
+def _finish_stats(resid: np.ndarray, hat_diag: np.ndarray, trace: np.ndarray, finite_coef):
+    """Mean squared LOO residual rᵢ/(1 − Sᵢᵢ), GCV, and a per-λ verdict."""
     n = resid.shape[0]
     with np.errstate(divide="ignore", invalid="ignore"):
         loo = np.mean((resid / (1.0 - hat_diag)) ** 2, axis=0)
         gcv = np.mean(resid**2, axis=0) / (1.0 - trace / n) ** 2
-    return loo, gcv
+    ok = np.isfinite(loo) & np.isfinite(gcv) & np.asarray(finite_coef)
+    status = tuple("optimal" if good else "numerical trouble: 1 - S_ii = 0" for good in ok)
+    return loo, gcv, ok, status
 
 
 def _finish(lambdas, C, intercept, df, resid, hat_diag, centred, start, psd_ratio=None):
-    loo, gcv = _loo_and_gcv(resid, hat_diag, df + (1.0 if centred else 0.0))
-    finite = np.isfinite(loo) & np.isfinite(gcv) & np.all(np.isfinite(C), axis=0)
-    status = tuple("optimal" if ok else "numerical trouble: 1 - S_ii = 0" for ok in finite)
+    loo, gcv, ok, status = _finish_stats(resid, hat_diag, df + (1.0 if centred else 0.0),
+                                         np.all(np.isfinite(C), axis=0))
     return L2Path(lambdas=lambdas, dual_coef=np.ascontiguousarray(C.T), intercept=intercept,
-                  effective_df=df, loo_error=loo, gcv=gcv, converged=finite, status=status,
+                  effective_df=df, loo_error=loo, gcv=gcv, converged=ok, status=status,
                   fit_seconds=time.perf_counter() - start, loss="squared",
                   psd_ratio=psd_ratio)
 
@@ -47,6 +49,10 @@ def squared_path(eig: KernelEigen, y, lambdas) -> L2Path:
     inv = 1.0 / (d[:, None] + nl[None, :])          # (n, L)
     shrink = d[:, None] * inv                       # dⱼ/(dⱼ + nλ)
     C = U @ (a[:, None] * inv)                      # (n, L) dual coefficients
+    if eig.centred:
+        # The exact c is orthogonal to 1; near-null eigenvectors of K̃ mix with 1 in
+        # floating point, and at small λ that spurious part (×1/(nλ)) would spoil Kc.
+        C -= C.mean(axis=0)
     resid = C * nl[None, :]                         # y − fitted = nλ c
     hat_diag = (U * U) @ shrink
     if eig.centred:

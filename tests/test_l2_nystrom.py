@@ -1,0 +1,52 @@
+"""Nyström large-n route: agreement with the exact route and with its own explicit form."""
+import numpy as np
+import pytest
+
+from pipeline.kernels import gram
+from pipeline.models.l2 import fit_l2_path, fit_l2_primal_path, predict_path
+from pipeline.models.l2_nystrom import fit_nystrom_path, nystrom_gap
+
+
+def _data(n=400, seed=0):
+    rng = np.random.default_rng(seed)
+    X = rng.normal(size=(n, 3))
+    return X, np.sin(X[:, 0]) + X[:, 1] * X[:, 2] + 0.2 * rng.normal(size=n)
+
+
+def test_all_rows_as_landmarks_is_the_exact_route():
+    # With m = n landmarks K(X, Z)W⁺K(Z, X) = K, so the paths coincide where nλ is not
+    # far below the dropped eigenvalues (rank cut at 1e-10·d_max).
+    X, y = _data(n=150)
+    lambdas = np.geomspace(1e-1, 1e-5, 6)
+    exact = fit_l2_path(gram(X, kernel="rbf", bandwidth=1.0), y, "squared", lambdas)
+    ny = fit_nystrom_path(X, y, "rbf", lambdas, n_landmarks=150, bandwidth=1.0)
+    np.testing.assert_allclose(ny.path.loo_error, exact.loo_error, rtol=1e-6)
+    np.testing.assert_allclose(ny.path.effective_df, exact.effective_df, rtol=1e-6)
+    Xt = np.random.default_rng(9).normal(size=(30, 3))
+    np.testing.assert_allclose(ny.predict(Xt),
+                               predict_path(exact, gram(Xt, X, kernel="rbf", bandwidth=1.0)),
+                               atol=1e-6)
+
+
+def test_blockwise_two_pass_equals_ridge_on_explicit_nystrom_features():
+    # The two-pass solve must equal the primal ridge path on Φ = K(X, Z)W^{-1/2} built whole.
+    X, y = _data()
+    lambdas = np.geomspace(1e-1, 1e-4, 5)
+    ny = fit_nystrom_path(X, y, "matern32", lambdas, n_landmarks=40, seed=3, block_rows=64)
+    Z = ny.landmarks
+    w, V = np.linalg.eigh(gram(Z, kernel="matern32", **ny.kernel_params))
+    Phi = gram(X, Z, "matern32", **ny.kernel_params) @ (V / np.sqrt(w))
+    ref, _ = fit_l2_primal_path(Phi, y, lambdas)
+    for field in ("loo_error", "gcv", "effective_df", "intercept"):
+        np.testing.assert_allclose(getattr(ny.path, field), getattr(ref, field), rtol=1e-7)
+    np.testing.assert_allclose(ny.predict(X[:20]), predict_path(ref, Phi[:20] @ Phi.T), atol=1e-8)
+
+
+def test_gap_report_shrinks_with_more_landmarks():
+    X, y = _data(n=600, seed=1)
+    lambdas = np.geomspace(1e-1, 1e-5, 8)
+    few = nystrom_gap(X, y, "rbf", lambdas, n_landmarks=10, subsample=300)
+    many = nystrom_gap(X, y, "rbf", lambdas, n_landmarks=200, subsample=300)
+    assert few["subsample"] == many["subsample"] == 300
+    assert abs(many["relative_gap"]) < abs(few["relative_gap"])
+    assert abs(many["relative_gap"]) < 0.02
