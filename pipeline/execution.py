@@ -90,8 +90,9 @@ def _run_dask(fn, tasks, shared, use_shared, n_jobs, address) -> Iterator[tuple[
         if address is None:
             address = stack.enter_context(local_dask_cluster(n_jobs))
         client = stack.enter_context(Client(address, set_as_default=False))
-        # Shared data goes to every worker once instead of once per task.
-        shared_ref = client.scatter(shared, broadcast=True) if use_shared else None
+        # Shared data goes to every worker once instead of once per task; wrapped in a list so
+        # a tuple or dict is scattered whole, not element by element.
+        shared_ref = client.scatter([shared], broadcast=True)[0] if use_shared else None
         futures = [client.submit(_call, fn, i, t, shared_ref, use_shared, pure=False)
                    for i, t in enumerate(tasks)]
         try:

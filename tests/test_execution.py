@@ -29,6 +29,10 @@ def _with_shared(task, shared):
     return float(shared[task].sum())
 
 
+def _shared_kind(task, shared):
+    return type(shared).__name__, shared[1]
+
+
 def _subsample_lasso(seed):
     """A small resampling fit: draw a half-subsample from the task seed, fit a lasso path."""
     from sklearn.linear_model import lasso_path  # imported here so pool start-up stays light
@@ -124,5 +128,7 @@ def test_dask_with_given_address_and_failure():
         shared = np.ones((3, 2))
         assert run_tasks(_with_shared, [1], backend="dask", scheduler_address=address,
                          shared=shared) == [2.0]
+        assert run_tasks(_shared_kind, [0], backend="dask", scheduler_address=address,
+                         shared=(shared, 7)) == [("tuple", 7)]
         with pytest.raises(TaskFailed, match="task 2"):
             run_tasks(_fail_on_three, [1, 2, 3], backend="dask", scheduler_address=address)
