@@ -66,14 +66,65 @@ def cmd_run(args) -> int:
     return 0
 
 
+def _store_uri(args) -> str:
+    """--tracking-uri, else the store named in --config, else the default SQLite file."""
+    if args.tracking_uri:
+        return args.tracking_uri
+    if args.config:
+        spec, _ = load_config(args.config)
+        return spec.tracking.uri
+    return "sqlite:///mlflow.db"
+
+
+def cmd_report(args) -> int:
+    from .report import write_payload_report
+    from .tracking import StoreError, latest_execution, open_store, read_payload
+
+    if bool(args.run_id) == bool(args.latest):
+        return _fail("report: give either a RUN_ID or --latest (the newest finished execution).")
+    client = open_store(_store_uri(args))
+    try:
+        run_id = args.run_id or latest_execution(client, args.experiment).info.run_id
+        payload = read_payload(client, run_id)
+    except StoreError as exc:
+        return _fail(str(exc))
+    path = write_payload_report(payload, run_id, pathlib.Path.cwd())
+    print(f"report: {path}")
+    print(f"run id: {run_id}")
+    return 0
+
+
+def cmd_compare(args) -> int:
+    from .compare import comparison_payload, gather
+    from .report.comparison import write_comparison
+    from .tracking import StoreError, open_store
+
+    if args.last is not None and args.last < 1:
+        return _fail(f"compare: --last must be 1 or more, found {args.last}.")
+    last = None if args.runs else (args.last or 5)
+    try:
+        executions = gather(open_store(_store_uri(args)), args.experiment, tuple(args.runs or ()), last)
+    except StoreError as exc:
+        return _fail(str(exc))
+    path = write_comparison(comparison_payload(executions), pathlib.Path.cwd())
+    for i, e in enumerate(executions):
+        print(f"E{i + 1}: {e['run_id']}  {e['name']}")
+    print(f"comparison: {path}")
+    return 0
+
+
+def cmd_init(args) -> int:
+    from .starter import write_starter
+
+    path = write_starter(args.data, args.target, args.output, force=args.force)
+    print(f"penduel: wrote {path}; run it with `penduel run {path}`", file=sys.stderr)
+    return 0
+
+
 def cmd_ui(args) -> int:
     import subprocess
 
-    uri = args.tracking_uri
-    if uri is None and args.config:
-        spec, _ = load_config(args.config)
-        uri = spec.tracking.uri
-    uri = uri or "sqlite:///mlflow.db"
+    uri = _store_uri(args)
     print(f"penduel: tracking UI for {uri} at http://{args.host}:{args.port} (Ctrl-C stops it)", file=sys.stderr)
     cmd = [sys.executable, "-m", "mlflow", "server", "--backend-store-uri", uri, "--host", args.host,
            "--port", str(args.port)]
@@ -95,6 +146,11 @@ def cmd_scenarios(args) -> int:
     return 0
 
 
+def _store_options(p) -> None:
+    p.add_argument("--config", help="take the tracking store from this experiment file")
+    p.add_argument("--tracking-uri", help="tracking store URI (default sqlite:///mlflow.db)")
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="penduel", description="Compare sparse (L1) and ridge-type (L2) "
                                      "penalised models on identical splits, log them and write a report.")
@@ -107,9 +163,26 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("validate", help="check an experiment file and print it with defaults filled in")
     p.add_argument("config")
     p.set_defaults(func=cmd_validate)
+    p = sub.add_parser("report", help="write an execution's report again from the tracking store alone")
+    p.add_argument("run_id", nargs="?", help="the execution's (parent) run id")
+    p.add_argument("--latest", action="store_true", help="the newest finished execution")
+    p.add_argument("--experiment", help="with --latest: the newest of this tracking experiment")
+    _store_options(p)
+    p.set_defaults(func=cmd_report)
+    p = sub.add_parser("compare", help="compare executions from the tracking store in one HTML file")
+    p.add_argument("--runs", nargs="+", metavar="RUN_ID", help="these executions, in this order")
+    p.add_argument("--last", type=int, help="the newest N finished executions (default 5)")
+    p.add_argument("--experiment", help="only executions of this tracking experiment")
+    _store_options(p)
+    p.set_defaults(func=cmd_compare)
+    p = sub.add_parser("init", help="write a commented starter config for your own CSV or Parquet file")
+    p.add_argument("--data", required=True, help="the CSV or Parquet file")
+    p.add_argument("--target", required=True, help="the column to predict")
+    p.add_argument("--output", default="penduel.yaml", help="config file to write (default penduel.yaml)")
+    p.add_argument("--force", action="store_true", help="overwrite an existing file")
+    p.set_defaults(func=cmd_init)
     p = sub.add_parser("ui", help="open the tracking UI on this machine")
-    p.add_argument("--config", help="take the tracking store from this experiment file")
-    p.add_argument("--tracking-uri")
+    _store_options(p)
     p.add_argument("--host", default="127.0.0.1", help="address to bind (default 127.0.0.1, this machine only)")
     p.add_argument("--port", type=int, default=5000)
     p.set_defaults(func=cmd_ui)

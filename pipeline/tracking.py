@@ -1,17 +1,26 @@
 """Everything that talks to mlflow: one parent run per execution, one child per (family, loss)."""
 from __future__ import annotations
 
+import contextlib
 import logging
 import os
 import pathlib
 import platform
+import random
 import subprocess
 import tempfile
+import time
 from importlib import metadata
 
 import numpy as np
 import pandas as pd
+import psutil
 import yaml
+
+try:
+    import fcntl
+except ImportError:  # Windows has no fcntl: no cross-process lock there
+    fcntl = None
 
 for _name in ("alembic", "mlflow", "mlflow.store", "sqlalchemy"):
     logging.getLogger(_name).setLevel(logging.WARNING)
@@ -20,6 +29,8 @@ os.environ.setdefault("MLFLOW_ENABLE_ARTIFACTS_PROGRESS_BAR", "false")
 import mlflow  # noqa: E402
 from mlflow.entities import Metric, Param, RunTag  # noqa: E402
 from mlflow.tracking import MlflowClient  # noqa: E402
+
+from .stability import selection_probabilities  # noqa: E402
 
 PACKAGES = ("penduel", "numpy", "scipy", "scikit-learn", "cvxpy", "mlflow", "pandas")
 
@@ -61,6 +72,81 @@ def predictions_frame(result, r) -> pd.DataFrame:
     return pd.DataFrame({"row": result.test_rows, "y_true": result.y_test, "y_pred": r.test_pred})
 
 
+# ---------------------------------------------------------------- several processes, one SQLite store
+@contextlib.contextmanager
+def store_lock(uri: str):
+    """Serialise schema and experiment creation between processes sharing one SQLite file
+    (two first-time migrations at once corrupt the store)."""
+    if not uri.startswith("sqlite:///") or fcntl is None:
+        yield
+        return
+    lock = pathlib.Path(uri[len("sqlite:///"):] + ".lock")
+    lock.parent.mkdir(parents=True, exist_ok=True)
+    with open(lock, "a") as fh:
+        fcntl.flock(fh, fcntl.LOCK_EX)
+        try:
+            yield
+        finally:
+            fcntl.flock(fh, fcntl.LOCK_UN)
+
+
+class LockRetrying:
+    """An MlflowClient whose calls retry with growing waits while another process holds the
+    SQLite write lock ("database is locked"); the failed transaction was rolled back, so a retry is safe."""
+
+    def __init__(self, client, attempts: int = 10, first_wait: float = 0.05):
+        self._client, self._attempts, self._first_wait = client, attempts, first_wait
+
+    def __getattr__(self, name):
+        attr = getattr(self._client, name)
+        if not callable(attr):
+            return attr
+
+        def call(*args, **kwargs):
+            wait = self._first_wait
+            for attempt in range(self._attempts):
+                try:
+                    return attr(*args, **kwargs)
+                except Exception as exc:
+                    if "database is locked" not in str(exc) or attempt == self._attempts - 1:
+                        raise
+                    time.sleep(wait * (1.0 + random.random()))
+                    wait = min(2 * wait, 5.0)
+        return call
+
+
+def process_tags() -> dict[str, str]:
+    me = psutil.Process()
+    return {"penduel.host": platform.node(), "penduel.pid": str(me.pid), "penduel.pid_started": repr(me.create_time())}
+
+
+def _process_gone(tags) -> bool:
+    try:
+        return abs(psutil.Process(int(tags["penduel.pid"])).create_time() - float(tags["penduel.pid_started"])) > 1e-3
+    except (psutil.NoSuchProcess, KeyError, ValueError):
+        return True
+
+
+def mark_abandoned_runs(client, experiment_id: str, config_hash: str) -> list[str]:
+    """RUNNING parent runs of this config whose process on this host no longer exists (it was killed
+    with no chance to close its run, e.g. SIGKILL) are marked KILLED, with their children."""
+    found = client.search_runs([experiment_id], filter_string=(
+        f"tags.`penduel.kind` = 'execution' and tags.`penduel.config_hash` = '{config_hash}' "
+        f"and attributes.status = 'RUNNING'"))
+    marked = []
+    for run in found:
+        if run.data.tags.get("penduel.host") != platform.node() or not _process_gone(run.data.tags):
+            continue
+        children = client.search_runs([experiment_id], filter_string=(
+            f"tags.mlflow.parentRunId = '{run.info.run_id}' and attributes.status = 'RUNNING'"))
+        for r in [*children, run]:
+            client.set_tag(r.info.run_id, "penduel.error", "the process ended without closing this run; "
+                                                           "marked KILLED by a later run of the same config")
+            client.set_terminated(r.info.run_id, "KILLED")
+        marked.append(run.info.run_id)
+    return marked
+
+
 class ExecutionLog:
     """Context manager around one execution. The parent run ends FINISHED, FAILED or KILLED
     according to what happened inside the block."""
@@ -68,17 +154,20 @@ class ExecutionLog:
     def __init__(self, spec, uri: str | None = None):
         self.spec = spec
         self.uri = uri or spec.tracking.uri
-        self.client = MlflowClient(tracking_uri=self.uri)
+        with store_lock(self.uri):   # the client creates the schema of a new store
+            self.client = LockRetrying(MlflowClient(tracking_uri=self.uri))
         self.experiment_name = spec.tracking.experiment_name or spec.name
         self.run_id: str | None = None
         self.child_ids: dict[tuple[str, str], str] = {}
 
     def __enter__(self) -> "ExecutionLog":
-        exp = self.client.get_experiment_by_name(self.experiment_name)
-        exp_id = exp.experiment_id if exp else self.client.create_experiment(self.experiment_name)
+        with store_lock(self.uri):
+            exp = self.client.get_experiment_by_name(self.experiment_name)
+            exp_id = exp.experiment_id if exp else self.client.create_experiment(self.experiment_name)
+        self.abandoned_runs = mark_abandoned_runs(self.client, exp_id, self.spec.config_hash())
         self.experiment_id = exp_id
         tags = {"penduel.config_hash": self.spec.config_hash(), "penduel.kind": "execution",
-                "penduel.machine": machine_summary(), "mlflow.runName": f"{self.spec.name}"}
+                "penduel.machine": machine_summary(), "mlflow.runName": f"{self.spec.name}", **process_tags()}
         commit = git_commit()
         if commit:
             tags["penduel.git_commit"] = commit
@@ -180,6 +269,31 @@ class ExecutionLog:
         cv["mean"], cv["se"], cv["path_df"] = r.cv_mean, r.cv_se, r.path.effective_df
         cv["status"] = list(r.path.status)
         self._log_frame(rid, cv, "cv_table.csv")
+        self._log_stability(rid, result, r)
+
+    def _log_stability(self, rid, result, r) -> None:
+        """Selection probabilities along the path (sparse family) and the stability summary at the
+        chosen λ, when the resampling stage ran for this loss."""
+        summary = getattr(result, "stability", {}).get(r.loss_label)
+        if not summary:
+            return
+        row = summary.get("families", {}).get(r.family)
+        if row:
+            names = {"stability": "stability_index", "lower": "stability_index_low",
+                     "upper": "stability_index_high", "mean_set_size": "stability_mean_set_size",
+                     "sign_agreement": "stability_sign_agreement",
+                     "prediction_instability": "prediction_instability"}
+            metrics = [Metric(name, float(row[key]), 0, 0) for key, name in names.items() if _finite(row.get(key))]
+            if metrics:
+                self.client.log_batch(rid, metrics=metrics)
+        resamples = getattr(r, "resamples", ())
+        if r.family == "l1" and resamples and resamples[0].coef is not None:
+            probs = selection_probabilities(np.stack([o.coef for o in resamples]))     # (L, p)
+            frame = pd.DataFrame({"feature": list(result.feature_names),
+                                  "at_chosen_lambda": probs[r.chosen_index]})
+            for step, lam in enumerate(r.lambdas):
+                frame[f"lambda_{step}={float(lam):.6g}"] = probs[step]
+            self._log_frame(rid, frame, "selection_probabilities.csv")
 
     def log_report(self, path) -> None:
         """The HTML report goes to every run; its data (report_data.json) to the parent, so the report
@@ -190,3 +304,86 @@ class ExecutionLog:
         if data.is_file():
             self.client.log_artifact(self.run_id, str(data))
         self.client.set_tag(self.run_id, "penduel.report", str(path))
+
+
+# ---------------------------------------------------------------- reading the store back
+EXECUTION_FILTER = "tags.`penduel.kind` = 'execution'"
+
+
+class StoreError(Exception):
+    """The tracking store does not hold what was asked for (a user mistake: exit 2)."""
+
+
+def open_store(uri: str) -> MlflowClient:
+    return MlflowClient(tracking_uri=uri)
+
+
+def _experiment_ids(client: MlflowClient, experiment: str | None) -> list[str]:
+    if experiment is None:
+        return [e.experiment_id for e in client.search_experiments()]
+    exp = client.get_experiment_by_name(experiment)
+    if exp is None:
+        known = sorted(e.name for e in client.search_experiments())
+        raise StoreError(f"--experiment: no experiment named '{experiment}' in the tracking store; "
+                         f"it holds {known or 'no experiments'}.")
+    return [exp.experiment_id]
+
+
+def execution_runs(client: MlflowClient, experiment: str | None = None, run_ids=(), last: int | None = None,
+                   finished_only: bool = True) -> list:
+    """Parent runs: the given ids in the given order, or the newest `last` executions (all when
+    `last` is None) of one experiment or of the whole store, newest first."""
+    if run_ids:
+        runs = []
+        for rid in run_ids:
+            try:
+                run = client.get_run(rid)
+            except Exception:   # mlflow raises its own exception type for an unknown id
+                raise StoreError(f"run id '{rid}' is not in the tracking store.") from None
+            if run.data.tags.get("penduel.kind") != "execution":
+                parent = run.data.tags.get("mlflow.parentRunId")
+                hint = f" (it is a child run; its execution is {parent})" if parent else ""
+                raise StoreError(f"run id '{rid}' is not a penduel execution{hint}.")
+            runs.append(run)
+        return runs
+    ids = _experiment_ids(client, experiment)
+    if not ids:
+        return []
+    filt = EXECUTION_FILTER + (" and attributes.status = 'FINISHED'" if finished_only else "")
+    runs = client.search_runs(ids, filter_string=filt, order_by=["attributes.start_time DESC"],
+                              max_results=last or 1000)
+    return list(runs)
+
+
+def child_runs(client: MlflowClient, parent) -> list:
+    return list(client.search_runs([parent.info.experiment_id],
+                                   filter_string=f"tags.mlflow.parentRunId = '{parent.info.run_id}'"))
+
+
+def latest_execution(client: MlflowClient, experiment: str | None = None):
+    runs = execution_runs(client, experiment, last=1)
+    if not runs:
+        where = f"experiment '{experiment}'" if experiment else "the tracking store"
+        raise StoreError(f"--latest: {where} holds no finished penduel execution yet; run one with "
+                         f"`penduel run CONFIG` first.")
+    return runs[0]
+
+
+def read_artifact(client: MlflowClient, run_id: str, name: str) -> str:
+    """Text of one artifact of a run, downloaded from the store (local or remote) to a temporary folder."""
+    with tempfile.TemporaryDirectory() as tmp:
+        try:
+            path = client.download_artifacts(run_id, name, tmp)
+        except Exception as exc:   # missing artifact: mlflow's error type depends on the store
+            raise StoreError(f"run {run_id} has no artifact '{name}' in the tracking store ({exc}).") from None
+        return pathlib.Path(path).read_text(encoding="utf-8")
+
+
+def read_payload(client: MlflowClient, run_id: str) -> dict:
+    import json
+
+    return json.loads(read_artifact(client, run_id, "report_data.json"))
+
+
+def read_config(client: MlflowClient, run_id: str) -> dict:
+    return yaml.safe_load(read_artifact(client, run_id, "config.yaml"))

@@ -1,0 +1,48 @@
+"""Figures of the cross-execution comparison, inline PNG like the execution report's."""
+from __future__ import annotations
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+
+from .plots import COLOURS, MARKERS, _encode  # noqa: E402
+
+OFFSET = {"l1": -0.12, "l2": 0.12}
+TITLES = {"l1": "sparse (L1)", "l2": "ridge-type (L2)"}
+
+
+def _nan(x) -> float:
+    return np.nan if x is None else float(x)
+
+
+def across_executions(block: dict, labels: list[str], primary: str) -> str:
+    """Left: held-out primary metric with its interval per execution and family. Right: fit time
+    (path + CV) per execution and family, log scale."""
+    fig, (ax, bx) = plt.subplots(1, 2, figsize=(10.5, 3.6))
+    for fam in ("l1", "l2"):
+        rows = [r for r in block["rows"] if r["family"] == fam]
+        if not rows:
+            continue
+        x = np.array([r["execution"] for r in rows]) + OFFSET[fam]
+        y = np.array([_nan(r["value"]) for r in rows])
+        lo = np.array([_nan(r["low"]) for r in rows])
+        hi = np.array([_nan(r["high"]) for r in rows])
+        err = np.vstack([np.where(np.isnan(lo), 0, y - lo), np.where(np.isnan(hi), 0, hi - y)])
+        ax.errorbar(x, y, yerr=err, color=COLOURS[fam], marker=MARKERS[fam], ls="none", capsize=3,
+                    label=TITLES[fam])
+        secs = np.array([_nan(r["fit_seconds"]) + _nan(r["cv_seconds"]) for r in rows])
+        bx.plot(x, secs, color=COLOURS[fam], marker=MARKERS[fam], ls="none", label=TITLES[fam])
+    for a in (ax, bx):
+        a.set_xticks(range(len(labels)), labels)
+        a.set_xlim(-0.5, len(labels) - 0.5)
+        a.grid(alpha=0.3)
+        a.legend(fontsize=8)
+    ax.set_ylabel(f"held-out {primary.replace('_', ' ')} [90 % interval]")
+    ax.set_title(f"Held-out error — {block['loss']}", fontsize=10)
+    bx.set_yscale("log")
+    bx.set_ylabel("path fit + CV fits (s, log scale)")
+    bx.set_title(f"Time — {block['loss']}", fontsize=10)
+    fig.tight_layout()
+    return _encode(fig)

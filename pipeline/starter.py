@@ -1,0 +1,105 @@
+"""`penduel init`: a commented starter config for the user's own table, checked before it is written."""
+from __future__ import annotations
+
+import json
+import os
+import pathlib
+import re
+
+import pandas as pd
+import yaml
+
+from .config import ConfigError, parse_config
+from .data import DataError
+from .data.loaders import _read_table, frame_to_dataset
+
+KINDS = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
+
+
+def guess_task(target: pd.Series) -> str:
+    """Two distinct values: classification; a numeric column with more: regression."""
+    levels = target.dropna().unique()
+    if len(levels) == 2:
+        return "classification"
+    if pd.api.types.is_numeric_dtype(target) and len(levels) > 2:
+        return "regression"
+    raise DataError(f"--target: column '{target.name}' has {len(levels)} distinct value(s) and is "
+                    f"{'numeric' if pd.api.types.is_numeric_dtype(target) else 'not numeric'}; penduel needs a "
+                    f"numeric target (regression) or exactly two classes (classification).")
+
+
+def experiment_name(path: pathlib.Path) -> str:
+    name = re.sub(r"[^A-Za-z0-9_.-]+", "-", path.stem).strip("-.") or "my-data"
+    return name if name[0].isalnum() else f"x{name}"[:120]
+
+
+def cv_folds(y, task: str, n_train: int) -> int:
+    """Five folds unless the training rows (or the smaller class) are too few for them."""
+    smallest = n_train if task == "regression" else int(min((y > 0).sum(), (y < 0).sum()) * 0.75)
+    return max(2, min(5, smallest // 2))
+
+
+def _q(text: str) -> str:
+    return json.dumps(text, ensure_ascii=False)   # a JSON string is a valid YAML scalar
+
+
+def starter_text(data: pathlib.Path, target: str, config_dir: pathlib.Path) -> str:
+    kind = KINDS.get(data.suffix.lower())
+    if kind is None:
+        raise DataError(f"--data: '{data}' should end in .csv or .parquet (found '{data.suffix or 'no suffix'}').")
+    frame = _read_table(data, kind)
+    frame.columns = [str(c) for c in frame.columns]
+    if target not in frame.columns:
+        frame_to_dataset(frame, target, "regression", str(data))     # raises with a "did you mean" hint
+    task = guess_task(frame[target])
+    ds = frame_to_dataset(frame, target, task, str(data))
+    n_train = ds.n_samples - max(1, round(0.25 * ds.n_samples))
+    folds = cv_folds(ds.y, task, n_train)
+    rel = os.path.relpath(data.resolve(), config_dir.resolve())
+    if task == "regression":
+        losses = ("losses: [squared, huber, absolute]   # also: quantile (set tau), or fewer to run faster\n")
+    else:
+        losses = ("losses: [logistic, hinge]   # also: squared_hinge\n"
+                  f"# classes: {_q(ds.class_labels[0])} is coded -1, {_q(ds.class_labels[1])} is +1\n")
+    text = (
+        f"# Starter experiment for {_q(data.name)}: {ds.n_samples} rows, {ds.n_features} feature column(s) after\n"
+        f"# encoding, target {target!r} ({task}). Written by `penduel init`; it runs as is:\n"
+        f"#   penduel run <this file>\n"
+        f"# `penduel validate <this file>` prints every setting with its default filled in.\n"
+        f"name: {_q(experiment_name(data))}\n"
+        f"description: {_q(f'Sparse against ridge-type models for {target} in {data.name}.')}\n"
+        f"seed: 0                      # change it to see how much the numbers move with the split\n"
+        f"data:\n"
+        f"  kind: {kind}\n"
+        f"  path: {_q(rel)}   # relative to this file's folder\n"
+        f"  target: {_q(target)}\n"
+        f"split:\n"
+        f"  test_fraction: 0.25        # rows held out, never used for fitting or choosing λ\n"
+        f"features:\n"
+        f"  maps:\n"
+        f"    - kind: identity         # the columns themselves; add polynomial or random_fourier maps\n"
+        f"{losses}"
+        f"families:\n"
+        f"  l1: {{n_lambdas: 30, lambda_ratio: 0.01}}   # sparse family: λ path from λ_max down to 1 % of it\n"
+        f"  l2: {{kernel: linear, n_lambdas: 30}}       # ridge-type family in representer form\n"
+        f"selection:\n"
+        f"  cv_folds: {folds}                # K-fold CV on the training rows, identical for both families\n"
+        f"  rule: min                  # or one_se: the simplest model within one standard error\n"
+        f"stability:\n"
+        f"  n_resamples: 20            # refits on subsamples to measure selection stability; more is steadier\n"
+        f"tracking:\n"
+        f"  uri: sqlite:///mlflow.db   # or postgresql://user@host/db, or http://host:port of a tracking server\n"
+    )
+    parse_config(yaml.safe_load(text), "starter config")     # never write a config that would not load
+    return text
+
+
+def write_starter(data: str | pathlib.Path, target: str, output: str | pathlib.Path, force: bool = False) -> pathlib.Path:
+    data, output = pathlib.Path(data), pathlib.Path(output)
+    if output.exists() and not force:
+        raise ConfigError(f"--output: '{output}' already exists; choose another name or pass --force to "
+                          f"overwrite it.")
+    text = starter_text(data, target, output.parent if str(output.parent) else pathlib.Path("."))
+    output.parent.mkdir(parents=True, exist_ok=True)
+    output.write_text(text, encoding="utf-8")
+    return output
