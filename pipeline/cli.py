@@ -6,6 +6,7 @@ import os
 import pathlib
 import sys
 import textwrap
+import time
 import warnings
 
 from .config import ConfigError, load_config
@@ -52,9 +53,18 @@ def cmd_run(args) -> int:
         spec = spec.model_copy(update={"tracking": spec.tracking.model_copy(update={"uri": args.tracking_uri})})
     print(f"penduel: running '{spec.name}' — {len(spec.losses)} loss(es), "
           f"{spec.selection.cv_folds}-fold CV, tracking store {spec.tracking.uri}", file=sys.stderr)
+    clock = time.perf_counter()
+
+    def status(text):
+        if not args.quiet:
+            print(f"penduel: {text} ({time.perf_counter() - clock:.1f} s)", file=sys.stderr, flush=True)
+
     with ExecutionLog(spec) as log:
+        status(f"tracking run {log.run_id} opened")
         result = run_experiment(spec, base_dir, progress=not args.quiet)
+        status("fits done; logging runs to the tracking store")
         log.log_results(result)
+        status("writing the report")
         path = write_report(result, log.run_id, pathlib.Path.cwd())
         log.log_report(path)
     print(_summary_table(result))
