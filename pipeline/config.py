@@ -119,7 +119,27 @@ class L1Spec(_Strict):
 
 class L2Spec(_Strict):
     enabled: bool = Field(True, description="Fit the ridge-type family.")
-    kernel: str = Field("linear", description="Kernel on the features; 'linear' is K = ΦΦᵀ of the feature map.")
+    kernel: Literal["linear", "polynomial", "rbf", "laplacian", "matern12", "matern32", "matern52"] = Field(
+        "linear", description="Kernel on the standardised features; 'linear' is K = ΦΦᵀ of the feature map "
+                              "(the only one with coefficients per feature).")
+    bandwidth: Union[float, Literal["median"]] = Field(
+        "median", description="Length scale of rbf, laplacian and Matérn kernels, or 'median' for the median "
+                              "pairwise distance of the training rows of each fit.")
+    degree: int = Field(3, ge=1, le=10, description="Degree of the polynomial kernel (1 + xᵀz/p)^degree.")
+
+    @field_validator("bandwidth")
+    @classmethod
+    def _positive_bandwidth(cls, v):
+        if not isinstance(v, str) and v <= 0:
+            raise ValueError("bandwidth must be positive or 'median'")
+        return v
+
+    def kernel_params(self) -> dict:
+        if self.kernel == "polynomial":
+            return {"degree": self.degree}
+        if self.kernel != "linear" and self.bandwidth != "median":
+            return {"bandwidth": float(self.bandwidth)}
+        return {}
     n_lambdas: int = Field(30, ge=2, le=500, description="Points on the λ path.")
 
 

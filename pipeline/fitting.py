@@ -25,6 +25,7 @@ class Shared:
     input_names: tuple[str, ...]
     l1_options: dict
     l2_kernel: str
+    l2_kernel_params: tuple = ()      # sorted (name, value) pairs
 
 
 @dataclass(frozen=True)
@@ -103,9 +104,10 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
     else:
         from .kernels import gram
         from .models.l2 import fit_l2_path, predict_path, primal_weights
-        K = gram(Z_tr, kernel=shared.l2_kernel)
+        kp = dict(shared.l2_kernel_params)
+        K = gram(Z_tr, kernel=shared.l2_kernel, **kp)
         path = fit_l2_path(K, t_tr, loss, task.lambdas)
-        f_ev = predict_path(path, gram(Z_ev, Z_tr, kernel=shared.l2_kernel))
+        f_ev = predict_path(path, gram(Z_ev, Z_tr, kernel=shared.l2_kernel, **kp))
         if shared.l2_kernel == "linear":
             coef = primal_weights(path, Z_tr)
         else:

@@ -121,7 +121,8 @@ def _l2_grid(spec, shared, train_rows):
     from .models.l2 import l2_lambda_grid
     builder = build_features(shared, train_rows)
     Z = builder.transform(shared.X[train_rows])
-    return l2_lambda_grid(gram(Z, kernel=spec.families.l2.kernel), spec.families.l2.n_lambdas)
+    K = gram(Z, kernel=spec.families.l2.kernel, **spec.families.l2.kernel_params())
+    return l2_lambda_grid(K, spec.families.l2.n_lambdas)
 
 
 def plan_splits(spec: ExperimentSpec, dataset: Dataset, train_rows, test_rows) -> list[tuple]:
@@ -272,7 +273,8 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     shared = Shared(X=dataset.X, y=dataset.y, task=dataset.task, feature_maps=spec.features.maps,
                     feature_seed=seeds.int_seed(spec.seed, "features"), input_names=dataset.feature_names,
                     l1_options={"tol": spec.families.l1.tol, "solver": spec.families.l1.solver},
-                    l2_kernel=spec.families.l2.kernel)
+                    l2_kernel=spec.families.l2.kernel,
+                    l2_kernel_params=tuple(sorted(spec.families.l2.kernel_params().items())))
     splits = plan_splits(spec, dataset, train_rows, test_rows)
     resamples = resample_splits(spec, train_rows, test_rows, dataset.y[train_rows], dataset.task) \
         if stability_losses(spec) else []
