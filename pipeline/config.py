@@ -196,6 +196,8 @@ class StabilitySpec(_Strict):
         1.0, gt=0.0, description="Target E[V] (expected falsely selected features) for the λ range "
                                  "(Meinshausen & Bühlmann 2010 bound).")
     losses: tuple[str, ...] | None = Field(None, description="Loss labels to resample; default: the first loss.")
+    group_correlation: float = Field(0.9, gt=0.0, le=1.0, description="Features whose training-row |correlation| "
+                                     "reaches this are grouped when reporting shared selection.")
 
     @model_validator(mode="after")
     def _pairs_even(self) -> "StabilitySpec":

@@ -45,7 +45,8 @@ def summarise_families(spec, outcomes_by_family: dict, lambdas_by_family: dict, 
                        feature_names, Z_train: np.ndarray | None) -> dict:
     st = spec.stability
     out = {"scheme": st.scheme, "n_resamples": st.n_resamples, "fraction": st.fraction,
-           "threshold": st.threshold, "target_false_selections": st.target_false_selections}
+           "threshold": st.threshold, "target_false_selections": st.target_false_selections,
+           "group_correlation": st.group_correlation}
     l1, l2 = outcomes_by_family.get("l1"), outcomes_by_family.get("l2")
     have_l1 = l1 is not None and l1[0].coef is not None
     have_l2 = l2 is not None and l2[0].coef is not None
@@ -68,7 +69,7 @@ def summarise_families(spec, outcomes_by_family: dict, lambdas_by_family: dict, 
         out["stable_at_chosen"] = _names(feature_names, np.flatnonzero(at_chosen >= st.threshold))
         if Z_train is not None:
             sel = np.stack([o.coef[idx] for o in l1]) != 0
-            groups = correlated_groups_sharing(sel, Z_train, min_abs_corr=0.7, min_frequency=0.1)
+            groups = correlated_groups_sharing(sel, Z_train, min_abs_corr=st.group_correlation, min_frequency=0.1)
             out["groups"] = [{"features": _names(feature_names, g["features"]),
                               "frequencies": [float(f) for f in g["frequencies"]],
                               "any_member_frequency": g["any_member_frequency"],

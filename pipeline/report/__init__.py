@@ -88,6 +88,7 @@ def _stability_block(stab) -> dict | None:
     ec = stab.get("error_control") or {}
     return {"rows": rows, "scheme": stab["scheme"].replace("_", " "), "n": stab["n_resamples"],
             "fraction": stab["fraction"], "threshold": stab["threshold"],
+            "group_correlation": stab.get("group_correlation", 0.9),
             "paths_plot": plots.stability_paths(stab) if stab.get("l1_paths") else None,
             "freq_plot": plots.selection_frequency(stab) if stab.get("frequency") else None,
             "target": stab["target_false_selections"], "ec": ec and {
