@@ -110,7 +110,7 @@ class GramCache:
             return np.linalg.lstsq(H, rhs, rcond=None)[0]
 
 
-def refine(X, y, coef, intercept, lam, alpha, loss: Loss, max_iter=30, add_per_round=10,
+def refine(X, y, coef, intercept, lam, alpha, loss: Loss, max_iter=100, add_per_round=10,
            tol=1e-9, gram: GramCache | None = None) -> Refined:
     """Active-set refinement over the columns of X, starting from (coef, intercept).
 
@@ -149,7 +149,7 @@ def refine(X, y, coef, intercept, lam, alpha, loss: Loss, max_iter=30, add_per_r
         bad = np.flatnonzero(excess > 0)
         if bad.size == 0:
             return Refined(coef, b0, dual, grad, True, it)
-        add = bad[np.argsort(-excess[bad])[:add_per_round]]
+        add = bad[np.argsort(-excess[bad])[:max(add_per_round, S.size // 4)]]
         S = np.r_[S, add]
         signs = np.r_[signs, -np.sign(grad[add])]
     dual = loss.derivative(y, X @ coef + b0)
