@@ -88,13 +88,15 @@ def _store_uri(args) -> str:
 
 def cmd_report(args) -> int:
     from .report import write_payload_report
-    from .tracking import StoreError, latest_execution, open_store, read_payload
+    from .tracking import StoreError, execution_runs, latest_execution, open_store, read_payload
 
     if bool(args.run_id) == bool(args.latest):
         return _fail("report: give either a RUN_ID or --latest (the newest finished execution).")
     client = open_store(_store_uri(args))
     try:
-        run_id = args.run_id or latest_execution(client, args.experiment).info.run_id
+        run = execution_runs(client, run_ids=(args.run_id,))[0] if args.run_id else \
+            latest_execution(client, args.experiment)
+        run_id = run.info.run_id
         payload = read_payload(client, run_id)
     except StoreError as exc:
         return _fail(str(exc))

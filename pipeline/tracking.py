@@ -314,8 +314,9 @@ class StoreError(Exception):
     """The tracking store does not hold what was asked for (a user mistake: exit 2)."""
 
 
-def open_store(uri: str) -> MlflowClient:
-    return MlflowClient(tracking_uri=uri)
+def open_store(uri: str):
+    with store_lock(uri):   # a new SQLite store gets its schema here
+        return LockRetrying(MlflowClient(tracking_uri=uri))
 
 
 def _experiment_ids(client: MlflowClient, experiment: str | None) -> list[str]:

@@ -1,0 +1,121 @@
+"""`penduel compare`: executions side by side from the tracking store, and their config differences."""
+from __future__ import annotations
+
+import html as htmllib
+import re
+import shutil
+from types import SimpleNamespace
+
+from hypothesis import given
+from hypothesis import strategies as st
+
+from pipeline.compare import MISSING, config_differences, flatten, loss_tables
+from pipeline.tracking import open_store
+
+from .test_tracking_store import penduel, store  # noqa: F401  (shared two-execution store)
+
+# ------------------------------------------------------------------ config differences (pure)
+leaves = st.one_of(st.integers(-3, 3), st.booleans(), st.none(), st.text(max_size=3), st.floats(allow_nan=False))
+configs = st.recursive(leaves, lambda inner: st.one_of(
+    st.lists(inner, max_size=3), st.dictionaries(st.text("abc", min_size=1, max_size=2), inner, max_size=3)),
+    max_leaves=12).filter(lambda c: isinstance(c, dict))
+
+
+def test_flatten_names_nested_settings_and_list_items():
+    flat = flatten({"selection": {"cv_folds": 3}, "losses": [{"name": "squared"}, {"name": "huber", "delta": 1.5}]})
+    assert flat == {"selection.cv_folds": "3", "losses[0].name": '"squared"', "losses[1].name": '"huber"',
+                    "losses[1].delta": "1.5"}
+
+
+def test_differences_list_only_changed_settings_with_every_value():
+    a = {"seed": 1, "selection": {"cv_folds": 3, "rule": "min"}, "losses": [{"name": "squared"}]}
+    b = {"seed": 1, "selection": {"cv_folds": 4, "rule": "min"}, "losses": [{"name": "squared"}, {"name": "huber"}]}
+    assert config_differences([a, b]) == [
+        {"setting": "losses[1].name", "values": [MISSING, '"huber"']},
+        {"setting": "selection.cv_folds", "values": ["3", "4"]}]
+
+
+@given(configs)
+def test_a_config_never_differs_from_itself(c):
+    assert config_differences([c, c]) == []
+
+
+@given(configs, configs)
+def test_differences_are_exactly_the_unequal_flat_settings(a, b):
+    fa, fb = flatten(a), flatten(b)
+    rows = config_differences([a, b])
+    assert {r["setting"] for r in rows} == {k for k in set(fa) | set(fb) if fa.get(k, MISSING) != fb.get(k, MISSING)}
+    # Order of the executions only reverses the values.
+    assert config_differences([b, a]) == [{"setting": r["setting"], "values": r["values"][::-1]} for r in rows]
+
+
+def _fit(family, loss, value):
+    return {"family": family, "loss": loss, "metrics": {"rmse": value, "balanced_accuracy": value},
+            "intervals": {}, **{k: None for k in ("n_nonzero", "effective_df", "fit_seconds", "cv_seconds",
+                                                "stability", "stability_low", "stability_high",
+                                                "lambda_chosen")}, "status": "FINISHED"}
+
+
+def test_best_row_follows_the_direction_of_the_metric():
+    executions = [{"fits": [_fit("l1", "squared", 2.0), _fit("l2", "squared", 1.0)], "verdicts": {}},
+                  {"fits": [_fit("l1", "squared", 3.0)], "verdicts": {}}]
+    (block,) = loss_tables(executions, "rmse")
+    assert [(r["execution"], r["family"]) for r in block["rows"] if r["best"]] == [(0, "l2")]
+    (block,) = loss_tables(executions, "balanced_accuracy")
+    assert [(r["execution"], r["family"]) for r in block["rows"] if r["best"]] == [(1, "l1")]
+
+
+# ------------------------------------------------------------------ from the store
+def test_compare_last_two_shows_both_executions_and_their_config_difference(store):  # noqa: F811
+    cwd = store["cwd"]
+    shutil.rmtree(cwd / "reports", ignore_errors=True)         # compare reads the store, not local reports
+    code, out, err = penduel(["compare", "--last", "2", "--tracking-uri", store["uri"]], cwd)
+    assert code == 0, err
+    first, second = (r["run_id"] for r in store["runs"])
+    assert out.splitlines()[:2] == [f"E1: {second}  tiny-bands", f"E2: {first}  tiny-bands"]  # newest first
+    page = htmllib.unescape(open(re.search(r"comparison: (\S+)", out).group(1), encoding="utf-8").read())
+    assert first in page and second in page
+    for setting, newest, oldest in [("selection.cv_folds", "4", "3"), ("selection.rule", '"one_se"', '"min"'),
+                                    ("losses[1].name", '"huber"', MISSING)]:
+        row = re.search(rf"<code>{re.escape(setting)}</code></th>(.*?)</tr>", page, re.S).group(1)
+        assert re.findall(r"<td><code>(.*?)</code></td>", row) == [newest, oldest]
+    assert "Loss: huber" in page and "Loss: squared" in page
+    assert "data hashes" not in page                              # same data: no warning
+    # The numbers shown are the stored metrics of every child run.
+    client = open_store(store["uri"])
+    for rid in (first, second):
+        parent = client.get_run(rid)
+        for child in client.search_runs([parent.info.experiment_id],
+                                        filter_string=f"tags.mlflow.parentRunId = '{rid}'"):
+            assert f"{child.data.metrics['test_rmse']:.4g} [{child.data.metrics['test_rmse_low']:.4g}, " in page
+
+
+def test_compare_selected_runs_keeps_their_order(store):  # noqa: F811
+    first, second = (r["run_id"] for r in store["runs"])
+    code, out, err = penduel(["compare", "--runs", first, second, "--tracking-uri", store["uri"]], store["cwd"])
+    assert code == 0, err
+    assert out.splitlines()[:2] == [f"E1: {first}  tiny-bands", f"E2: {second}  tiny-bands"]
+
+
+def test_compare_mistakes_exit_2(store):  # noqa: F811
+    client = open_store(store["uri"])
+    parent = client.get_run(store["runs"][0]["run_id"])
+    child = client.search_runs([parent.info.experiment_id],
+                               filter_string=f"tags.mlflow.parentRunId = '{parent.info.run_id}'")[0]
+    for args, needle in [(["--runs", child.info.run_id], "is a child run"),
+                         (["--experiment", "nothing-here"], "no experiment named"),
+                         (["--last", "0"], "--last must be 1 or more")]:
+        code, _, err = penduel(["compare", *args, "--tracking-uri", store["uri"]], store["cwd"])
+        assert code == 2 and needle in err and "Traceback" not in err, err
+
+
+def test_fit_row_reads_intervals_from_low_and_high_metrics():
+    from pipeline.compare import fit_row
+
+    child = SimpleNamespace(info=SimpleNamespace(run_id="r", status="FINISHED"), data=SimpleNamespace(
+        metrics={"test_rmse": 1.5, "test_rmse_low": 1.0, "test_rmse_high": 2.0, "n_nonzero": 3.0},
+        params={"family": "l1", "loss": "squared", "lambda_chosen": "0.25"},
+        tags={"penduel.family": "l1", "penduel.loss": "squared"}))
+    row = fit_row(child)
+    assert row["metrics"] == {"rmse": 1.5} and row["intervals"] == {"rmse": (1.0, 2.0)}
+    assert row["lambda_chosen"] == 0.25 and row["n_nonzero"] == 3.0 and row["stability"] is None

@@ -1,0 +1,154 @@
+"""What an execution leaves in the tracking store, and reports rendered again from the store alone.
+
+`two_executions()` (two runs of the tiny scenario with different configs in one store) is shared with
+test_compare.py, test_ui.py and test_browser.py, so the suite pays for the two runs once.
+"""
+from __future__ import annotations
+
+import atexit
+import contextlib
+import functools
+import io
+import os
+import pathlib
+import re
+import shutil
+import tempfile
+
+import pandas as pd
+import pytest
+import yaml
+
+from pipeline.cli import main
+from pipeline.tracking import open_store, read_payload
+
+from .conftest import CONFIGS
+
+
+def scratch_dir(prefix: str) -> pathlib.Path:
+    """A folder on tmpfs when there is one: an mlflow SQLite store on disk pays for every fsync."""
+    base = "/dev/shm" if os.path.isdir("/dev/shm") and os.access("/dev/shm", os.W_OK) else None
+    path = pathlib.Path(tempfile.mkdtemp(prefix=prefix, dir=base))
+    atexit.register(shutil.rmtree, path, True)
+    return path
+
+
+def penduel(args, cwd) -> tuple[int, str, str]:
+    """The command line in this process (imports are paid once per test session). mlflow keeps one
+    store per URI string in a process, so a run gets its folder's store by absolute path."""
+    args = [str(a) for a in args]
+    if args[0] == "run" and "--tracking-uri" not in args:
+        args += ["--tracking-uri", f"sqlite:///{pathlib.Path(cwd).resolve() / 'mlflow.db'}"]
+    out, err = io.StringIO(), io.StringIO()
+    old = os.getcwd()
+    os.chdir(cwd)
+    try:
+        with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+            code = main(args)
+    finally:
+        os.chdir(old)
+    return code, out.getvalue(), err.getvalue()
+
+
+@functools.lru_cache(maxsize=None)
+def two_executions() -> dict:
+    """E1: tests/configs/tiny.yaml; E2: the same data with 4 folds, the one-SE rule and a Huber loss."""
+    cwd = scratch_dir("penduel-store-")
+    base = yaml.safe_load((CONFIGS / "tiny.yaml").read_text())
+    base["stability"] = {"n_resamples": 10}
+    (cwd / "first.yaml").write_text(yaml.safe_dump(base))
+    second = dict(base, losses=["squared", "huber"], selection={"cv_folds": 4, "rule": "one_se"})
+    (cwd / "second.yaml").write_text(yaml.safe_dump(second))
+    runs = []
+    for name in ("first.yaml", "second.yaml"):
+        code, out, err = penduel(["run", name, "--quiet"], cwd)
+        assert code == 0, err
+        runs.append({"run_id": re.search(r"run id: ([0-9a-f]{32})", out).group(1),
+                     "report": pathlib.Path(re.search(r"report: (\S+)", out).group(1))})
+        runs[-1]["html"] = runs[-1]["report"].read_text(encoding="utf-8")
+    return {"cwd": cwd, "uri": f"sqlite:///{cwd / 'mlflow.db'}", "runs": runs}
+
+
+@pytest.fixture(scope="module")
+def store():
+    return two_executions()
+
+
+def _without_written_time(html: str) -> str:
+    return re.sub(r"<dt>Written</dt><dd>[^<]*</dd>", "", html)
+
+
+def test_report_latest_reproduces_the_original_report_from_the_store_alone(store):
+    cwd, last = store["cwd"], store["runs"][-1]
+    shutil.rmtree(cwd / "reports")                      # nothing local is left to copy from
+    code, out, err = penduel(["report", "--latest", "--tracking-uri", store["uri"]], cwd)
+    assert code == 0, err
+    assert f"run id: {last['run_id']}" in out
+    again = pathlib.Path(re.search(r"report: (\S+)", out).group(1)).read_text(encoding="utf-8")
+    # Every number, table and figure is the same; only the time of writing differs.
+    assert _without_written_time(again) == _without_written_time(last["html"])
+    code, out, _ = penduel(["report", store["runs"][0]["run_id"], "--tracking-uri", store["uri"]], cwd)
+    assert code == 0 and _without_written_time(pathlib.Path(re.search(r"report: (\S+)", out).group(1))
+                                               .read_text(encoding="utf-8")) == _without_written_time(
+        store["runs"][0]["html"])
+
+
+@pytest.mark.parametrize("args, needle", [
+    (["report"], "either a RUN_ID or --latest"),
+    (["report", "0" * 32], "is not in the tracking store"),
+    (["report", "--latest", "--experiment", "no-such-experiment"], "no experiment named"),
+])
+def test_report_mistakes_exit_2_with_one_paragraph(store, args, needle):
+    code, _, err = penduel([*args, "--tracking-uri", store["uri"]], store["cwd"])
+    assert code == 2 and needle in err and "Traceback" not in err
+
+
+def test_children_carry_artifacts_stepped_metrics_and_stability(store):
+    client = open_store(store["uri"])
+    parent = client.get_run(store["runs"][0]["run_id"])
+    assert parent.info.status == "FINISHED"
+    for tag in ("penduel.config_hash", "penduel.data_hash", "penduel.machine", "penduel.version.mlflow"):
+        assert parent.data.tags.get(tag)
+    assert {a.path for a in client.list_artifacts(parent.info.run_id)} >= {"config.yaml", "report_data.json",
+                                                                           "index.html"}
+    payload = read_payload(client, parent.info.run_id)
+    children = client.search_runs([parent.info.experiment_id],
+                                  filter_string=f"tags.mlflow.parentRunId = '{parent.info.run_id}'")
+    by_family = {c.data.params["family"]: c for c in children}
+    assert sorted(by_family) == ["l1", "l2"]
+    for child in children:
+        rid = child.info.run_id
+        assert child.info.status == "FINISHED"
+        assert {"cv_table.csv", "coefficients.csv", "config.yaml"} <= {a.path for a in client.list_artifacts(rid)}
+        assert [h.step for h in sorted(client.get_metric_history(rid, "cv_error"), key=lambda h: h.step)] \
+            == list(range(8))
+        m = child.data.metrics
+        assert m["stability_index_low"] <= m["stability_index"] <= m["stability_index_high"]
+    l1 = by_family["l1"]
+    probs = pd.read_csv(client.download_artifacts(l1.info.run_id, "selection_probabilities.csv",
+                                                  str(scratch_dir("penduel-art-"))))
+    assert len(probs) == int(parent.data.params["n_features_built"])
+    values = probs.drop(columns=["feature"]).to_numpy()
+    assert ((values >= 0) & (values <= 1)).all()
+    # 10 resamples: every probability is a count out of 10.
+    assert abs(values * 10 - (values * 10).round()).max() < 1e-9
+    chosen = int(payload["families"][0]["chosen_index"]) if payload["families"][0]["family"] == "l1" else \
+        int(payload["families"][1]["chosen_index"])
+    assert (probs["at_chosen_lambda"] == probs.iloc[:, 2 + chosen]).all()
+    # The same frequencies as the stability stage's own summary (computed there from the resampled fits).
+    freq = payload["stability"]["squared"]["frequency"]
+    lookup = dict(zip(probs["feature"], probs["at_chosen_lambda"]))
+    assert [round(lookup[n], 12) for n in freq["names"]] == [round(v, 12) for v in freq["l1"]]
+
+
+def test_failed_execution_is_marked_failed_with_its_error(tmp_path):
+    cwd = scratch_dir("penduel-fail-")
+    pd.DataFrame({"a": [1.0, 2.0, 3.0, 4.0], "b": [0.0, 1.0, 0.0, 1.0]}).to_csv(cwd / "t.csv", index=False)
+    (cwd / "bad.yaml").write_text("name: broken\ndata: {kind: csv, path: t.csv, target: nope}\n")
+    code, _, err = penduel(["run", "bad.yaml", "--quiet"], cwd)
+    assert code == 2 and "data.target" in err
+    client = open_store(f"sqlite:///{cwd / 'mlflow.db'}")
+    exp = client.get_experiment_by_name("broken")
+    (run,) = client.search_runs([exp.experiment_id])
+    assert run.info.status == "FAILED"
+    assert "nope" in run.data.tags["penduel.error"]
