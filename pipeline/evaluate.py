@@ -320,6 +320,9 @@ def bootstrap_metrics(y, pred, metrics, n_boot: int = 2000, level: float = 0.9, 
     """bootstrap_ci for several metrics at once, all on the same resampled rows
     (one index matrix), keyed by metric name."""
     metrics, y, (pred,), values, jack = _bootstrap(metrics, y, [pred], n_boot, level, rng, method)
+    names = [m.name for m in metrics]
+    if len(set(names)) < len(names):
+        raise ValueError(f"metric names must be distinct to key the result; got {names}")
     out = {}
     for m, v, j in zip(metrics, values, jack):
         est = m(y, pred)

@@ -308,6 +308,8 @@ def test_bootstrap_metrics_shares_resamples_across_metrics():
     assert list(many) == ["mae", "rmse", "pinball"]
     assert many["mae"] == bootstrap_ci(y, pred, "mae", n_boot=500, rng=np.random.default_rng(11))
     assert many["pinball"][0] == pytest.approx(skm.mean_pinball_loss(y, pred, alpha=0.9))
+    with pytest.raises(ValueError, match="distinct"):
+        bootstrap_metrics(y, pred, ["pinball", metric_function("pinball", tau=0.9)], rng=np.random.default_rng(0))
 
 
 def test_loss_metric_bootstraps_the_losses_own_objective():
