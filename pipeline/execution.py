@@ -12,6 +12,7 @@ import traceback
 from typing import Any, Callable, Iterator, Sequence
 
 import numpy as np
+import scipy.linalg  # noqa: F401  load SciPy's BLAS now so the per-task thread limit covers it
 from threadpoolctl import threadpool_limits
 from tqdm import tqdm
 
@@ -76,11 +77,13 @@ def _run_local(fn, tasks, shared, use_shared) -> Iterator[tuple[int, Any]]:
 
 
 def _run_processes(fn, tasks, shared, use_shared, n_jobs) -> Iterator[tuple[int, Any]]:
-    from joblib import Parallel, delayed
+    from joblib import Parallel, delayed, parallel_config
 
-    # loky keeps its worker pool alive between calls, so repeated stages pay start-up once.
-    parallel = Parallel(n_jobs=n_jobs, backend="loky", return_as="generator_unordered")
-    yield from parallel(delayed(_call)(fn, i, t, shared, use_shared) for i, t in enumerate(tasks))
+    # loky keeps its worker pool alive between calls, so repeated stages pay start-up once;
+    # one thread per worker from start-up on also covers libraries a task loads late.
+    with parallel_config(backend="loky", inner_max_num_threads=1):
+        parallel = Parallel(n_jobs=n_jobs, return_as="generator_unordered")
+        yield from parallel(delayed(_call)(fn, i, t, shared, use_shared) for i, t in enumerate(tasks))
 
 
 def _run_dask(fn, tasks, shared, use_shared, n_jobs, address) -> Iterator[tuple[int, Any]]:
