@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import pathlib
 import time
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -11,7 +12,7 @@ from sklearn.model_selection import train_test_split
 from . import seeds
 from .config import ExperimentSpec
 from .data import DataError, Dataset, load_dataset
-from .evaluate import (bootstrap_ci, classification_metrics, corrected_resampled_ttest, loss_metric,
+from .evaluate import (bootstrap_metrics, classification_metrics, corrected_resampled_ttest, loss_metric,
                        metric_function, regression_metrics)
 from .cache import cache_for, run_cached, task_keys
 from .execution import run_tasks
@@ -164,20 +165,22 @@ def plan_tasks(spec: ExperimentSpec, shared: Shared, train_rows, test_rows, spli
 
 
 def test_metrics(task: str, y, pred, loss, rng) -> tuple[dict, dict]:
-    """Held-out metrics at the chosen λ, each with a seeded 90 % bootstrap interval."""
+    """Held-out metrics at the chosen λ, each with a seeded 90 % bootstrap interval, all from the
+    same resampled rows. Classification adds the loss's own mean held-out value."""
     tau = getattr(loss, "tau", 0.5)
     metrics = regression_metrics(y, pred, tau=tau) if task == "regression" else classification_metrics(y, pred)
+    wanted = [metric_function(name, tau=tau) for name in metrics]
+    if task == "classification":  # regression losses are read on the fitting scale, see FitOutcome.eval_loss
+        wanted.append(loss_metric(loss))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # resamples where a metric is undefined are dropped
+        boot = bootstrap_metrics(y, pred, wanted, n_boot=1000, level=0.9, rng=rng)
     intervals = {}
-    for name in metrics:
-        try:
-            _, lo, hi = bootstrap_ci(y, pred, metric_function(name, tau=tau), n_boot=1000, level=0.9, rng=rng)
-        except ValueError:  # e.g. a resample with one class only for ROC AUC
-            lo, hi = float("nan"), float("nan")
-        intervals[name] = (float(lo), float(hi))
-    if task == "classification":  # the loss's own objective; regression losses are read on the fitting scale
-        own = loss_metric(loss)
-        metrics["own_loss"], lo, hi = bootstrap_ci(y, pred, own, n_boot=1000, level=0.9, rng=rng)
-        intervals["own_loss"] = (float(lo), float(hi))
+    for m in wanted:
+        key = "own_loss" if m.name not in metrics else m.name
+        est, lo, hi = boot[m.name]
+        metrics[key] = float(est)
+        intervals[key] = (float(lo), float(hi))
     return metrics, intervals
 
 
