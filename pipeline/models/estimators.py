@@ -124,3 +124,111 @@ class KernelL2Classifier(ClassifierMixin, _KernelL2Base):
         if scores.ndim == 1:
             return self.classes_[(scores > 0).astype(int)]
         return self.classes_[np.argmax(scores, axis=1)]
+
+
+# ---------------------------------------------------------------- L1 family
+DEFAULT_L1_FRACTION = 0.05   # lam = this fraction of lambda_max when lam is None
+
+
+class _SparseL1Base(BaseEstimator):
+    """Columns are standardised on the training rows; the penalty acts on that scale and
+    coef_ / intercept_ are reported on the input scale. l1_ratio is the elastic-net
+    mixing (alpha of the design notes): penalty l1_ratio*|b|_1 + (1-l1_ratio)/2*|b|^2."""
+    _allowed_task = "regression"
+
+    def _check_loss(self):
+        loss = get_loss(self.loss, **(self.loss_params or {}))
+        if loss.task != self._allowed_task:
+            raise ValueError(f"{type(self).__name__} takes a {self._allowed_task} loss; "
+                             f"{loss.name!r} is a {loss.task} loss")
+        if self.lam is not None and not self.lam >= 0:
+            raise ValueError(f"lam must be >= 0 or None, got {self.lam!r}")
+        if not 0 < self.l1_ratio <= 1:
+            raise ValueError(f"l1_ratio must be in (0, 1], got {self.l1_ratio!r}")
+        return loss
+
+    def _fit_targets(self, X, targets):
+        from pipeline.losses import lambda_max
+        from pipeline.models.l1 import fit_l1_path
+
+        loss = self._check_loss()
+        mean, scale = X.mean(axis=0), X.std(axis=0)
+        scale[scale == 0] = 1.0
+        Z = (X - mean) / scale
+        coefs, intercepts, gaps, lams = [], [], [], []
+        for t in targets.T:
+            top = lambda_max(Z, t, loss, self.l1_ratio) if Z.shape[1] else 0.0
+            lam = DEFAULT_L1_FRACTION * top if self.lam is None else float(self.lam)
+            # a short warm-start path from lambda_max makes the final fit cheap
+            grid = [lam] if top <= lam or lam == 0 else list(np.geomspace(top, lam, 6))
+            path = fit_l1_path(Z, t, loss, grid, alpha=self.l1_ratio, tol=self.tol, solver=self.solver)
+            w = path.coef[-1] / scale
+            coefs.append(w)
+            intercepts.append(path.intercept[-1] - w @ mean)
+            gaps.append(path.certificate[-1])
+            lams.append(lam)
+        self.lam_ = np.array(lams)
+        self.certificate_ = np.array(gaps)   # relative duality gap of each final fit
+        return np.array(coefs), np.array(intercepts)
+
+
+class SparseL1Regressor(RegressorMixin, _SparseL1Base):
+    """L1 / elastic-net regressor; losses squared, absolute, huber, quantile."""
+
+    def __init__(self, loss="squared", loss_params=None, lam=None, l1_ratio=1.0, tol=1e-7, solver="auto"):
+        self.loss = loss
+        self.loss_params = loss_params
+        self.lam = lam
+        self.l1_ratio = l1_ratio
+        self.tol = tol
+        self.solver = solver
+
+    def fit(self, X, y):
+        X, y = validate_data(self, X, y, y_numeric=True, dtype=float)
+        coefs, intercepts = self._fit_targets(X, y.reshape(-1, 1).astype(float))
+        self.coef_, self.intercept_ = coefs[0], float(intercepts[0])
+        return self
+
+    def predict(self, X):
+        check_is_fitted(self, "coef_")
+        X = validate_data(self, X, reset=False, dtype=float)
+        return X @ self.coef_ + self.intercept_
+
+
+class SparseL1Classifier(ClassifierMixin, _SparseL1Base):
+    """L1 / elastic-net classifier; losses logistic, hinge, squared_hinge.
+
+    Labels are mapped to {−1, +1} internally; more than two classes one versus rest.
+    """
+    _allowed_task = "classification"
+
+    def __init__(self, loss="logistic", loss_params=None, lam=None, l1_ratio=1.0, tol=1e-7, solver="auto"):
+        self.loss = loss
+        self.loss_params = loss_params
+        self.lam = lam
+        self.l1_ratio = l1_ratio
+        self.tol = tol
+        self.solver = solver
+
+    def fit(self, X, y):
+        X, y = validate_data(self, X, y, dtype=float)
+        check_classification_targets(y)
+        self.classes_, codes = np.unique(y, return_inverse=True)
+        if len(self.classes_) < 2:
+            raise ValueError(f"classification needs at least two classes; got 1 class, {self.classes_.tolist()}")
+        signs = np.where(codes[:, None] == np.arange(len(self.classes_))[None, :], 1.0, -1.0)
+        targets = signs[:, 1:] if len(self.classes_) == 2 else signs
+        self.coef_, self.intercept_ = self._fit_targets(X, targets)   # (k, p), (k,)
+        return self
+
+    def decision_function(self, X):
+        check_is_fitted(self, "coef_")
+        X = validate_data(self, X, reset=False, dtype=float)
+        scores = X @ self.coef_.T + self.intercept_
+        return scores[:, 0] if len(self.classes_) == 2 else scores
+
+    def predict(self, X):
+        scores = self.decision_function(X)
+        if scores.ndim == 1:
+            return self.classes_[(scores > 0).astype(int)]
+        return self.classes_[np.argmax(scores, axis=1)]
