@@ -139,7 +139,7 @@ def cmd_ui(args) -> int:
     uri = _store_uri(args)
     print(f"penduel: tracking UI for {uri} at http://{args.host}:{args.port} (Ctrl-C stops it)", file=sys.stderr)
     cmd = [sys.executable, "-m", "mlflow", "server", "--backend-store-uri", uri, "--host", args.host,
-           "--port", str(args.port)]
+           "--port", str(args.port), "--workers", str(args.workers)]
     try:
         return subprocess.call(cmd)
     except KeyboardInterrupt:
@@ -196,7 +196,8 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("ui", help="open the tracking UI on this machine")
     _store_options(p)
     p.add_argument("--host", default="127.0.0.1", help="address to bind (default 127.0.0.1, this machine only)")
-    p.add_argument("--port", type=int, default=5000)
+    p.add_argument("--port", type=int, default=5000, help="port to listen on (default 5000)")
+    p.add_argument("--workers", type=int, default=1, help="server worker processes (default 1: one user)")
     p.set_defaults(func=cmd_ui)
     p = sub.add_parser("scenarios", help="list the synthetic scenarios and their settings")
     p.set_defaults(func=cmd_scenarios)
