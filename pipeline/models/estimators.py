@@ -130,6 +130,16 @@ class KernelL2Classifier(ClassifierMixin, _KernelL2Base):
 DEFAULT_L1_FRACTION = 0.05   # lam = this fraction of lambda_max when lam is None
 
 
+def signed_targets(y):
+    """(classes, targets in {-1, +1}): one column for two classes, one per class (versus rest) beyond."""
+    check_classification_targets(y)
+    classes, codes = np.unique(y, return_inverse=True)
+    if len(classes) < 2:
+        raise ValueError(f"classification needs at least two classes; got 1 class, {classes.tolist()}")
+    signs = np.where(codes[:, None] == np.arange(len(classes))[None, :], 1.0, -1.0)
+    return classes, (signs[:, 1:] if len(classes) == 2 else signs)
+
+
 class _SparseL1Base(BaseEstimator):
     """Columns are standardised on the training rows; the penalty acts on that scale and
     coef_ / intercept_ are reported on the input scale. l1_ratio is the elastic-net
@@ -212,12 +222,7 @@ class SparseL1Classifier(ClassifierMixin, _SparseL1Base):
 
     def fit(self, X, y):
         X, y = validate_data(self, X, y, dtype=float)
-        check_classification_targets(y)
-        self.classes_, codes = np.unique(y, return_inverse=True)
-        if len(self.classes_) < 2:
-            raise ValueError(f"classification needs at least two classes; got 1 class, {self.classes_.tolist()}")
-        signs = np.where(codes[:, None] == np.arange(len(self.classes_))[None, :], 1.0, -1.0)
-        targets = signs[:, 1:] if len(self.classes_) == 2 else signs
+        self.classes_, targets = signed_targets(y)
         self.coef_, self.intercept_ = self._fit_targets(X, targets)   # (k, p), (k,)
         return self
 
