@@ -5,6 +5,7 @@ BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed
 CONFIG ?= configs/demo.yaml
 PORT   ?= 5000
+LAST   ?= 5
 
 .PHONY: run test test-all bench ui report compare validate clean
 
@@ -29,6 +30,12 @@ bench: $(STAMP)  ## side-by-side benchmarks; writes reports/bench/results.json
 
 validate: $(STAMP)
 	$(BIN)/penduel validate $(CONFIG)
+
+report: $(STAMP)  ## write a report again from the tracking store: RUN=<run id>, else the latest execution
+	$(BIN)/penduel report $(if $(RUN),$(RUN),--latest) --config $(CONFIG)
+
+compare: $(STAMP)  ## compare executions from the store: RUNS="id1 id2", else the newest LAST=5 (EXPERIMENT=... to narrow)
+	$(BIN)/penduel compare $(if $(RUNS),--runs $(RUNS),--last $(LAST)) $(if $(EXPERIMENT),--experiment $(EXPERIMENT)) --config $(CONFIG)
 
 ui: $(STAMP)  ## tracking UI on http://127.0.0.1:$(PORT)
 	$(BIN)/penduel ui --config $(CONFIG) --port $(PORT)
