@@ -73,6 +73,11 @@ def predict_path(path: L1Path, X) -> np.ndarray:
 def _route(loss: Loss, alpha: float, solver: str) -> str:
     if solver not in SOLVERS:
         raise ValueError(f"unknown solver '{solver}': valid are {', '.join(SOLVERS)}")
+    if solver == "highs" and (loss.smooth or alpha < 1.0):
+        raise ValueError("solver 'highs' (split LP) handles absolute, quantile and hinge "
+                         "losses with alpha = 1 only")
+    if solver == "osqp" and loss.name != "squared":
+        raise ValueError("solver 'osqp' (Gram form) handles the squared loss only")
     if solver not in ("auto", "active_set"):
         return solver
     if loss.name == "squared":
@@ -87,7 +92,7 @@ def _solve_restricted(route, XW, y, lam, alpha, loss, warm, tol):
         if loss.name != "squared":
             raise ValueError("solver 'osqp' (Gram form) handles the squared loss only")
         return rs.solve_squared_gram(XW, y, lam, alpha, warm=warm, tol=min(tol, 1e-7) * 1e-2)
-    if route == "highs":
+    if route == "highs":  # validation only: the path keeps a warm LP (see _PathFitter)
         if loss.smooth or alpha < 1.0:
             raise ValueError("solver 'highs' (split LP) handles absolute, quantile and hinge "
                              "losses with alpha = 1 only")
@@ -111,6 +116,7 @@ class _PathFitter:
         self.grad = X.T @ self.dual / self.n
         self.prev_lam = None
         self.solver_used = set()
+        self.lp = None
 
     def seed(self, lam) -> np.ndarray:
         active = np.flatnonzero(self.coef)
@@ -125,8 +131,14 @@ class _PathFitter:
         coef = np.zeros(self.p)
         if W.size == 0:
             return coef, loss.intercept_only(y), intercept_only_dual(X, y, loss), "optimal"
-        XW = X[:, W]
-        res = _solve_restricted(self.route, XW, y, lam, alpha, loss, self.coef[W], self.tol)
+        if self.route == "highs":  # one LP kept warm along the path
+            if self.lp is None:
+                self.lp = rs.WarmSplitLP(X, y, loss)
+            W, res = self.lp.solve(W, lam)
+            XW = X[:, W]
+        else:
+            XW = X[:, W]
+            res = _solve_restricted(self.route, XW, y, lam, alpha, loss, self.coef[W], self.tol)
         self.solver_used.add(res.solver)
         gradW = XW.T @ res.dual / self.n
         cw = cert.zero_by_optimality(res.coef, gradW, lam, alpha)

@@ -147,3 +147,77 @@ def solve_cvxpy(XW, y, lam, alpha, loss: Loss, warm=None, tol=1e-9, backends=Non
         # stationarity in z: (1/n) loss'(z) + dual = 0 with cvxpy's sign for equalities
         dual = np.clip(-n * np.asarray(link.dual_value, float), *loss.dual_bounds(y))
     return Restricted(coef, icpt, dual, "optimal" if status == "optimal" else str(status), used)
+
+
+class WarmSplitLP:
+    """The split LP of `solve_piecewise_lp` kept alive along a path in HiGHS.
+
+    Rows and residual columns are built once; feature columns (b+_j, b-_j) are added
+    when a feature first joins the working set, and only their cost lam changes
+    between lambdas, so every solve starts from the previous optimal basis.
+    """
+
+    def __init__(self, X, y, loss: Loss):
+        import highspy
+
+        self.X, self.y, self.loss = X, y, loss
+        n = X.shape[0]
+        self.n = n
+        self.cols: list[int] = []          # features present, in column order
+        self.h = highspy.Highs()
+        self.h.setOptionValue("output_flag", False)
+        self.h.setOptionValue("solver", "simplex")
+        inf = highspy.kHighsInf
+        if loss.task == "regression":
+            above, below = loss._weights
+            rhs, cost_pos, cost_neg = y, above / n, below / n
+            self.col_b = np.ones(n)
+            self.sign = np.ones(n)
+        else:
+            rhs, cost_pos, cost_neg = np.ones(n), 1.0 / n, 0.0
+            self.col_b = y.copy()
+            self.sign = y.copy()           # rows are y_i * f_i
+        self.h.addRows(n, rhs, rhs, 0, np.zeros(1, np.int32), np.zeros(0, np.int32), np.zeros(0))
+        rows = np.arange(n, dtype=np.int32)
+        # intercept (free), then r+ (or xi), then r- (or surplus s)
+        self.h.addCols(1, np.zeros(1), np.array([-inf]), np.array([inf]), n,
+                       np.zeros(1, np.int32), rows, self.col_b)
+        starts = np.arange(n, dtype=np.int32)
+        self.h.addCols(n, np.full(n, cost_pos), np.zeros(n), np.full(n, inf), n, starts, rows, np.ones(n))
+        self.h.addCols(n, np.full(n, cost_neg), np.zeros(n), np.full(n, inf), n, starts, rows, -np.ones(n))
+        self.base = 1 + 2 * n
+
+    def _add(self, new):
+        import highspy
+
+        n, k = self.n, len(new)
+        block = self.X[:, new] * self.sign[:, None]                  # (n, k)
+        vals = np.stack([block.T, -block.T], axis=1).reshape(-1)     # b+_j, b-_j per feature
+        rows = np.tile(np.arange(n, dtype=np.int32), 2 * k)
+        starts = (np.arange(2 * k) * n).astype(np.int32)
+        self.h.addCols(2 * k, np.zeros(2 * k), np.zeros(2 * k), np.full(2 * k, highspy.kHighsInf),
+                       2 * k * n, starts, rows, vals)
+        self.cols.extend(int(j) for j in new)
+
+    def solve(self, W, lam) -> tuple[np.ndarray, Restricted]:
+        """Solve on the features present plus W; returns (feature indices, result)."""
+        present = set(self.cols)
+        new = [int(j) for j in W if int(j) not in present]
+        if new:
+            self._add(new)
+        k = len(self.cols)
+        idx = np.arange(self.base, self.base + 2 * k, dtype=np.int32)
+        self.h.changeColsCost(2 * k, idx, np.full(2 * k, float(lam)))
+        self.h.run()
+        status = self.h.modelStatusToString(self.h.getModelStatus())
+        cols = np.array(self.cols, int)
+        if status != "Optimal":
+            return cols, Restricted(np.zeros(k), 0.0, np.zeros(self.n), f"HiGHS: {status}", "HiGHS-warm")
+        sol = self.h.getSolution()
+        x = np.asarray(sol.col_value)
+        pairs = x[self.base:self.base + 2 * k].reshape(k, 2)
+        coef, b0 = pairs[:, 0] - pairs[:, 1], float(x[0])
+        # row duals: d objective / d rhs, as in solve_piecewise_lp
+        mu = self.n * np.asarray(sol.row_dual)
+        lo, hi = self.loss.subgradient_interval(self.y, self.X[:, cols] @ coef + b0)
+        return cols, Restricted(coef, b0, np.clip(-mu * self.sign, lo, hi), "optimal", "HiGHS-warm")
