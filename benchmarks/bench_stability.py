@@ -15,7 +15,6 @@ import numpy as np
 from sklearn.linear_model import lasso_path
 
 from benchmarks.harness import timed_pair
-from pipeline.execution import run_tasks
 from pipeline.resampling import resample_fits, resample_indices
 from pipeline.stability import selection_probabilities
 
@@ -66,26 +65,22 @@ def fit_sklearn_lasso(X, y, lambdas):
     return _to_original_scale(coefs.T, y.mean(), mean, scale)
 
 
-def _fit_rows(rows, data):
-    X, y, fit = data
-    return fit(X[rows], y[rows])
-
-
 def bench_resampling_two_workers():
     X, y = _problem()
     fit = functools.partial(fit_project_l1, lambdas=_grid(X, y))
     resamples = resample_indices(N, "subsample", 100, rng=np.random.SeedSequence(1))
 
     def stage(n_jobs):
-        return run_tasks(_fit_rows, resamples, backend="processes" if n_jobs > 1 else "local",
-                         n_jobs=n_jobs, shared=(X, y, fit))
+        return resample_fits(fit, X, y, resamples, backend="processes" if n_jobs > 1 else "local",
+                             n_jobs=n_jobs)
 
     load_before = os.getloadavg()[0]   # other work on the machine distorts a parallel speed-up
     start = time.perf_counter()
     stage(2)                      # first call starts the loky workers; later calls reuse them
     cold = time.perf_counter() - start
     one, two = stage(1), stage(2)
-    identical = all(a[0].tobytes() == b[0].tobytes() for a, b in zip(one, two))
+    identical = all(getattr(one, k).tobytes() == getattr(two, k).tobytes()
+                    for k in ("coefs", "intercepts", "predictions"))
     return [timed_pair("resampling_two_workers", lambda: stage(2), "same stage on one process",
                        lambda: stage(1), goal="ratio >= 1.7 (2 workers vs 1, 100 L1 path fits)",
                        repeats=3, min_ratio=1.7,
@@ -107,7 +102,7 @@ def bench_stability_l1_vs_lasso_path_loop():
     def reference():
         results["ref"] = np.stack([fit_sklearn_lasso(X[rows], y[rows], lambdas)[0] for rows in resamples])
 
-    run_tasks(_fit_rows, resamples[:2], backend="processes", n_jobs=2, shared=(X, y, ours_fit))  # warm pool
+    resample_fits(ours_fit, X, y, resamples[:2], backend="processes", n_jobs=2)  # warm the pool
     start = time.perf_counter()
     resample_fits(ours_fit, X, y, resamples)
     ours_one_process = time.perf_counter() - start

@@ -9,6 +9,7 @@ from dataclasses import dataclass
 from typing import Any, Callable
 
 import numpy as np
+from scipy import sparse
 
 from pipeline.execution import run_tasks
 
@@ -114,7 +115,13 @@ def _fit_one(task: _FitTask, data):
     coef, intercept = task.fit(X[task.rows], y[task.rows])
     coef = np.atleast_2d(np.asarray(coef, dtype=float))
     intercept = np.atleast_1d(np.asarray(intercept, dtype=float))
-    return coef, intercept, intercept[:, None] + coef @ X.T
+    if np.count_nonzero(coef) < 0.25 * coef.size:
+        coef = sparse.csr_matrix(coef)  # sparse paths travel back from workers several times smaller
+    return coef, intercept, intercept[:, None] + np.asarray(coef @ X.T)
+
+
+def _dense(coef) -> np.ndarray:
+    return coef.toarray() if sparse.issparse(coef) else coef
 
 
 def resample_fits(fit: Callable, X: np.ndarray, y: np.ndarray, resamples: list[np.ndarray], *,
@@ -131,7 +138,7 @@ def resample_fits(fit: Callable, X: np.ndarray, y: np.ndarray, resamples: list[n
     tasks = [_FitTask(fit, np.asarray(rows)) for rows in resamples]
     out = run_tasks(_fit_one, tasks, backend=backend, n_jobs=n_jobs, progress=progress,
                     scheduler_address=scheduler_address, shared=(X, y))
-    coefs = np.stack([o[0] for o in out])
+    coefs = np.stack([_dense(o[0]) for o in out])
     intercepts = np.stack([o[1] for o in out])
     predictions = np.stack([o[2] for o in out])
     predictions = np.where(in_fit_mask(X.shape[0], resamples)[:, None, :], np.nan, predictions)
