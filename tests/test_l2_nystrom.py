@@ -50,3 +50,31 @@ def test_gap_report_shrinks_with_more_landmarks():
     assert few["subsample"] == many["subsample"] == 300
     assert abs(many["relative_gap"]) < abs(few["relative_gap"])
     assert abs(many["relative_gap"]) < 0.02
+
+
+@pytest.mark.parametrize("loss", ["logistic", "hinge"])
+def test_other_losses_with_all_rows_as_landmarks_match_the_exact_route(loss):
+    X, y = _data(n=80, seed=2)
+    labels = np.where(y > np.median(y), 1.0, -1.0)
+    lambdas = np.array([1e-1, 1e-2])
+    K = gram(X, kernel="rbf", bandwidth=1.0)
+    exact = fit_l2_path(K, labels, loss, lambdas)
+    ny = fit_nystrom_path(X, labels, "rbf", lambdas, n_landmarks=80, loss=loss, bandwidth=1.0)
+    assert ny.path.converged.all() and ny.path.loo_error is None
+    Xt = np.random.default_rng(4).normal(size=(25, 3))
+    np.testing.assert_allclose(ny.predict(Xt), predict_path(exact, gram(Xt, X, "rbf", bandwidth=1.0)),
+                               atol=1e-5)
+
+
+def test_route_switches_past_the_size_limit_and_says_so():
+    from pipeline.models.l2_route import fit_l2_rows
+    X, y = _data(n=300, seed=5)
+    lambdas = np.array([1e-2])
+    exact = fit_l2_rows(X, y, "squared", lambdas, kernel="rbf", max_exact_n=300)
+    low = fit_l2_rows(X, y, "squared", lambdas, kernel="rbf", max_exact_n=299, n_landmarks=120)
+    assert exact.route == "exact" and exact.note == ""
+    assert low.route == "nystrom" and "exceeds the exact-route limit 299" in low.note
+    assert low.basis_rows.shape == (120, 3)
+    Xt = X[:40]
+    # Low rank (m = 120 of 300) on a smooth target at moderate λ: close, not equal.
+    np.testing.assert_allclose(low.predict(Xt), exact.predict(Xt), atol=1e-3)

@@ -160,3 +160,21 @@ def test_intercept_absorbs_shifts_of_y_and_constant_kernel_offsets(shift, const,
     np.testing.assert_allclose(predict_path(moved, K + const)[0], fitted + shift,
                                rtol=1e-7, atol=1e-7 * (1 + abs(shift)))
     np.testing.assert_allclose(moved.effective_df, base.effective_df, rtol=1e-7)
+
+
+def test_kfold_errors_equal_brute_force_refits_per_fold():
+    # Brute force: refit on each training fold, score ½(y − f)² on its held-out fold.
+    # (The per-fold fit itself is checked against scikit-learn above.)
+    from sklearn.model_selection import KFold
+    from pipeline.models.l2 import kfold_errors
+    X, y, _ = _data(n=60, seed=8)
+    K = gram(X, kernel="rbf", bandwidth=1.0)
+    folds = list(KFold(4, shuffle=True, random_state=0).split(X))
+    lambdas = np.array([1e-1, 1e-3])
+    table = kfold_errors(K, y, "squared", lambdas, folds)
+    assert table.shape == (4, 2)
+    for i, (tr, va) in enumerate(folds):
+        for j, lam in enumerate(lambdas):
+            sub = fit_l2_path(K[np.ix_(tr, tr)], y[tr], "squared", [lam])
+            f = predict_path(sub, K[np.ix_(va, tr)])[0]
+            assert table[i, j] == pytest.approx(np.mean(0.5 * (y[va] - f) ** 2), rel=1e-12)

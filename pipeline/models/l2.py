@@ -15,7 +15,7 @@ from pipeline.models.l2_path import L2Path
 from pipeline.models.l2_squared import squared_path, squared_primal_path
 
 __all__ = ["L2Path", "KernelEigen", "kernel_eigen", "l2_lambda_grid", "fit_l2_path",
-           "fit_l2_primal_path", "predict_path", "predict_rows", "primal_weights", "loss_name"]
+           "fit_l2_primal_path", "predict_path", "predict_rows", "kfold_errors", "primal_weights", "loss_name"]
 
 # Blocks of test rows in prediction: memory stays at block × n floats.
 PREDICT_BLOCK_ROWS = 4096
@@ -120,3 +120,22 @@ def predict_rows(path: L2Path, X_test, X_train, kernel: str, block_rows: int = P
 def primal_weights(path: L2Path, Phi_train) -> np.ndarray:
     """w = Φᵀc (L, p) for an explicit-feature kernel K = ΦΦᵀ; f = b + Φw."""
     return path.dual_coef @ np.asarray(Phi_train, dtype=float)
+
+
+def kfold_errors(K, y, loss, lambdas, folds) -> np.ndarray:
+    """Held-out mean loss, one row per (train_idx, val_idx) fold, one column per λ.
+
+    Each fold fits on its own sub-Gram K[train, train] (one decomposition per fold)
+    and predicts with K[val, train]; the table feeds pipeline.selection directly.
+    """
+    from pipeline.losses import get_loss
+    K = np.asarray(K, dtype=float)
+    y = np.asarray(y, dtype=float)
+    lo = get_loss(loss)
+    table = np.empty((len(folds), len(lambdas)))
+    for i, (tr, va) in enumerate(folds):
+        path = fit_l2_path(K[np.ix_(tr, tr)], y[tr], lo, lambdas, on_psd_fail="warn")
+        pred = predict_path(path, K[np.ix_(va, tr)])
+        table[i] = [np.mean(lo.value(y[va], f)) if ok else np.nan
+                    for f, ok in zip(pred, path.converged)]
+    return table

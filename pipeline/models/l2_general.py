@@ -136,28 +136,38 @@ def _nonsmooth_path(loss, y, G, lambdas, solver, solver_opts, with_intercept):
     return out
 
 
-def general_path(eig: KernelEigen, y, loss, lambdas, *, tol: float = 1e-12, max_iter: int = 100,
-                 solver: str = "CLARABEL", solver_opts: dict | None = None,
-                 rank_tol: float = RANK_TOL) -> L2Path:
-    start = time.perf_counter()
+def solve_in_basis(G, y, loss, lambdas, with_intercept: bool, *, tol: float = 1e-12,
+                   max_iter: int = 100, solver: str = "CLARABEL", solver_opts: dict | None = None):
+    """min (1/n) Σ loss(y, b + Gβ) + (λ/2)‖β‖² along the path, for any basis G (n × r).
+
+    Returns (b (L,), β (L, r), effective df (L,), converged (L,), status, df_kind).
+    """
     loss = get_loss(loss)
-    G, U_r, sq = _reduced_basis(eig, rank_tol)
     if loss.smooth:
-        rows = _smooth_path(loss, y, G, lambdas, tol, max_iter, eig.centred)
+        rows = _smooth_path(loss, y, G, lambdas, tol, max_iter, with_intercept)
         df_kind = "trace of the linearised hat matrix at the optimum, minus the intercept"
     else:
         if solver_opts is None:
             solver_opts = CLARABEL_TIGHT if solver == "CLARABEL" else {}
-        rows = _nonsmooth_path(loss, y, G, lambdas, solver, solver_opts, eig.centred)
+        rows = _nonsmooth_path(loss, y, G, lambdas, solver, solver_opts, with_intercept)
         df_kind = "training points on the loss kink (elbow), minus the intercept"
     theta = np.array([row[0] for row in rows])
-    b, beta = (theta[:, 0], theta[:, 1:]) if eig.centred else (np.zeros(len(rows)), theta)
+    b, beta = (theta[:, 0], theta[:, 1:]) if with_intercept else (np.zeros(len(rows)), theta)
+    return (b, beta, np.array([row[1] for row in rows]), np.array([row[2] for row in rows]),
+            tuple(row[3] for row in rows), df_kind)
+
+
+def general_path(eig: KernelEigen, y, loss, lambdas, *, rank_tol: float = RANK_TOL,
+                 **solve_options) -> L2Path:
+    start = time.perf_counter()
+    loss = get_loss(loss)
+    G, U_r, sq = _reduced_basis(eig, rank_tol)
+    b, beta, df, ok, status, df_kind = solve_in_basis(G, y, loss, lambdas, eig.centred,
+                                                      **solve_options)
     C = (beta / sq[None, :]) @ U_r.T               # c = U_r D_r^{-1/2} β
     if eig.centred:
         C -= C.mean(axis=1, keepdims=True)         # exact c ⟂ 1 (see l2_squared)
     return L2Path(lambdas=np.asarray(lambdas, float), dual_coef=C,
-                  intercept=b - eig.intercept_shift(C),
-                  effective_df=np.array([row[1] for row in rows]), loo_error=None, gcv=None,
-                  converged=np.array([row[2] for row in rows]),
-                  status=tuple(row[3] for row in rows), fit_seconds=time.perf_counter() - start,
+                  intercept=b - eig.intercept_shift(C), effective_df=df, loo_error=None,
+                  gcv=None, converged=ok, status=status, fit_seconds=time.perf_counter() - start,
                   loss=loss.name, df_kind=df_kind, psd_ratio=eig.psd.ratio)
