@@ -171,3 +171,31 @@ def bench_l1_quantile_vs_quantileregressor():
                all_converged=bool(path.converged.all()))
     rec["met"] = bool(rec["ratio"] >= 3 and path.converged.all())
     return [rec]
+
+
+def bench_l1_screening_strong_vs_active():
+    """Which working-set seed is faster per loss: the sequential strong rule (ours here) or
+    the previous active set plus the worst violators (the 'reference' column). n=300, p=3000."""
+    records = []
+    for name, task in [("squared", "regression"), ("huber", "regression"), ("quantile", "regression"),
+                       ("absolute", "regression"), ("logistic", "classification"),
+                       ("hinge", "classification"), ("squared_hinge", "classification")]:
+        X, y = _design(300, 3000, task, seed=1)
+        loss = get_loss(name)
+        lams = default_lambdas(X, y, loss, N_LAMBDAS, RATIO)
+        out = {}
+
+        def strong():
+            out["strong"] = fit_l1_path(X, y, loss, lams, screening="strong")
+
+        def active():
+            out["active"] = fit_l1_path(X, y, loss, lams, screening="active")
+
+        rec = timed_pair(f"l1_screening_{name}", strong, "previous active set + violators", active,
+                         goal="information: ratio > 1 means the strong rule is faster", repeats=1)
+        rec.update(route=out["strong"].solver,
+                   same_objective=bool(np.allclose(out["strong"].objective, out["active"].objective,
+                                                   rtol=1e-7)),
+                   both_converged=bool(out["strong"].converged.all() and out["active"].converged.all()))
+        records.append(rec)
+    return records

@@ -143,3 +143,18 @@ def test_bad_inputs():
         fit_l1_path(X, y, "squared", [0.1], solver="nope")
     with pytest.raises(ValueError, match="alpha"):
         fit_l1_path(X, y, "squared", [0.1], alpha=0.0)
+
+
+def test_degrees_of_freedom():
+    from pipeline.models.l1 import degrees_of_freedom
+
+    X, y = _problem("regression", n=100, p=20, seed=6)
+    lams = default_lambdas(X, y, "squared", 5, 0.05)
+    lasso = fit_l1_path(X, y, "squared", lams)
+    np.testing.assert_array_equal(degrees_of_freedom(lasso, X), lasso.n_nonzero)
+    enet = fit_l1_path(X, y, "squared", lams / 0.5, alpha=0.5)
+    df = degrees_of_freedom(enet, X)
+    assert np.all(df <= enet.n_nonzero + 1e-12) and np.all(df[enet.n_nonzero > 0] < enet.n_nonzero[enet.n_nonzero > 0])
+    # the ridge part vanishes as lambda*(1-alpha) -> 0: the trace tends to the support size
+    near = fit_l1_path(X, y, "squared", [1e-6], alpha=0.5)
+    assert degrees_of_freedom(near, X)[0] == pytest.approx(near.n_nonzero[0], rel=1e-4)

@@ -247,3 +247,26 @@ def default_lambdas(X, y, loss, n_lambdas=30, ratio=0.01, alpha=1.0) -> np.ndarr
     loss = get_loss(loss) if isinstance(loss, str) else loss
     lam_max = lambda_max(X, y, loss, alpha)
     return lambda_grid(lam_max if lam_max > 0 else 1.0, n_lambdas, ratio)
+
+
+def degrees_of_freedom(path: L1Path, X) -> np.ndarray:
+    """Effective degrees of freedom per lambda (intercept not counted).
+
+    Lasso: the number of nonzeros (Zou, Hastie & Tibshirani 2007, Annals of Statistics 35(5)).
+    Elastic net, squared loss: tr(X_S (X_S'X_S + n lam (1-alpha) I)^{-1} X_S') on centred
+    columns of the support S (Zou & Hastie 2005, JRSS-B 67(2)). Other losses with alpha < 1
+    get the nonzero count as an upper bound.
+    """
+    if path.alpha >= 1.0 or path.loss != "squared":
+        return path.n_nonzero.astype(float)
+    X = np.asarray(X, float)
+    Xc = X - X.mean(axis=0)
+    n = X.shape[0]
+    out = np.zeros(path.lambdas.size)
+    for i, (lam, row) in enumerate(zip(path.lambdas, path.coef)):
+        S = np.flatnonzero(row)
+        if S.size:
+            G = Xc[:, S].T @ Xc[:, S]
+            ridge = n * lam * (1 - path.alpha)
+            out[i] = float(np.trace(np.linalg.solve(G + ridge * np.eye(S.size), G)))
+    return out
