@@ -35,7 +35,7 @@ def _post(base, path, body):
         return json.load(r)
 
 
-@pytest.fixture
+@pytest.fixture(scope="module")
 def server(store):  # noqa: F811
     port = free_port()
     proc = subprocess.Popen([sys.executable, "-m", "pipeline.cli", "ui", "--tracking-uri", store["uri"],
@@ -90,3 +90,16 @@ def test_ui_binds_loopback_by_default_and_takes_a_port():
 
     args = build_parser().parse_args(["ui", "--port", "5055"])
     assert args.host == "127.0.0.1" and args.port == 5055
+
+
+def test_report_and_compare_through_the_tracking_server(server, store):  # noqa: F811
+    from .test_tracking_store import _without_written_time, penduel
+
+    code, out, err = penduel(["compare", "--last", "2", "--tracking-uri", server], store["cwd"])
+    assert code == 0, err
+    assert {line.split()[1] for line in out.splitlines()[:2]} == {r["run_id"] for r in store["runs"]}
+    first = store["runs"][0]
+    code, out, err = penduel(["report", first["run_id"], "--tracking-uri", server], store["cwd"])
+    assert code == 0, err
+    again = open(out.split("report: ", 1)[1].split()[0], encoding="utf-8").read()
+    assert _without_written_time(again) == _without_written_time(first["html"])
