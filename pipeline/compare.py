@@ -8,6 +8,7 @@ from __future__ import annotations
 import json
 import math
 
+from .evaluate import _winner
 from .tracking import StoreError, child_runs, execution_runs, read_config, read_payload
 
 PRIMARY = {"regression": "rmse", "classification": "balanced_accuracy"}
@@ -64,6 +65,20 @@ def fit_row(child) -> dict:
     }
 
 
+def stored_verdicts(payload: dict) -> dict:
+    """Loss label → the execution's own paired L1 − L2 verdict: its sentence and which family won."""
+    lower = payload.get("primary_lower_is_better", True)
+    out = {}
+    for v in payload.get("verdicts", []):
+        if v.get("low") is None or v.get("high") is None:
+            won = "not compared"
+        else:
+            w = _winner(v["low"], v["high"], lower)
+            won = "no clear winner" if w is None else ("sparse (L1)", "ridge-type (L2)")[w]
+        out[v["loss"]] = {"sentence": v["sentence"], "winner": won}
+    return out
+
+
 def gather(client, experiment: str | None = None, run_ids=(), last: int | None = None) -> list[dict]:
     """The chosen executions with their fits, configs and (when stored) verdict sentences."""
     parents = execution_runs(client, experiment, run_ids, last)
@@ -75,7 +90,7 @@ def gather(client, experiment: str | None = None, run_ids=(), last: int | None =
     for run in parents:
         tags = run.data.tags
         try:
-            verdicts = {v["loss"]: v["sentence"] for v in read_payload(client, run.info.run_id).get("verdicts", [])}
+            verdicts = stored_verdicts(read_payload(client, run.info.run_id))
         except StoreError:      # a failed or killed execution has no report data
             verdicts = {}
         executions.append({
@@ -116,7 +131,9 @@ def loss_tables(executions: list[dict], primary: str) -> list[dict]:
         for r in rows:
             r["best"] = r is best
         out.append({"loss": label, "rows": rows,
-                    "verdicts": [(i, e["verdicts"][label]) for i, e in enumerate(executions) if label in e["verdicts"]]})
+                    "verdicts": [(i, e["verdicts"][label]["sentence"]) for i, e in enumerate(executions)
+                                 if label in e["verdicts"]],
+                    "winners": [e["verdicts"].get(label, {}).get("winner", "not fitted") for e in executions]})
     return out
 
 

@@ -49,6 +49,17 @@ def test_differences_are_exactly_the_unequal_flat_settings(a, b):
     assert config_differences([b, a]) == [{"setting": r["setting"], "values": r["values"][::-1]} for r in rows]
 
 
+def test_stored_verdict_winner_follows_the_interval_and_the_direction():
+    from pipeline.compare import stored_verdicts
+
+    rows = [{"loss": "a", "sentence": "s", "low": 0.1, "high": 0.3}, {"loss": "b", "sentence": "s", "low": -0.2,
+            "high": 0.1}, {"loss": "c", "sentence": "s", "low": None, "high": None}]
+    # diff = L1 − L2 > 0 everywhere in the interval: L1's error is higher, so L2 wins when lower is better.
+    assert {k: v["winner"] for k, v in stored_verdicts({"primary_lower_is_better": True, "verdicts": rows}).items()} \
+        == {"a": "ridge-type (L2)", "b": "no clear winner", "c": "not compared"}
+    assert stored_verdicts({"primary_lower_is_better": False, "verdicts": rows})["a"]["winner"] == "sparse (L1)"
+
+
 def _fit(family, loss, value):
     return {"family": family, "loss": loss, "metrics": {"rmse": value, "balanced_accuracy": value},
             "intervals": {}, **{k: None for k in ("n_nonzero", "effective_df", "fit_seconds", "cv_seconds",
@@ -80,6 +91,12 @@ def test_compare_last_two_shows_both_executions_and_their_config_difference(stor
         row = re.search(rf"<code>{re.escape(setting)}</code></th>(.*?)</tr>", page, re.S).group(1)
         assert re.findall(r"<td><code>(.*?)</code></td>", row) == [newest, oldest]
     assert "Loss: huber" in page and "Loss: squared" in page
+    winners = page.split('id="winners"', 1)[1].split("</table>", 1)[0]
+    huber = re.search(r'<th scope="row">huber_delta1</th>(.*?)</tr>', winners, re.S).group(1)
+    assert re.findall(r"<td>(.*?)</td>", huber)[1] == "not fitted"        # E2 (the first run) had no Huber loss
+    squared = re.findall(r"<td>(.*?)</td>", re.search(r'<th scope="row">squared</th>(.*?)</tr>', winners, re.S)
+                         .group(1))
+    assert set(squared[:2]) <= {"sparse (L1)", "ridge-type (L2)", "no clear winner"}
     assert "data hashes" not in page                              # same data: no warning
     # The numbers shown are the stored metrics of every child run.
     client = open_store(store["uri"])

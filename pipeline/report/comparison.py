@@ -41,7 +41,10 @@ def render_comparison(p: dict) -> str:
                   for lab, e in zip(labels, p["executions"])]
     blocks = [{"loss": b["loss"], "rows": [_row(r, labels[r["execution"]]) for r in b["rows"]],
                "plot": across_executions(b, labels, p["primary"]),
-               "verdicts": [(labels[i], s) for i, s in b["verdicts"]]} for b in p["losses"]]
+               "verdicts": [(labels[i], s) for i, s in b["verdicts"]], "winners": b["winners"],
+               "best": next(({"execution": labels[r["execution"]], "family": _row(r, "")["family"],
+                              "value": _interval(r["value"], r["low"], r["high"])} for r in b["rows"] if r["best"]),
+                            None)} for b in p["losses"]]
     css = (resources.files("pipeline.report") / "templates" / "report.css").read_text(encoding="utf-8")
     return _env().get_template("comparison.html").render(
         executions=executions, labels=labels, blocks=blocks, differences=p["differences"],
