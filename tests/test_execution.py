@@ -82,10 +82,16 @@ def test_shared_data_reaches_every_task(backend):
     assert run_tasks(_with_shared, [0, 3], backend=backend, n_jobs=2, shared=shared) == [3.0, 30.0]
 
 
-def test_progress_bar_counts_tasks(capsys):
-    run_tasks(_square, list(range(5)), progress="fits")
+@pytest.mark.parametrize("backend", ["local", "processes"])
+def test_progress_bar_counts_tasks(capsys, backend):
+    run_tasks(_square, list(range(5)), backend=backend, n_jobs=2, progress="fits")
     err = capsys.readouterr().err
     assert "fits" in err and "5/5" in err
+
+
+def test_no_progress_bar_without_a_description(capsys):
+    run_tasks(_square, list(range(5)))
+    assert capsys.readouterr().err == ""
 
 
 def test_task_seeds_are_reproducible_and_distinct():
@@ -111,11 +117,13 @@ def _assert_bit_identical(reference, other):
         assert coef_a.tobytes() == coef_b.tobytes()
 
 
-def test_local_processes_and_dask_give_identical_results():
+def test_local_processes_and_dask_give_identical_results(capsys):
     seeds = task_seeds(np.random.SeedSequence(2024), 6)
     local = run_tasks(_subsample_lasso, seeds)
     processes = run_tasks(_subsample_lasso, seeds, backend="processes", n_jobs=2)
-    dask_fresh = run_tasks(_subsample_lasso, seeds, backend="dask", n_jobs=2, progress="dask")
+    dask_fresh = run_tasks(_subsample_lasso, seeds, backend="dask", n_jobs=2, progress="dask fits")
+    err = capsys.readouterr().err
+    assert "dask fits" in err and "6/6" in err
     _assert_bit_identical(local, processes)
     _assert_bit_identical(local, dask_fresh)
     # the task results must actually differ between seeds, or the comparison proves little
