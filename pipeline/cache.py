@@ -15,6 +15,7 @@ import json
 import os
 import pathlib
 import tempfile
+import zipfile
 from importlib import metadata
 from typing import Any, Callable
 
@@ -109,7 +110,7 @@ class TaskCache:
                 return decode(self.result_type, {k: data[k] for k in data.files})
         except FileNotFoundError:
             return None
-        except (OSError, ValueError, KeyError, TypeError, json.JSONDecodeError):
+        except (OSError, ValueError, KeyError, TypeError, EOFError, zipfile.BadZipFile):
             path.unlink(missing_ok=True)   # unreadable entry: drop it and fit again
             return None
 

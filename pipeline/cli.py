@@ -2,8 +2,10 @@
 from __future__ import annotations
 
 import argparse
+import contextlib
 import os
 import pathlib
+import signal
 import sys
 import textwrap
 import time
@@ -13,6 +15,10 @@ from .config import ConfigError, load_config
 from .data import DataError
 
 EXIT_USER_ERROR = 2
+
+
+def _interrupt(signum, frame):
+    raise KeyboardInterrupt
 
 
 def _fail(message: str) -> int:
@@ -208,10 +214,33 @@ def main(argv: list[str] | None = None) -> int:
     warnings.filterwarnings("ignore", category=FutureWarning)
     os.environ.setdefault("PYTHONWARNINGS", "ignore::FutureWarning")
     args = build_parser().parse_args(argv)
+    # SIGTERM (e.g. a job scheduler's stop) closes the run as KILLED, like Ctrl-C.
+    with _sigterm_as_interrupt():
+        return _dispatch(args)
+
+
+@contextlib.contextmanager
+def _sigterm_as_interrupt():
+    try:
+        previous = signal.signal(signal.SIGTERM, _interrupt)
+    except ValueError:   # not the main thread: signals cannot be handled here
+        yield
+        return
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
+def _dispatch(args) -> int:
     try:
         return args.func(args)
     except (ConfigError, DataError) as exc:
         return _fail(str(exc))
+    except MemoryError as exc:
+        return _fail(f"ran out of memory ({exc or 'no detail'}). Use fewer rows, features (features.maps) or "
+                     f"λ values, lower features.memory_budget_mib so the size check refuses it before "
+                     f"starting, or run on a larger machine; finished fits are kept in the cache.")
     except KeyboardInterrupt:
         print("penduel: interrupted; the tracking run is marked KILLED.", file=sys.stderr)
         return 130

@@ -114,7 +114,8 @@ class L1Spec(_Strict):
     n_lambdas: int = Field(30, ge=2, le=500, description="Points on the λ path.")
     lambda_ratio: float = Field(0.01, gt=0.0, lt=1.0, description="Smallest λ as a fraction of λ_max.")
     tol: float = Field(1e-7, gt=0.0, lt=1.0, description="Optimality tolerance of each fit.")
-    solver: str = Field("auto", description="Solver back-end ('auto' picks per loss).")
+    solver: Literal["auto", "active_set", "osqp", "highs", "cvxpy"] = Field(
+        "auto", description="Solver back-end ('auto' picks per loss).")
 
 
 class L2Spec(_Strict):
@@ -271,6 +272,12 @@ class ExperimentSpec(_Strict):
         if len(tasks) > 1:
             raise ValueError("losses mix regression losses (squared, absolute, huber, quantile) with "
                              "classification losses (logistic, hinge, squared_hinge); list one kind")
+        if self.data.kind == "scenario":   # checked before the rows are drawn
+            mib = self.data.n_samples * self.data.n_features * 8 / 2**20
+            if mib > self.features.memory_budget_mib:
+                raise ValueError(f"data: a scenario of {self.data.n_samples} rows × {self.data.n_features} "
+                                 f"columns needs about {mib:,.0f} MiB, over features.memory_budget_mib = "
+                                 f"{self.features.memory_budget_mib}; use fewer rows or columns")
         return self
 
     @property
@@ -315,11 +322,18 @@ def _format_validation(err: ValidationError, source: str) -> str:
         if e["type"] == "missing":
             parts.append(f"field '{loc}' is required but missing.")
             continue
+        if e["type"] == "value_error" and (not loc or isinstance(e["input"], dict)):   # a rule across settings
+            parts.append(f"{loc + ': ' if loc else ''}{(e.get('ctx') or {}).get('error', e['msg'])}.")
+            continue
         hint = ""
         if e["type"] == "literal_error":
             expected = (e.get("ctx") or {}).get("expected", "")
             choices = [c.strip().strip("'") for c in expected.replace(" or ", ",").split(",") if c.strip()]
             hint = _closest(e["input"], choices)
+        if e["type"] == "union_tag_invalid":   # an unknown kind: of a data source or a feature map
+            ctx = e.get("ctx") or {}
+            choices = [c.strip().strip("'") for c in str(ctx.get("expected_tags", "")).split(",")]
+            hint = _closest(ctx.get("tag", ""), choices)
         parts.append(f"field '{loc}' has value {_describe(e['input'])}; {_allowed(e)}.{hint}")
     more = len(err.errors()) - 5
     if more > 0:

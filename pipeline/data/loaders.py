@@ -31,6 +31,8 @@ def load_dataset(source, base_dir: pathlib.Path, task: str) -> Dataset:
 
 
 def _read_table(path: pathlib.Path, kind: str) -> pd.DataFrame:
+    if path.is_dir():
+        raise DataError(f"data.path: '{path}' is a folder; give the path of a {kind.upper()} file.")
     if not path.is_file():
         raise DataError(f"data.path: file '{path}' not found. Give a path relative to the config file's "
                         f"folder or an absolute path.")
@@ -96,7 +98,21 @@ def _target(y_raw: pd.Series, target: str, task: str, source: str):
         row = int(np.flatnonzero(~np.isfinite(y))[0])
         raise DataError(f"data.target: column '{target}' has value {y[row]} at data row {row}; only finite "
                         f"numbers are allowed.")
+    _check_spread(y[:, None], [target], source, "data.target: column")
+    if np.ptp(y) == 0:
+        raise DataError(f"data.target: column '{target}' has the same value {y[0]:g} in every row of {source}; "
+                        f"there is nothing to predict.")
     return y, None
+
+
+def _check_spread(X: np.ndarray, names, source: str, what: str) -> None:
+    """Values so large that their variance overflows double precision break every later stage."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        bad = ~np.isfinite(X.std(axis=0))
+    if bad.any():
+        j = int(np.flatnonzero(bad)[0])
+        raise DataError(f"{what} '{names[j]}' of {source} has values as large as {np.abs(X[:, j]).max():.3g}, "
+                        f"whose spread overflows double precision; rescale it (e.g. to other units) first.")
 
 
 def _features(frame: pd.DataFrame, source: str, notes: list[str]):
@@ -129,6 +145,7 @@ def _features(frame: pd.DataFrame, source: str, notes: list[str]):
         notes.append(f"text column '{col}' one-hot encoded into {len(levels) - 1} column(s), "
                      f"reference level {levels[0]!r}")
     X = np.hstack(blocks)
+    _check_spread(X, names, source, "data: feature column")
     constant = np.ptp(X, axis=0) == 0
     if constant.all():
         raise DataError(f"data: every feature column of {source} is constant; nothing can be learned.")
