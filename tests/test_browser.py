@@ -159,6 +159,12 @@ def check_page(url: str, shot: str) -> dict:
         }
         page.screenshot(SCREENSHOTS / shot)
         found["pdf"] = page.pdf()
+        # Printed on A4 (794 CSS px wide): nothing runs off the page's right edge.
+        page.call("Emulation.setEmulatedMedia", media="print")
+        page.call("Emulation.setDeviceMetricsOverride", width=794, height=1123, deviceScaleFactor=1, mobile=False)
+        found["print_overflow"] = page.evaluate(
+            "[...document.querySelectorAll('table, figure, img, pre')].filter(e => e.getBoundingClientRect().right"
+            " > document.documentElement.clientWidth + 1).map(e => e.tagName).slice(0, 5)")
     return found
 
 
@@ -169,6 +175,7 @@ def assert_clean(found: dict) -> None:
     assert found["images"] > 0 and found["images_without_alt"] == 0 and found["images_broken"] == 0
     assert found["tables_without_headers"] == 0
     assert found["pdf"].startswith(b"%PDF")
+    assert found["print_overflow"] == []
 
 
 @needs_chromium
