@@ -212,6 +212,13 @@ def test_markup_in_column_names_runs_no_script():
     assert_clean(found)
     # The markup is shown as text, so escaping (not only the page's script policy) did its job.
     assert HOSTILE in found["text"] and "<b>target</b>" in found["text"]
+    run_id = re.search(r"run id: ([0-9a-f]{32})", out).group(1)
+    code, out, err = penduel(["compare", "--runs", run_id, "--tracking-uri",
+                              f"sqlite:///{cwd / 'mlflow.db'}"], cwd)
+    assert code == 0, err
+    found = check_page(pathlib.Path(re.search(r"comparison: (\S+)", out).group(1)).as_uri(), "hostile-comparison.png")
+    assert_clean(found)
+    assert "hostile" in found["text"]
 
 
 @needs_chromium
