@@ -229,3 +229,62 @@ def test_failed_solver_on_one_fit_is_recorded_and_the_run_goes_on(tmp_path, stor
     table = pd.read_csv(client.download_artifacts(child.info.run_id, "cv_table.csv", str(tmp_path)))
     assert table["status"].str.contains("solver gave up (injected)", regex=False).any()
     assert "solver gave up (injected)" in pathlib.Path(report).read_text(encoding="utf-8")
+
+
+# ---------------------------------------------------------------- hostile inputs
+def test_yaml_tags_that_run_code_are_refused(tmp_path):
+    marker = tmp_path / "pwned"
+    config = tmp_path / "experiment.yaml"
+    config.write_text(f"name: !!python/object/apply:os.system ['touch {marker}']\n", encoding="utf-8")
+    code, stderr = _in_process(["validate", config])
+    assert code == 2 and "Traceback" not in stderr and "line 1" in stderr
+    assert not marker.exists()
+
+
+class _Trap:
+    """Unpickling this would create a file: proof that a cache file was unpickled."""
+    def __init__(self, path):
+        self.path = str(path)
+
+    def __reduce__(self):
+        return (pathlib.Path.touch, (pathlib.Path(self.path),))
+
+
+def test_a_planted_pickle_in_the_cache_is_never_unpickled(tmp_path):
+    from pipeline.cache import TaskCache
+    from pipeline.fitting import FitOutcome
+    marker = tmp_path / "unpickled"
+    cache = TaskCache(tmp_path / "cache", FitOutcome)
+    path = cache.path("ab" * 32)
+    path.parent.mkdir(parents=True)
+    np.savez(path, eval_loss=np.array([_Trap(marker)], dtype=object))   # np.savez pickles object arrays
+    assert cache.get("ab" * 32) is None
+    assert not marker.exists() and not path.exists()
+
+
+def test_tracking_ui_binds_to_this_machine_unless_told(monkeypatch):
+    import subprocess as sp
+    calls = []
+    monkeypatch.setattr(sp, "call", lambda cmd: calls.append(cmd) or 0)
+    assert _in_process(["ui", "--tracking-uri", "sqlite:///x.db"])[0] == 0
+    assert _in_process(["ui", "--tracking-uri", "sqlite:///x.db", "--host", "0.0.0.0"])[0] == 0
+    hosts = [cmd[cmd.index("--host") + 1] for cmd in calls]
+    assert hosts == ["127.0.0.1", "0.0.0.0"]
+
+
+def test_report_escapes_user_strings(tmp_path, store, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    script = "<script>alert(1)</script>"
+    frame = _frame(n=40).rename(columns={"a": f"a{script}", "y": "<b>y</b>"})
+    frame["colour"] = ["<i>red</i>", "blue"] * 20
+    (tmp_path / "data.csv").write_text(_csv(frame), encoding="utf-8")
+    config = _file_config(target="'<b>y</b>'") + "description: '<img src=x onerror=alert(2)>'\n"
+    (tmp_path / "experiment.yaml").write_text(config, encoding="utf-8")
+    out = io.StringIO()
+    with redirect_stdout(out), redirect_stderr(io.StringIO()):
+        assert main(["run", "experiment.yaml", "--quiet", "--tracking-uri", store]) == 0
+    html = pathlib.Path(re.search(r"report: (\S+)", out.getvalue()).group(1)).read_text(encoding="utf-8")
+    for raw in (script, "<img src=x", "<b>y</b>", "<i>red</i>"):
+        assert raw not in html
+    assert "&lt;img src=x onerror=alert(2)&gt;" in html
+    assert "&lt;b&gt;y&lt;/b&gt;" in html
