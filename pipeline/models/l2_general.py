@@ -31,6 +31,7 @@ from pipeline.models.l2_path import L2Path
 
 RANK_TOL = 1e-10
 # Tighter than CLARABEL's defaults (1e-8): the elbow count and reference agreement need it.
+DROP_TOL = 1e-10
 CLARABEL_TIGHT = {"tol_gap_abs": 1e-11, "tol_gap_rel": 1e-11, "tol_feas": 1e-11, "tol_ktratio": 1e-9}
 
 
@@ -53,19 +54,25 @@ def _objective(loss, y, A, pen, theta, lam):
     return float(np.mean(loss.value(y, f)) + 0.5 * lam * (pen * theta) @ theta), f
 
 
+def _hessian(loss, y, A, pen, f, lam):
+    n = A.shape[0]
+    M = (A.T * (loss.second_derivative(y, f) / n)) @ A
+    # the tiny unpenalised-intercept term: Huber / squared hinge can lose all curvature
+    ridge = lam * pen + 1e-12 * (1.0 - pen) * (1.0 + np.diag(M))
+    return M, scipy.linalg.cho_factor(M + np.diag(ridge), check_finite=False), ridge
+
+
 def _newton(loss, y, A, pen, theta, lam, tol, max_iter):
-    """Damped Newton with Armijo backtracking; returns (θ, converged, iterations, AᵀWA)."""
+    """Damped Newton with Armijo backtracking; returns (θ, converged, iterations, df)."""
     n, q = A.shape
     obj, f = _objective(loss, y, A, pen, theta, lam)
     for it in range(1, max_iter + 1):
         grad = A.T @ (loss.derivative(y, f) / n) + lam * pen * theta
-        M = (A.T * (loss.second_derivative(y, f) / n)) @ A
-        Hs = M + np.diag(lam * pen + 1e-12 * (1.0 - pen) * (1.0 + np.diag(M)))
-        # (the tiny unpenalised-intercept term: Huber / squared hinge can lose all curvature)
-        step = scipy.linalg.solve(Hs, grad, assume_a="pos", check_finite=False)
+        M, chol, ridge = _hessian(loss, y, A, pen, f, lam)
+        step = scipy.linalg.cho_solve(chol, grad, check_finite=False)
         decrement = float(grad @ step)
         if 0.5 * decrement <= tol * max(1.0, abs(obj)):
-            return theta, True, it, M
+            return theta, True, it, _linearised_df(chol, ridge, pen)
         t = 1.0
         while True:
             new_theta = theta - t * step
@@ -74,30 +81,46 @@ def _newton(loss, y, A, pen, theta, lam, tol, max_iter):
                 break
             t *= 0.5
         if new_obj > obj:
-            return theta, False, it, M
+            return theta, False, it, _linearised_df(chol, ridge, pen)
         theta, obj, f = new_theta, new_obj, new_f
-    return theta, False, max_iter, M
+    M, chol, ridge = _hessian(loss, y, A, pen, f, lam)
+    return theta, False, max_iter, _linearised_df(chol, ridge, pen)
 
 
-def _linearised_df(M, lam, pen):
-    A = M + np.diag(lam * pen + 1e-12 * (1.0 - pen) * (1.0 + np.diag(M)))
-    return float(np.trace(scipy.linalg.solve(A, M, assume_a="pos", check_finite=False))
-                 - np.sum(pen == 0))
+def _linearised_df(chol, ridge, pen):
+    """tr[(M + R)⁻¹M] − (#unpenalised) = q − Σ Rᵢᵢ [(M + R)⁻¹]ᵢᵢ − (#unpenalised)."""
+    inv, info = scipy.linalg.lapack.dpotri(chol[0], lower=chol[1])
+    if info != 0:
+        raise np.linalg.LinAlgError(f"dpotri failed with info={info}")
+    return float(len(ridge) - ridge @ np.diag(inv) - np.sum(pen == 0))
 
 
-def _smooth_path(loss, y, G, lambdas, tol, max_iter, with_intercept):
+def _smooth_path(loss, y, G, lambdas, tol, max_iter, with_intercept, col_scale=None,
+                 drop_tol=DROP_TOL):
+    """Warm-started Newton along the path.
+
+    With ``col_scale`` (the eigenvalue dⱼ behind each column of G = U D^{1/2}) the
+    directions with dⱼ ≤ drop_tol·nλ are left out at that λ: at the optimum such a
+    direction moves f by at most (dⱼ/(nλ))·‖loss'‖, i.e. by a drop_tol fraction.
+    """
     A, pen = _design(G, with_intercept)
-    start = np.zeros(A.shape[1])
+    n, q = A.shape
+    start = np.zeros(q)
     if with_intercept:
         start[0] = loss.intercept_only(y)
+    scale = None if col_scale is None else (np.r_[np.inf, col_scale] if with_intercept else col_scale)
     theta, out = start.copy(), []
     for lam in lambdas:
+        active = np.arange(q) if scale is None else np.flatnonzero(scale > drop_tol * n * lam)
         try:
-            theta, ok, it, M = _newton(loss, y, A, pen, theta, lam, tol, max_iter)
-            out.append((theta.copy(), _linearised_df(M, lam, pen), ok,
-                        f"{'optimal' if ok else 'not converged'} (Newton, {it} iterations)"))
+            sub, ok, it, df = _newton(loss, y, A[:, active], pen[active], theta[active], lam, tol,
+                                      max_iter)
+            theta = np.zeros(q)
+            theta[active] = sub
+            out.append((theta.copy(), df, ok, f"{'optimal' if ok else 'not converged'} "
+                                              f"(Newton, {it} iterations, {len(active)} directions)"))
         except (np.linalg.LinAlgError, ValueError, FloatingPointError) as exc:
-            out.append((np.full(A.shape[1], np.nan), np.nan, False, f"failed: {exc}"))
+            out.append((np.full(q, np.nan), np.nan, False, f"failed: {exc}"))
             theta = start.copy()
     return out
 
@@ -137,14 +160,15 @@ def _nonsmooth_path(loss, y, G, lambdas, solver, solver_opts, with_intercept):
 
 
 def solve_in_basis(G, y, loss, lambdas, with_intercept: bool, *, tol: float = 1e-12,
-                   max_iter: int = 100, solver: str = "CLARABEL", solver_opts: dict | None = None):
+                   max_iter: int = 100, solver: str = "CLARABEL", solver_opts: dict | None = None,
+                   col_scale=None):
     """min (1/n) Σ loss(y, b + Gβ) + (λ/2)‖β‖² along the path, for any basis G (n × r).
 
     Returns (b (L,), β (L, r), effective df (L,), converged (L,), status, df_kind).
     """
     loss = get_loss(loss)
     if loss.smooth:
-        rows = _smooth_path(loss, y, G, lambdas, tol, max_iter, with_intercept)
+        rows = _smooth_path(loss, y, G, lambdas, tol, max_iter, with_intercept, col_scale)
         df_kind = "trace of the linearised hat matrix at the optimum, minus the intercept"
     else:
         if solver_opts is None:
@@ -163,7 +187,7 @@ def general_path(eig: KernelEigen, y, loss, lambdas, *, rank_tol: float = RANK_T
     loss = get_loss(loss)
     G, U_r, sq = _reduced_basis(eig, rank_tol)
     b, beta, df, ok, status, df_kind = solve_in_basis(G, y, loss, lambdas, eig.centred,
-                                                      **solve_options)
+                                                      col_scale=sq**2, **solve_options)
     C = (beta / sq[None, :]) @ U_r.T               # c = U_r D_r^{-1/2} β
     if eig.centred:
         C -= C.mean(axis=1, keepdims=True)         # exact c ⟂ 1 (see l2_squared)
