@@ -202,6 +202,8 @@ def random_fourier_blocks(n_features_in: int, n_components: int, bandwidth: floa
 def psd_from_eigenvalues(eigenvalues, tol: float = 1e-8, on_fail: str = "raise",
                          asymmetry: float = 0.0) -> PSDReport:
     """PSD verdict from already computed eigenvalues (the L2 path has them anyway)."""
+    if on_fail not in ("raise", "warn", "ignore"):
+        raise ValueError(f"on_fail must be 'raise', 'warn' or 'ignore', got {on_fail!r}")
     ev = np.asarray(eigenvalues, dtype=float)
     lo, hi = float(ev.min()), float(ev.max())
     ratio = lo / hi if hi > 0 else (0.0 if lo == 0 else -np.inf)
@@ -220,8 +222,6 @@ def psd_check(K, tol: float = 1e-8, on_fail: str = "raise") -> PSDReport:
     ``on_fail`` is ``"raise"`` (KernelNotPSDError giving the value), ``"warn"`` or
     ``"ignore"``. The check is of ratio = λ_min / λ_max ≥ −tol.
     """
-    if on_fail not in ("raise", "warn", "ignore"):
-        raise ValueError(f"on_fail must be 'raise', 'warn' or 'ignore', got {on_fail!r}")
     K = np.asarray(K, dtype=float)
     if K.ndim != 2 or K.shape[0] != K.shape[1]:
         raise ValueError(f"a Gram matrix must be square, got shape {K.shape}")

@@ -178,3 +178,16 @@ def test_kfold_errors_equal_brute_force_refits_per_fold():
             sub = fit_l2_path(K[np.ix_(tr, tr)], y[tr], "squared", [lam])
             f = predict_path(sub, K[np.ix_(va, tr)])[0]
             assert table[i, j] == pytest.approx(np.mean(0.5 * (y[va] - f) ** 2), rel=1e-12)
+
+
+def test_fit_stops_on_a_non_psd_gram_unless_asked_to_warn():
+    from pipeline.kernels import KernelNotPSDError
+    rng = np.random.default_rng(10)
+    A = rng.normal(size=(30, 30))
+    bad = A + A.T                         # symmetric, indefinite
+    y = rng.normal(size=30)
+    with pytest.raises(KernelNotPSDError, match="smallest/largest eigenvalue ratio"):
+        fit_l2_path(bad, y, "squared", [1e-1])
+    with pytest.warns(RuntimeWarning):
+        path = fit_l2_path(bad, y, "squared", [1e-1], on_psd_fail="warn")
+    assert path.psd_ratio < 0
