@@ -110,7 +110,7 @@ class GramCache:
             return np.linalg.lstsq(H, rhs, rcond=None)[0]
 
 
-def refine(X, y, coef, intercept, lam, alpha, loss: Loss, max_iter=100, add_per_round=10,
+def refine(X, y, coef, intercept, lam, alpha, loss: Loss, max_iter=300, add_per_round=10,
            tol=1e-9, gram: GramCache | None = None) -> Refined:
     """Active-set refinement over the columns of X, starting from (coef, intercept).
 
@@ -133,7 +133,7 @@ def refine(X, y, coef, intercept, lam, alpha, loss: Loss, max_iter=100, add_per_
         if flips.size:
             # go as far as the first sign change, and drop that coordinate
             cur, tgt = theta0[1:][flips], target[1:][flips]
-            ratios = np.where(cur != tgt, cur / (cur - tgt), 0.0)
+            ratios = np.divide(cur, cur - tgt, out=np.zeros_like(cur), where=cur != tgt)
             gamma = float(np.clip(ratios.min(), 0.0, 1.0))
             theta = theta0 + gamma * (target - theta0)
             coef[S], b0 = theta[1:], float(theta[0])
