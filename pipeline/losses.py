@@ -178,7 +178,8 @@ class AbsoluteLoss(QuantileLoss):
     """|y - f|: the pinball loss with both slopes 1."""
 
     def __post_init__(self):
-        object.__setattr__(self, "tau", 0.5)
+        if self.tau != 0.5:
+            raise ValueError("the absolute loss takes no tau; use the quantile loss")
         super().__post_init__()
         object.__setattr__(self, "name", "absolute")
 

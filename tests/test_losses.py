@@ -33,6 +33,8 @@ def test_unknown_name_lists_valid_and_closest():
         get_loss("quantile", tau=1.5)
     with pytest.raises(ValueError):
         get_loss("squared", delta=2.0)
+    with pytest.raises(ValueError):
+        get_loss("absolute", tau=0.3)
 
 
 def test_squared_is_half_square():
