@@ -44,7 +44,10 @@ def orthant_newton(XS, y, theta, signs, lam, alpha, loss: Loss, max_iter=50):
         g = A.T @ loss.derivative(y, f) / n + lin + reg * theta
         if np.max(np.abs(g)) <= 1e-15 * max(1.0, l1, float(np.max(np.abs(A.T @ y))) / n):
             break
-        H = (A * loss.second_derivative(y, f)[:, None]).T @ A / n + np.diag(reg)
+        h = loss.second_derivative(y, f)
+        rows = h > 0  # Huber / squared hinge: rows on linear pieces add nothing
+        Ar = A[rows]
+        H = (Ar * h[rows, None]).T @ Ar / n + np.diag(reg)
         H[np.diag_indices_from(H)] += 1e-13 * max(1.0, np.trace(H) / H.shape[0])
         try:
             step = np.linalg.solve(H, g)
