@@ -92,7 +92,30 @@ class RandomFourierMap(_Strict):
         return v
 
 
-FeatureMap = Annotated[Union[IdentityMap, PolynomialMap, RandomFourierMap], Field(discriminator="kind")]
+class SplineMap(_Strict):
+    kind: Literal["spline"] = Field(description="B-spline basis of each standardised input, knots at quantiles.")
+    n_knots: int = Field(6, ge=2, le=200, description="Knots per input column.")
+    degree: int = Field(3, ge=1, le=5, description="Spline degree.")
+
+
+class RandomReLUMap(_Strict):
+    kind: Literal["random_relu"] = Field(description="max(0, ωᵀx + b) with random Gaussian ω, b.")
+    n_components: int = Field(500, ge=1, le=5_000_000, description="Number of random features.")
+
+
+class KernelDictionaryMap(_Strict):
+    kind: Literal["kernel_dictionary"] = Field(
+        description="Columns k(x, z_j) at training rows or k-means centres: the sparse counterpart of the "
+                    "representer form.")
+    kernel: Literal["rbf", "laplacian", "matern12", "matern32", "matern52", "polynomial", "linear"] = Field(
+        "rbf", description="Kernel of the dictionary columns.")
+    n_centres: int | None = Field(None, ge=1, description="Number of centres; none uses every training row.")
+    centres: Literal["rows", "kmeans"] = Field("rows", description="Centres at training rows or k-means centres.")
+    bandwidth: float | None = Field(None, gt=0.0, description="Kernel length scale; none uses the median distance.")
+
+
+FeatureMap = Annotated[Union[IdentityMap, PolynomialMap, RandomFourierMap, SplineMap, RandomReLUMap,
+                             KernelDictionaryMap], Field(discriminator="kind")]
 
 
 class FeaturesSpec(_Strict):

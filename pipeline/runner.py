@@ -76,7 +76,7 @@ class ExperimentResult:
 
 
 def check_feature_budget(spec: ExperimentSpec, dataset: Dataset, n_train: int) -> int:
-    width = sum(output_width(m, dataset.n_features) for m in spec.features.maps)
+    width = sum(output_width(m, dataset.n_features, n_train) for m in spec.features.maps)
     mib = n_train * width * 8 * 3 / 2**20   # Z, its raw copy and the scaler's work space
     if mib > spec.features.memory_budget_mib:
         raise DataError(

@@ -49,3 +49,11 @@ def test_random_fourier_is_seeded():
     c = FeatureBuilder(maps, seed=10).fit(X).transform(X)
     np.testing.assert_array_equal(a, b)
     assert not np.allclose(a, c)
+
+
+def test_extra_maps_are_configurable_and_their_width_is_known_beforehand():
+    maps = _maps({"kind": "spline", "n_knots": 4}, {"kind": "random_relu", "n_components": 9},
+                 {"kind": "kernel_dictionary", "n_centres": 5, "centres": "kmeans"})
+    X = np.random.default_rng(4).normal(size=(40, 3))
+    Z = FeatureBuilder(maps, seed=2).fit(X).transform(X)
+    assert Z.shape == (40, sum(output_width(m, 3, 40) for m in maps)) == (40, 3 * 6 + 9 + 5)

@@ -32,7 +32,7 @@ register_map("polynomial", lambda spec, seed: PolynomialTerms(spec.degree, spec.
 register_map("random_fourier", lambda spec, seed: RandomFourier(spec.n_components, spec.bandwidth, seed))
 
 
-def output_width(spec, n_inputs: int) -> int:
+def output_width(spec, n_inputs: int, n_rows: int | None = None) -> int:
     """Columns a map will produce, known before building it (for the memory estimate)."""
     if spec.kind == "identity":
         return n_inputs
@@ -43,6 +43,10 @@ def output_width(spec, n_inputs: int) -> int:
         return sum(comb(n_inputs + d - 1, d) for d in range(2, spec.degree + 1))
     if spec.kind == "random_fourier":
         return spec.n_components
+    if spec.kind == "spline":
+        return n_inputs * (spec.n_knots + spec.degree - 1)
+    if spec.kind == "kernel_dictionary":
+        return spec.n_centres or n_rows or n_inputs
     return getattr(spec, "n_components", n_inputs)
 
 
@@ -90,3 +94,5 @@ class FeatureBuilder(TransformerMixin, BaseEstimator):
         coef = np.asarray(coef, dtype=float)
         w = coef / scale
         return w, np.asarray(intercept, dtype=float) - w @ mean
+
+from . import extra  # noqa: E402,F401  (registers spline, random_relu, kernel_dictionary)
