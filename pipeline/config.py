@@ -139,6 +139,8 @@ class L1Spec(_Strict):
     tol: float = Field(1e-7, gt=0.0, lt=1.0, description="Optimality tolerance of each fit.")
     solver: Literal["auto", "active_set", "osqp", "highs", "cvxpy"] = Field(
         "auto", description="Solver back-end ('auto' picks per loss).")
+    alpha: float = Field(1.0, gt=0.0, le=1.0, description="Elastic-net mixing: penalty α‖w‖₁ + (1−α)/2‖w‖²₂; "
+                                                          "1 is the lasso.")
 
 
 class L2Spec(_Strict):

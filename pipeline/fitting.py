@@ -92,15 +92,18 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
     t_tr, t_ev = (y_tr - center) / scale, (y_ev - center) / scale
     start = time.perf_counter()
     if task.family == "l1":
-        from .models.l1 import fit_l1_path, predict_path
+        from .models.l1 import degrees_of_freedom, fit_l1_path, predict_path
         path = fit_l1_path(Z_tr, t_tr, loss, task.lambdas, **shared.l1_options)
         f_ev = predict_path(path, Z_ev)
         coef, intercept = path.coef, path.intercept
-        nnz, df = path.n_nonzero, path.n_nonzero.astype(float)
+        nnz = path.n_nonzero
+        df = path.n_nonzero.astype(float) if shared.l1_options.get("alpha", 1.0) == 1.0 else \
+            degrees_of_freedom(path, Z_tr)
         cert, cert_kind, solver = path.certificate, path.certificate_kind, path.solver
         converged, status = path.converged, path.status
         loo, gcv = None, None
-        df_kind = "number of nonzero coefficients"
+        df_kind = "number of nonzero coefficients" if shared.l1_options.get("alpha", 1.0) == 1.0 else \
+            "elastic-net trace on the support (squared loss; nonzero count as upper bound otherwise)"
     else:
         from .kernels import gram
         from .models.l2 import fit_l2_path, predict_path, primal_weights

@@ -118,7 +118,7 @@ def _l1_grid(spec, shared, train_rows, loss):
     builder = build_features(shared, train_rows)
     Z = builder.transform(shared.X[train_rows])
     center, scale = target_scaling(shared, shared.y[train_rows])
-    lam = lambda_max(Z, (shared.y[train_rows] - center) / scale, loss)
+    lam = lambda_max(Z, (shared.y[train_rows] - center) / scale, loss, alpha=spec.families.l1.alpha)
     l1 = spec.families.l1
     return lambda_grid(lam, l1.n_lambdas, l1.lambda_ratio)
 
@@ -281,7 +281,8 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     check_feature_budget(spec, dataset, len(train_rows))
     shared = Shared(X=dataset.X, y=dataset.y, task=dataset.task, feature_maps=spec.features.maps,
                     feature_seed=seeds.int_seed(spec.seed, "features"), input_names=dataset.feature_names,
-                    l1_options={"tol": spec.families.l1.tol, "solver": spec.families.l1.solver},
+                    l1_options={"tol": spec.families.l1.tol, "solver": spec.families.l1.solver,
+                                "alpha": spec.families.l1.alpha},
                     l2_kernel=spec.families.l2.kernel,
                     l2_kernel_params=tuple(sorted(spec.families.l2.kernel_params().items())))
     splits = plan_splits(spec, dataset, train_rows, test_rows)
