@@ -7,7 +7,7 @@ CONFIG ?= configs/demo.yaml
 PORT   ?= 5000
 LAST   ?= 5
 
-.PHONY: run test test-all bench ui report compare validate clean
+.PHONY: run test test-all test-browser bench ui report compare validate clean
 
 $(STAMP): pyproject.toml
 	@echo "setting up $(VENV) (the first time takes a few minutes; log in $(VENV)/install.log)"
@@ -24,6 +24,9 @@ test: $(STAMP)  ## the test suite (slow checks excluded)
 
 test-all: $(STAMP)  ## every test, slow ones included
 	$(BIN)/python -m pytest -q -m ""
+
+test-browser: $(STAMP)  ## the demo report loaded in headless Chromium (about a minute)
+	$(BIN)/python -m pytest -q -m slow tests/test_browser.py
 
 bench: $(STAMP)  ## side-by-side benchmarks; writes reports/bench/results.json
 	$(BIN)/python -m benchmarks.run
