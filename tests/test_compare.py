@@ -136,3 +136,20 @@ def test_fit_row_reads_intervals_from_low_and_high_metrics():
     row = fit_row(child)
     assert row["metrics"] == {"rmse": 1.5} and row["intervals"] == {"rmse": (1.0, 2.0)}
     assert row["lambda_chosen"] == 0.25 and row["n_nonzero"] == 3.0 and row["stability"] is None
+
+
+def test_rendered_comparison_warns_on_different_data_and_escapes_names():
+    from pipeline.compare import comparison_payload
+    from pipeline.report.comparison import render_comparison
+
+    def execution(run_id, data_hash, name):
+        return {"run_id": run_id, "name": name, "experiment": name, "status": "FINISHED", "start_time": 0,
+                "seconds": 1.0, "config_hash": "c", "data_hash": data_hash, "git_commit": None,
+                "config": {"name": name}, "n_train": "30", "n_test": "10",
+                "fits": [_fit("l1", "squared", 1.0), _fit("l2", "squared", 2.0)], "verdicts": {}}
+
+    hostile = "<script>alert(1)</script>"
+    page = render_comparison(comparison_payload([execution("a" * 32, "d1", hostile), execution("b" * 32, "d2", "x")]))
+    assert "data hashes" in page and "<script" not in page and "&lt;script&gt;alert(1)&lt;/script&gt;" in page
+    same = render_comparison(comparison_payload([execution("a" * 32, "d1", "x"), execution("b" * 32, "d1", "x")]))
+    assert "data hashes" not in same

@@ -2,8 +2,8 @@
 
 Property: the command never lets an exception escape; it either succeeds (exit 0) or answers with one
 paragraph starting "penduel: " and exit 2. Seeds are fixed (derandomize=True), so every run of the
-suite tries the same examples: 40 configs through validate and 12 data frames through run in the fast
-suite, 400 and 120 under @pytest.mark.slow.
+suite tries the same examples: 40 configs through validate, 12 chaotic data frames and configs and 6
+well-formed experiments through run in the fast suite; 400, 120 and 60 under @pytest.mark.slow.
 """
 from __future__ import annotations
 
@@ -111,6 +111,42 @@ def frames(draw):
     return pd.DataFrame(columns)
 
 
+# Well-formed experiments with varied settings, so the fuzz also reaches fitting, selection and the report.
+GOOD_SETTINGS = {
+    ("seed",): st.integers(0, 2**31),
+    ("split", "test_fraction"): st.floats(0.2, 0.4),
+    ("selection", "cv_folds"): st.integers(2, 4),
+    ("selection", "rule"): st.sampled_from(["min", "one_se"]),
+    ("families", "l1", "n_lambdas"): st.integers(2, 5),
+    ("families", "l1", "lambda_ratio"): st.floats(1e-3, 0.5),
+    ("families", "l2", "n_lambdas"): st.integers(2, 5),
+    ("families", "l2", "kernel"): st.sampled_from(["linear", "rbf", "laplacian", "matern32", "polynomial"]),
+    ("features", "maps"): st.lists(st.sampled_from([{"kind": "identity"}, {"kind": "polynomial", "degree": 2},
+                                                    {"kind": "random_fourier", "n_components": 8}]),
+                                   min_size=1, max_size=2, unique_by=lambda m: m["kind"]),
+}
+
+
+@st.composite
+def good_examples(draw):
+    config = yaml.safe_load(yaml.safe_dump(BASE))
+    classification = draw(st.booleans())
+    pool = ["logistic", "hinge", "squared_hinge"] if classification else ["squared", "absolute", "huber", "quantile"]
+    config["losses"] = draw(st.lists(st.sampled_from(pool), min_size=1, max_size=2, unique=True))
+    for path in draw(st.lists(st.sampled_from(sorted(GOOD_SETTINGS)), max_size=3, unique=True)):
+        _set(config, path, draw(GOOD_SETTINGS[path]))
+    n = draw(st.integers(24, 40))
+    rng = np.random.default_rng(draw(st.integers(0, 2**16)))
+    frame = pd.DataFrame({f"x{j}": rng.standard_normal(n) for j in range(draw(st.integers(1, 4)))})
+    if draw(st.booleans()):
+        frame["soil"] = rng.choice(["clay", "sand", "loam"], n)
+    if draw(st.booleans()):
+        frame["batch"] = 1.0
+    signal = frame["x0"].to_numpy() + 0.5 * rng.standard_normal(n)
+    frame["y"] = np.where(signal > np.median(signal), "yes", "no") if classification else signal
+    return config, frame
+
+
 def _answered_clearly(code, stderr: str) -> None:
     assert code in (0, 2), stderr
     event(f"exit {code}")   # shown by --hypothesis-show-statistics
@@ -164,6 +200,19 @@ def test_fuzzed_configs_through_validate(workdir, config):
 @given(config=configs(CHEAP_PATHS), frame=frames())
 def test_fuzzed_data_and_configs_through_run(workdir, config, frame, monkeypatch):
     _run_examples(workdir, config, frame, monkeypatch)
+
+
+@settings(max_examples=6, **QUIET)
+@given(example=good_examples())
+def test_fuzzed_good_experiments_run_through(workdir, example, monkeypatch):
+    _run_examples(workdir, *example, monkeypatch)
+
+
+@pytest.mark.slow
+@settings(max_examples=60, **QUIET)
+@given(example=good_examples())
+def test_many_fuzzed_good_experiments_run_through(workdir, example, monkeypatch):
+    _run_examples(workdir, *example, monkeypatch)
 
 
 @pytest.mark.slow

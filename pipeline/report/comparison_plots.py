@@ -21,6 +21,7 @@ def across_executions(block: dict, labels: list[str], primary: str) -> str:
     """Left: held-out primary metric with its interval per execution and family. Right: fit time
     (path + CV) per execution and family, log scale."""
     fig, (ax, bx) = plt.subplots(1, 2, figsize=(10.5, 3.6))
+    any_time = False
     for fam in ("l1", "l2"):
         rows = [r for r in block["rows"] if r["family"] == fam]
         if not rows:
@@ -34,6 +35,7 @@ def across_executions(block: dict, labels: list[str], primary: str) -> str:
                     label=TITLES[fam])
         secs = np.array([_nan(r["fit_seconds"]) + _nan(r["cv_seconds"]) for r in rows])
         bx.plot(x, secs, color=COLOURS[fam], marker=MARKERS[fam], ls="none", label=TITLES[fam])
+        any_time |= bool(np.any(np.isfinite(secs) & (secs > 0)))
     for a in (ax, bx):
         a.set_xticks(range(len(labels)), labels)
         a.set_xlim(-0.5, len(labels) - 0.5)
@@ -41,8 +43,9 @@ def across_executions(block: dict, labels: list[str], primary: str) -> str:
         a.legend(fontsize=8)
     ax.set_ylabel(f"held-out {primary.replace('_', ' ')} [90 % interval]")
     ax.set_title(f"Held-out error — {block['loss']}", fontsize=10)
-    bx.set_yscale("log")
-    bx.set_ylabel("path fit + CV fits (s, log scale)")
+    if any_time:        # a log axis needs at least one positive time
+        bx.set_yscale("log")
+    bx.set_ylabel("path fit + CV fits (s, log scale)" if any_time else "path fit + CV fits (s)")
     bx.set_title(f"Time — {block['loss']}", fontsize=10)
     fig.tight_layout()
     return _encode(fig)
