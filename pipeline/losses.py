@@ -44,6 +44,14 @@ class Loss:
     # kinks of the loss in its own variable (residual or margin); used to find
     # samples where the subgradient is an interval, not a point
     kinks: tuple[float, ...] = field(init=False, default=())
+    # objective quadratic in f (closed-form paths, Gram-form solvers, exact LOO/GCV)
+    quadratic: bool = field(init=False, default=False)
+    # piecewise-linear losses: (slope for argument > kink, |slope| below it); None otherwise
+    slopes: tuple[float, float] | None = field(init=False, default=None)
+    # margin losses: how far u*y reaches below 0 in the conjugate's domain (1 or inf)
+    dual_reach: float = field(init=False, default=1.0)
+    # preferred cvxpy back-ends, in order, for this loss's restricted problems
+    cvxpy_solvers: tuple[str, ...] = field(init=False, default=("CLARABEL", "OSQP", "SCS"))
 
     def value(self, y, f) -> np.ndarray:
         raise NotImplementedError
@@ -75,7 +83,7 @@ class Loss:
         if self.task == REGRESSION:
             return np.full(y.shape, -np.inf), np.full(y.shape, np.inf)
         # margin losses: u*y in [-1, 0] (squared hinge: u*y <= 0)
-        reach = np.inf if self.name == "squared_hinge" else 1.0
+        reach = self.dual_reach
         return np.where(y > 0, -reach, 0.0), np.where(y > 0, 0.0, reach)
 
     # the variable the loss is written in: residual y - f or margin y*f
@@ -89,6 +97,7 @@ class Loss:
 class SquaredLoss(Loss):
     def __post_init__(self):
         object.__setattr__(self, "name", "squared")
+        object.__setattr__(self, "quadratic", True)
 
     def value(self, y, f):
         return 0.5 * self._arg(y, f) ** 2
@@ -122,27 +131,23 @@ class QuantileLoss(Loss):
         object.__setattr__(self, "name", "quantile")
         object.__setattr__(self, "smooth", False)
         object.__setattr__(self, "kinks", (0.0,))
-
-    @property
-    def _weights(self) -> tuple[float, float]:
-        """Slopes of the loss for r > 0 and r < 0 (absolute value of the latter)."""
-        return self.tau, 1.0 - self.tau
+        object.__setattr__(self, "slopes", (self.tau, 1.0 - self.tau))
 
     def value(self, y, f):
         r = self._arg(y, f)
-        above, below = self._weights
+        above, below = self.slopes
         return np.where(r >= 0, above * r, -below * r)
 
     def derivative(self, y, f):
         # at r == 0 return the midpoint of the subdifferential
         r = self._arg(y, f)
-        above, below = self._weights
+        above, below = self.slopes
         return np.where(r > 0, -above, np.where(r < 0, below, 0.5 * (below - above)))
 
     def subgradient_interval(self, y, f):
         r = self._arg(y, f)
         kink = _near_kink(r, 0.0, y, f)
-        above, below = self._weights
+        above, below = self.slopes
         low = np.where(kink | (r > 0), -above, below)
         high = np.where(kink | (r < 0), below, -above)
         return low, high
@@ -151,25 +156,25 @@ class QuantileLoss(Loss):
         return np.zeros_like(_as_float(f))
 
     def dual_bounds(self, y):
-        above, below = self._weights
+        above, below = self.slopes
         shape = np.shape(y)
         return np.full(shape, -above), np.full(shape, below)
 
     def cvxpy_sum(self, y, f_expr):
         # written with abs and a linear term, not pos/maximum: see the cvxpy/HiGHS
         # bound-propagation defect guarded in tests/test_l1_solvers.py
-        above, below = self._weights
+        above, below = self.slopes
         r = y - f_expr
         return 0.5 * (above + below) * cp.sum(cp.abs(r)) + 0.5 * (above - below) * cp.sum(r)
 
     def conjugate(self, y, u):
         u = _as_float(u)
-        above, below = self._weights
+        above, below = self.slopes
         ok = (u >= -above - 1e-12) & (u <= below + 1e-12)
         return _outside(ok, u * _as_float(y))
 
     def intercept_only(self, y):
-        above, below = self._weights
+        above, below = self.slopes
         return float(np.quantile(_as_float(y), above / (above + below), method="inverted_cdf"))
 
 
@@ -182,10 +187,7 @@ class AbsoluteLoss(QuantileLoss):
             raise ValueError("the absolute loss takes no tau; use the quantile loss")
         super().__post_init__()
         object.__setattr__(self, "name", "absolute")
-
-    @property
-    def _weights(self):
-        return 1.0, 1.0
+        object.__setattr__(self, "slopes", (1.0, 1.0))
 
 
 @dataclass(frozen=True)
@@ -264,6 +266,7 @@ class LogisticLoss(_MarginLoss):
     def __post_init__(self):
         super().__post_init__()
         object.__setattr__(self, "name", "logistic")
+        object.__setattr__(self, "cvxpy_solvers", ("CLARABEL", "SCS"))
 
     def value(self, y, f):
         return np.logaddexp(0.0, -self._arg(y, f))
@@ -299,6 +302,7 @@ class HingeLoss(_MarginLoss):
         object.__setattr__(self, "name", "hinge")
         object.__setattr__(self, "smooth", False)
         object.__setattr__(self, "kinks", (1.0,))
+        object.__setattr__(self, "slopes", (0.0, 1.0))
 
     def value(self, y, f):
         return np.maximum(0.0, 1.0 - self._arg(y, f))
@@ -339,6 +343,7 @@ class SquaredHingeLoss(_MarginLoss):
     def __post_init__(self):
         super().__post_init__()
         object.__setattr__(self, "name", "squared_hinge")
+        object.__setattr__(self, "dual_reach", np.inf)
 
     def value(self, y, f):
         return np.maximum(0.0, 1.0 - self._arg(y, f)) ** 2

@@ -296,7 +296,7 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
                                   scheduler_address=spec.execution.scheduler_address, shared=shared)
     notes = dataset.notes + ((f"reused {reused} of {len(tasks)} finished fit task(s) from the cache "
                               f"'{spec.cache.directory}' (refits avoided)",) if reused else ())
-    results = assemble(spec, shared, tasks, outcomes, test_rows, seeds.generator(spec.seed, "bootstrap"))
+    results = assemble(spec, shared, tasks, outcomes, test_rows, seeds.generator(spec.seed, "test_intervals"))
     feature_names = next(o.feature_names for o in outcomes)
     fold0 = splits[0]
     comparisons = compare_on_folds(spec, results, (len(fold0[1]), len(fold0[2])))

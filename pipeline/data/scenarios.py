@@ -3,11 +3,12 @@ from __future__ import annotations
 
 import numpy as np
 
+from .. import seeds
 from .dataset import Dataset, Truth
 
 
 def make_scenario(src) -> Dataset:
-    rng = np.random.default_rng(np.random.SeedSequence(src.seed, spawn_key=(7,)))
+    rng = seeds.generator(src.seed, "scenario")  # its own stream: the nested-CV stream drew the same numbers
     maker = {"spectral_bands": _spectral_bands, "binary_blobs": _binary_blobs,
              "dense_effects": _dense_effects}[src.name]
     return maker(src, rng)

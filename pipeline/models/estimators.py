@@ -43,7 +43,7 @@ class _KernelL2Base(BaseEstimator):
                            on_psd_fail="warn")
         coefs, intercepts, dfs = [], [], []
         for t in targets.T:
-            if self.lam is None and loss.name == "squared" and X.shape[0] > 2:
+            if self.lam is None and loss.quadratic and X.shape[0] > 2:
                 grid = l2_lambda_grid(eig, n_lambdas)
                 path = fit_l2_path(None, t, loss, grid, eigen=eig)
                 best = int(np.nanargmin(path.loo_error))

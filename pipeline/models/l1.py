@@ -76,11 +76,11 @@ def _route(loss: Loss, alpha: float, solver: str) -> str:
     if solver == "highs" and (loss.smooth or alpha < 1.0):
         raise ValueError("solver 'highs' (split LP) handles absolute, quantile and hinge "
                          "losses with alpha = 1 only")
-    if solver == "osqp" and loss.name != "squared":
+    if solver == "osqp" and not loss.quadratic:
         raise ValueError("solver 'osqp' (Gram form) handles the squared loss only")
     if solver not in ("auto", "active_set"):
         return solver
-    if loss.name == "squared":
+    if loss.quadratic:
         return "osqp"
     if not loss.smooth and alpha >= 1.0:
         return "highs"
@@ -89,7 +89,7 @@ def _route(loss: Loss, alpha: float, solver: str) -> str:
 
 def _solve_restricted(route, XW, y, lam, alpha, loss, warm, tol):
     if route == "osqp":
-        if loss.name != "squared":
+        if not loss.quadratic:
             raise ValueError("solver 'osqp' (Gram form) handles the squared loss only")
         return rs.solve_squared_gram(XW, y, lam, alpha, warm=warm, tol=min(tol, 1e-7) * 1e-2)
     if route == "highs":  # validation only: the path keeps a warm LP (see _PathFitter)
@@ -106,7 +106,7 @@ class _PathFitter:
     def __init__(self, X, y, loss, alpha, tol, route, max_rounds, screening, continuation):
         self.X, self.y, self.loss = X, y, loss
         self.continuation = continuation and loss.smooth
-        self.gram = GramCache(X, y) if self.continuation and loss.name == "squared" else None
+        self.gram = GramCache(X, y) if self.continuation and loss.quadratic else None
         self.n, self.p = X.shape
         self.alpha, self.tol, self.route = alpha, tol, route
         self.max_rounds, self.screening = max_rounds, screening

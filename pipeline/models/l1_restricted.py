@@ -78,7 +78,7 @@ def solve_piecewise_lp(XW, y, lam, loss: Loss) -> Restricted:
     """
     n, k = XW.shape
     if loss.task == "regression":
-        above, below = loss._weights
+        above, below = loss.slopes
         M, rhs, cost_r = XW, y, (above / n, below / n)
         col_b = np.ones((n, 1))
     else:
@@ -108,7 +108,7 @@ _BACKEND_OPTIONS = {
 
 
 def _cvxpy_solver_order(loss: Loss) -> list[str]:
-    return ["CLARABEL", "SCS"] if loss.name == "logistic" else ["CLARABEL", "OSQP", "SCS"]
+    return list(loss.cvxpy_solvers)
 
 
 def solve_cvxpy(XW, y, lam, alpha, loss: Loss, warm=None, tol=1e-9, backends=None) -> Restricted:
@@ -169,7 +169,7 @@ class WarmSplitLP:
         self.h.setOptionValue("solver", "simplex")
         inf = highspy.kHighsInf
         if loss.task == "regression":
-            above, below = loss._weights
+            above, below = loss.slopes
             rhs, cost_pos, cost_neg = y, above / n, below / n
             self.col_b = np.ones(n)
             self.sign = np.ones(n)

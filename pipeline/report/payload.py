@@ -100,7 +100,7 @@ def _family(result, r) -> dict:
 
 def _verdicts(result, primary) -> list[dict]:
     metric = metric_function(primary)
-    rng = generator(result.spec.seed, "bootstrap")
+    rng = generator(result.spec.seed, "paired_difference")
     by_loss: dict[str, dict] = {}
     for r in result.results:
         by_loss.setdefault(r.loss_label, {})[r.family] = r
