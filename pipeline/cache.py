@@ -21,6 +21,8 @@ from typing import Any, Callable
 
 import numpy as np
 
+from .models.families import KEYS
+
 CACHE_FORMAT = 1
 _META = "__meta__"
 
@@ -53,7 +55,7 @@ def run_prefix(spec, data_hash: str) -> dict[str, str]:
               "seed": resolved["seed"], "data": resolved["data"], "split": resolved["split"],
               "features": resolved["features"], "cv_folds": resolved["selection"]["cv_folds"]}
     return {family: json.dumps({**common, "family": resolved["families"][family]}, sort_keys=True)
-            for family in ("l1", "l2")}
+            for family in KEYS}
 
 
 def task_key(prefix: str, task) -> str:

@@ -12,6 +12,7 @@ import numpy as np
 
 from .features import FeatureBuilder
 from .losses import get_loss
+from .models.families import get_family
 
 
 @dataclass(frozen=True)
@@ -23,15 +24,13 @@ class Shared:
     feature_maps: tuple
     feature_seed: int
     input_names: tuple[str, ...]
-    l1_options: dict
-    l2_kernel: str
-    l2_kernel_params: tuple = ()      # sorted (name, value) pairs
+    family_options: dict               # family key -> that family's options (Family.options)
 
 
 @dataclass(frozen=True)
 class FitTask:
     split: str                     # "fold0", "fold1", ... or "final"
-    family: str                    # "l1" | "l2"
+    family: str                    # a key of pipeline.models.families
     loss_name: str
     loss_params: tuple             # sorted (key, value) pairs
     loss_label: str
@@ -52,9 +51,9 @@ class FitOutcome:
     loss_label: str
     eval_loss: np.ndarray          # (L,) mean held-out loss on the fitting scale
     eval_pred: np.ndarray          # (L, m) predictions on eval rows, original target scale (decision values)
-    coef: np.ndarray | None        # (L, p_features) on the feature-output scale; None for non-linear kernels
+    coef: np.ndarray | None        # (L, p_features) on the feature-output scale; None without per-feature weights
     intercept: np.ndarray          # (L,) matching coef
-    n_nonzero: np.ndarray | None   # (L,) L1 only
+    n_nonzero: np.ndarray | None   # (L,) families with exact zeros only
     effective_df: np.ndarray       # (L,)
     certificate: np.ndarray | None
     certificate_kind: str
@@ -63,9 +62,10 @@ class FitOutcome:
     solver: str
     fit_seconds: float
     feature_names: tuple[str, ...]
-    loo_error: np.ndarray | None = None   # (L,) L2 squared loss only, fitting scale
+    loo_error: np.ndarray | None = None   # (L,) where the family has exact LOO (ridge, squared loss), fitting scale
     gcv: np.ndarray | None = None
     df_kind: str = ""                      # what effective_df counts
+    note: str = ""                         # how the family fitted the path, when worth saying (low rank)
 
 
 def build_features(shared: Shared, train_idx):
@@ -90,37 +90,11 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
     y_tr, y_ev = shared.y[task.train_idx], shared.y[task.eval_idx]
     center, scale = target_scaling(shared, y_tr)
     t_tr, t_ev = (y_tr - center) / scale, (y_ev - center) / scale
+    family = get_family(task.family)
     start = time.perf_counter()
-    if task.family == "l1":
-        from .models.l1 import degrees_of_freedom, fit_l1_path, predict_path
-        path = fit_l1_path(Z_tr, t_tr, loss, task.lambdas, **shared.l1_options)
-        f_ev = predict_path(path, Z_ev)
-        coef, intercept = path.coef, path.intercept
-        nnz = path.n_nonzero
-        df = path.n_nonzero.astype(float) if shared.l1_options.get("alpha", 1.0) == 1.0 else \
-            degrees_of_freedom(path, Z_tr)
-        cert, cert_kind, solver = path.certificate, path.certificate_kind, path.solver
-        converged, status = path.converged, path.status
-        loo, gcv = None, None
-        df_kind = "number of nonzero coefficients" if shared.l1_options.get("alpha", 1.0) == 1.0 else \
-            "elastic-net trace on the support (squared loss; nonzero count as upper bound otherwise)"
-    else:
-        from .kernels import gram
-        from .models.l2 import fit_l2_path, predict_path, primal_weights
-        kp = dict(shared.l2_kernel_params)
-        K = gram(Z_tr, kernel=shared.l2_kernel, **kp)
-        path = fit_l2_path(K, t_tr, loss, task.lambdas)
-        f_ev = predict_path(path, gram(Z_ev, Z_tr, kernel=shared.l2_kernel, **kp))
-        if shared.l2_kernel == "linear":
-            coef = primal_weights(path, Z_tr)
-        else:
-            coef = None
-        intercept = path.intercept
-        nnz, df = None, path.effective_df
-        cert, cert_kind, solver = None, "", "representer"
-        converged, status = path.converged, path.status
-        loo, gcv = path.loo_error, path.gcv
-        df_kind = getattr(path, "df_kind", "trace of the hat matrix")
+    fit = family.fit_path(Z_tr, t_tr, loss, task.lambdas, shared.family_options[task.family])
+    f_ev = family.predict(fit, Z_ev)
+    coef, intercept = fit.coef, fit.intercept
     seconds = time.perf_counter() - start
     eval_loss = np.array([loss.value(t_ev, f).mean() for f in f_ev])
     if coef is not None:
@@ -128,6 +102,7 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
     return FitOutcome(
         task_id=task.task_id, split=task.split, family=task.family, loss_label=task.loss_label,
         eval_loss=eval_loss, eval_pred=center + scale * f_ev, coef=coef, intercept=np.asarray(intercept),
-        n_nonzero=nnz, effective_df=np.asarray(df, float), certificate=cert, certificate_kind=cert_kind,
-        converged=np.asarray(converged), status=tuple(status), solver=solver, fit_seconds=seconds,
-        feature_names=tuple(builder.get_feature_names_out()), loo_error=loo, gcv=gcv, df_kind=df_kind)
+        n_nonzero=fit.n_nonzero, effective_df=np.asarray(fit.effective_df, float), certificate=fit.certificate,
+        certificate_kind=fit.certificate_kind, converged=np.asarray(fit.converged), status=tuple(fit.status),
+        solver=fit.solver, fit_seconds=seconds, feature_names=tuple(builder.get_feature_names_out()),
+        loo_error=fit.loo_error, gcv=fit.gcv, df_kind=fit.df_kind, note=fit.note)

@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 
 import cvxpy as cp
 import numpy as np
-from scipy.optimize import linprog, minimize_scalar
+from scipy.optimize import minimize_scalar
 from scipy.special import expit, xlogy
 
 REGRESSION = "regression"
@@ -393,49 +393,3 @@ def get_loss(name: str, **params) -> Loss:
         return _FACTORIES[key](**params)
     except TypeError as exc:
         raise ValueError(f"loss '{key}' got parameters it does not take: {sorted(params)}") from exc
-
-
-def intercept_only_dual(X, y, loss: Loss) -> np.ndarray:
-    """Per-sample subgradient g at the intercept-only fit with sum(g) = 0 and ||X^T g||_inf smallest.
-
-    For smooth losses g is the derivative. Where samples sit on a kink the subgradient
-    is an interval; a small LP picks the point that makes the zero solution optimal
-    for the smallest lambda.
-    """
-    X, y = _as_float(X), _as_float(y)
-    n = y.shape[0]
-    b = loss.intercept_only(y)
-    f = np.full(n, b)
-    low, high = loss.subgradient_interval(y, f)
-    free = np.flatnonzero(high - low > 0)
-    g = low.copy()
-    if free.size == 0:
-        return g
-    fixed = np.setdiff1d(np.arange(n), free)
-    base = X[fixed].T @ g[fixed]
-    Xf = X[free].T  # (p, k)
-    p, k = Xf.shape
-    # variables (g_free, t): minimise t, -t <= base + Xf g <= t, sum g = 0
-    cost = np.r_[np.zeros(k), 1.0]
-    ones = np.ones((p, 1))
-    A_ub = np.block([[Xf, -ones], [-Xf, -ones]])
-    b_ub = np.r_[-base, base]
-    A_eq = np.r_[np.ones(k), 0.0][None, :]
-    b_eq = [-g[fixed].sum()]
-    bounds = [(lo, hi) for lo, hi in zip(low[free], high[free])] + [(0, None)]
-    res = linprog(cost, A_ub=A_ub, b_ub=b_ub, A_eq=A_eq, b_eq=b_eq, bounds=bounds, method="highs")
-    if res.status == 0:
-        g[free] = res.x[:k]
-    else:  # fall back to the midpoint, recentred: never worse than a valid bound
-        g[free] = 0.5 * (low[free] + high[free])
-    return g
-
-
-def lambda_max(X, y, loss, alpha: float = 1.0) -> float:
-    """Smallest lambda whose L1 (or elastic-net with mixing alpha) solution is all zero."""
-    loss = get_loss(loss) if isinstance(loss, str) else loss
-    if not 0 < alpha <= 1:
-        raise ValueError(f"lambda_max needs 0 < alpha <= 1, got alpha={alpha}")
-    X = _as_float(X)
-    g = intercept_only_dual(X, y, loss)
-    return float(np.max(np.abs(X.T @ g)) / (X.shape[0] * alpha)) if X.shape[1] else 0.0

@@ -18,12 +18,12 @@ from .cache import cache_for, run_cached, task_keys
 from .execution import run_tasks
 from .features import output_width
 from .fitting import FitOutcome, FitTask, Shared, build_features, run_fit, target_scaling
-from .losses import get_loss, lambda_max
+from .losses import get_loss
+from .models.families import FAMILIES, compared_pair, get_family
 from .selection import choose_lambda_index, cv_summary, make_folds
 from .stability_stage import resample_splits, stability_losses, summarise_families
 
 PRIMARY_METRIC = {"regression": "rmse", "classification": "log_loss"}
-FAMILY_TITLES = {"l1": "sparse (L1)", "l2": "ridge-type (L2)"}
 
 
 @dataclass(frozen=True)
@@ -54,7 +54,7 @@ class FamilyResult:
 
     @property
     def title(self) -> str:
-        return FAMILY_TITLES[self.family]
+        return get_family(self.family).title
 
 
 @dataclass(frozen=True)
@@ -113,23 +113,30 @@ def split_rows(spec: ExperimentSpec, dataset: Dataset):
     return np.sort(tr), np.sort(te)
 
 
-def _l1_grid(spec, shared, train_rows, loss):
-    from .models.l1 import lambda_grid
+def family_grids(spec, shared, train_rows, losses) -> list[dict]:
+    """λ grid of every enabled family for each loss, from the features and targets of the training rows.
+    A family whose grid does not read the loss gets one grid for all losses."""
     builder = build_features(shared, train_rows)
     Z = builder.transform(shared.X[train_rows])
     center, scale = target_scaling(shared, shared.y[train_rows])
-    lam = lambda_max(Z, (shared.y[train_rows] - center) / scale, loss, alpha=spec.families.l1.alpha)
-    l1 = spec.families.l1
-    return lambda_grid(lam, l1.n_lambdas, l1.lambda_ratio)
+    t = (shared.y[train_rows] - center) / scale
+    shared_grid = {}
+    out = []
+    for loss in losses:
+        grids = {}
+        for f in enabled_families(spec):
+            if f.key not in shared_grid:
+                grids[f.key] = f.grid(Z, t, loss, shared.family_options[f.key])
+                if not f.grid_reads_loss:
+                    shared_grid[f.key] = grids[f.key]
+            else:
+                grids[f.key] = shared_grid[f.key]
+        out.append(grids)
+    return out
 
 
-def _l2_grid(spec, shared, train_rows):
-    from .kernels import gram
-    from .models.l2 import l2_lambda_grid
-    builder = build_features(shared, train_rows)
-    Z = builder.transform(shared.X[train_rows])
-    K = gram(Z, kernel=spec.families.l2.kernel, **spec.families.l2.kernel_params())
-    return l2_lambda_grid(K, spec.families.l2.n_lambdas)
+def enabled_families(spec) -> list:
+    return [f for f in FAMILIES if getattr(spec.families, f.key).enabled]
 
 
 def plan_splits(spec: ExperimentSpec, dataset: Dataset, train_rows, test_rows) -> list[tuple]:
@@ -153,15 +160,9 @@ def plan_splits(spec: ExperimentSpec, dataset: Dataset, train_rows, test_rows) -
 
 def plan_tasks(spec: ExperimentSpec, shared: Shared, train_rows, test_rows, splits, resamples) -> list[FitTask]:
     tasks = []
-    l2_grid = _l2_grid(spec, shared, train_rows) if spec.families.l2.enabled else None
     resampled = stability_losses(spec)
-    for loss_spec in spec.losses:
-        loss = get_loss(loss_spec.name, **loss_spec.params())
-        grids = {}
-        if spec.families.l1.enabled:
-            grids["l1"] = _l1_grid(spec, shared, train_rows, loss)
-        if spec.families.l2.enabled:
-            grids["l2"] = l2_grid
+    losses = [get_loss(ls.name, **ls.params()) for ls in spec.losses]
+    for loss_spec, grids in zip(spec.losses, family_grids(spec, shared, train_rows, losses)):
         these = splits + (resamples if loss_spec.label in resampled else [])
         for family, grid in grids.items():
             common = dict(family=family, loss_name=loss_spec.name, loss_params=tuple(sorted(loss_spec.params().items())),
@@ -190,9 +191,10 @@ def test_metrics(task: str, y, pred, loss, rng) -> tuple[dict, dict]:
     return metrics, intervals
 
 
-def _choose(spec, family, loss_name, cv_errors, final) -> tuple[int, str]:
+def _choose(spec, cv_errors, final) -> tuple[int, str]:
     crit = spec.selection.l2_criterion
-    if family == "l2" and loss_name == "squared" and crit != "cv" and final.loo_error is not None:
+    # only a path with exact leave-one-out values (ridge-type, squared loss) can use loo / gcv
+    if crit != "cv" and final.loo_error is not None:
         values = final.loo_error if crit == "loo" else final.gcv
         return int(np.nanargmin(values)), crit
     return choose_lambda_index(cv_errors, spec.selection.rule), f"{spec.selection.cv_folds}-fold CV, {spec.selection.rule}"
@@ -221,7 +223,7 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng) -> list[FamilyResult
         final_task, final = splits["final"]
         cv_errors = np.vstack([o.eval_loss for o in folds])
         cv_mean, cv_se = cv_summary(cv_errors)
-        idx, how = _choose(spec, family, final_task.loss_name, cv_errors, final)
+        idx, how = _choose(spec, cv_errors, final)
         loss = get_loss(final_task.loss_name, **dict(final_task.loss_params))
         pred = final.eval_pred[idx]
         metrics, intervals = test_metrics(shared.task, y_test, pred, loss, rng)
@@ -249,8 +251,9 @@ def compare_on_folds(spec, results, fold_sizes) -> dict:
         by_loss.setdefault(r.loss_label, {})[r.family] = r
     n_tr, n_te = fold_sizes
     for label, d in by_loss.items():
-        if "l1" in d and "l2" in d:
-            diffs = d["l1"].cv_errors[:, d["l1"].chosen_index] - d["l2"].cv_errors[:, d["l2"].chosen_index]
+        first, second = (d.get(f.key) for f in compared_pair())
+        if first is not None and second is not None:
+            diffs = first.cv_errors[:, first.chosen_index] - second.cv_errors[:, second.chosen_index]
             try:
                 out[label] = corrected_resampled_ttest(diffs, n_tr, n_te, level=0.9)
             except ValueError:
@@ -281,10 +284,9 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     check_feature_budget(spec, dataset, len(train_rows))
     shared = Shared(X=dataset.X, y=dataset.y, task=dataset.task, feature_maps=spec.features.maps,
                     feature_seed=seeds.int_seed(spec.seed, "features"), input_names=dataset.feature_names,
-                    l1_options={"tol": spec.families.l1.tol, "solver": spec.families.l1.solver,
-                                "alpha": spec.families.l1.alpha},
-                    l2_kernel=spec.families.l2.kernel,
-                    l2_kernel_params=tuple(sorted(spec.families.l2.kernel_params().items())))
+                    family_options={f.key: f.options(getattr(spec.families, f.key),
+                                                     seeds.int_seed(spec.seed, "landmarks"))
+                                    for f in FAMILIES})
     splits = plan_splits(spec, dataset, train_rows, test_rows)
     resamples = resample_splits(spec, train_rows, test_rows, dataset.y[train_rows], dataset.task) \
         if stability_losses(spec) else []

@@ -18,6 +18,7 @@ STREAMS = {
     "nested": 7,             # nested-CV outer and inner folds
     "paired_difference": 8,  # paired bootstrap of the difference between families
     "scenario": 9,           # synthetic scenario data (under the scenario's own data.seed)
+    "landmarks": 10,         # Nyström landmarks of the ridge-type family's large-n route
 }
 
 

@@ -16,8 +16,9 @@ import numpy as np
 import scipy.linalg
 
 from pipeline.kernels import gram, resolve_params
-from pipeline.models.l2_path import L2Path
-from pipeline.models.l2_squared import _finish_stats
+from pipeline.losses import get_loss
+from pipeline.models.ridge.result import L2Path
+from pipeline.models.ridge.closed_form import loo_gcv_stats
 
 BLOCK_ROWS = 4096
 RANK_TOL = 1e-10
@@ -32,7 +33,7 @@ class NystromPath:
 
     def predict(self, X, block_rows: int = BLOCK_ROWS) -> np.ndarray:
         """Decision values (L, n_test), cross Gram computed block by block."""
-        from pipeline.models.l2 import predict_rows
+        from pipeline.models.ridge.path import predict_rows
         return predict_rows(self.path, X, self.landmarks, self.kernel, block_rows,
                             **self.kernel_params)
 
@@ -50,13 +51,43 @@ def _landmarks(X, kernel, kernel_params, n_landmarks, seed):
     return params, Z, _feature_map(Z, kernel, params)
 
 
+def _blocks(X, Z, T, kernel, params, block_rows):
+    """Row blocks (start, Φ block) of the Nyström features; Φ is never held whole."""
+    def blocks():
+        for s in range(0, X.shape[0], block_rows):
+            yield s, gram(X[s:s + block_rows], Z, kernel, **params) @ T
+    return blocks
+
+
+def _centred_spectrum(blocks, y, n, k):
+    """Pass 1: eigenvalues / vectors of the centred ΦᵀΦ, the feature means and Φᵀy."""
+    S, total, cross = np.zeros((k, k)), np.zeros(k), np.zeros(k)
+    for s, Phi in blocks():                      # pass 1: ΦᵀΦ, Φᵀ1, Φᵀy
+        S += Phi.T @ Phi
+        total += Phi.sum(axis=0)
+        cross += Phi.T @ y[s:s + len(Phi)]
+    mean = total / n
+    e, Q = scipy.linalg.eigh(S - n * np.outer(mean, mean), check_finite=False)
+    np.maximum(e, 0.0, out=e)
+    return e, Q, mean, cross
+
+
+def nystrom_spectrum(X, kernel: str, n_landmarks: int = 1000, seed=0, block_rows: int = BLOCK_ROWS,
+                     **kernel_params) -> np.ndarray:
+    """Eigenvalues of the centred Nyström Gram (the nonzero ones): the λ grid of the low-rank route."""
+    X = np.asarray(X, dtype=float)
+    params, Z, T = _landmarks(X, kernel, kernel_params, n_landmarks, seed)
+    blocks = _blocks(X, Z, T, kernel, params, block_rows)
+    return _centred_spectrum(blocks, np.zeros(X.shape[0]), X.shape[0], T.shape[1])[0]
+
+
 def fit_nystrom_path(X, y, kernel: str, lambdas, n_landmarks: int = 1000, seed=0,
                      block_rows: int = BLOCK_ROWS, loss="squared", solver_options=None,
                      **kernel_params) -> NystromPath:
     """Path on m seeded landmarks; kernel defaults resolved on all of X.
 
     Squared loss: the two-pass closed form below. Other losses: the same solvers as
-    the exact route (l2_general) on the centred explicit features Φ̃ (n × m held whole,
+    the exact route (other_losses) on the centred explicit features Φ̃ (n × m held whole,
     O(nm²) per Newton step); no LOO/GCV then.
     """
     start = time.perf_counter()
@@ -65,23 +96,12 @@ def fit_nystrom_path(X, y, kernel: str, lambdas, n_landmarks: int = 1000, seed=0
     lambdas = np.asarray(lambdas, dtype=float)
     n = X.shape[0]
     params, Z, T = _landmarks(X, kernel, kernel_params, n_landmarks, seed)
-    if (loss if isinstance(loss, str) else loss.name) != "squared":
+    if not get_loss(loss).quadratic:
         return _general_nystrom(X, y, kernel, lambdas, loss, params, Z, T, block_rows,
                                 solver_options or {}, start)
-    k = T.shape[1]
-
-    def blocks():
-        for s in range(0, n, block_rows):
-            yield s, gram(X[s:s + block_rows], Z, kernel, **params) @ T
-
-    S, total, cross = np.zeros((k, k)), np.zeros(k), np.zeros(k)
-    for s, Phi in blocks():                      # pass 1: ΦᵀΦ, Φᵀ1, Φᵀy
-        S += Phi.T @ Phi
-        total += Phi.sum(axis=0)
-        cross += Phi.T @ y[s:s + len(Phi)]
-    ybar, mean = y.mean(), total / n
-    e, Q = scipy.linalg.eigh(S - n * np.outer(mean, mean), check_finite=False)
-    np.maximum(e, 0.0, out=e)
+    blocks = _blocks(X, Z, T, kernel, params, block_rows)
+    e, Q, mean, cross = _centred_spectrum(blocks, y, n, T.shape[1])
+    ybar = y.mean()
     nl = n * lambdas
     inv = 1.0 / (e[:, None] + nl[None, :])                   # (k, L)
     W = Q @ ((Q.T @ (cross - n * mean * ybar))[:, None] * inv)   # primal weights (k, L)
@@ -93,7 +113,7 @@ def fit_nystrom_path(X, y, kernel: str, lambdas, n_landmarks: int = 1000, seed=0
         P = Phi @ Q
         hat[s:s + len(Phi)] = (P * P) @ inv + 1.0 / n
     df = (e[:, None] * inv).sum(axis=0)
-    loo, gcv, ok, status = _finish_stats(resid, hat, df + 1.0, np.isfinite(W).all(axis=0))
+    loo, gcv, ok, status = loo_gcv_stats(resid, hat, df + 1.0, np.isfinite(W).all(axis=0))
     landmark_coef = (T @ W).T                                 # (L, m)
     path = L2Path(lambdas=lambdas, dual_coef=landmark_coef, intercept=ybar - mean @ W,
                   effective_df=df, loo_error=loo, gcv=gcv, converged=ok, status=status,
@@ -103,7 +123,7 @@ def fit_nystrom_path(X, y, kernel: str, lambdas, n_landmarks: int = 1000, seed=0
 
 
 def _general_nystrom(X, y, kernel, lambdas, loss, params, Z, T, block_rows, options, start):
-    from pipeline.models.l2_general import solve_in_basis
+    from pipeline.models.ridge.other_losses import solve_in_basis
     Phi = np.vstack([gram(X[s:s + block_rows], Z, kernel, **params) @ T
                      for s in range(0, X.shape[0], block_rows)])
     mean = Phi.mean(axis=0)
@@ -112,7 +132,7 @@ def _general_nystrom(X, y, kernel, lambdas, loss, params, Z, T, block_rows, opti
     # f = b + (Φ − φ̄)w = (b − φ̄ᵀw) + K(x, Z)(T w)
     path = L2Path(lambdas=lambdas, dual_coef=W @ T.T, intercept=b - W @ mean, effective_df=df,
                   loo_error=None, gcv=None, converged=ok, status=status,
-                  fit_seconds=time.perf_counter() - start, loss=getattr(loss, "name", loss),
+                  fit_seconds=time.perf_counter() - start, loss=get_loss(loss).name,
                   df_kind=f"{df_kind} (Nyström, m = {len(Z)})")
     return NystromPath(path, Z, kernel, params)
 
@@ -124,7 +144,7 @@ def nystrom_gap(X, y, kernel: str, lambdas, n_landmarks: int = 1000, subsample: 
     Kernel defaults are resolved on all of X, so both routes use the same kernel.
     Returns the best LOO error of each route and the relative gap of the minima.
     """
-    from pipeline.models.l2 import fit_l2_path
+    from pipeline.models.ridge.path import fit_l2_path
     X = np.asarray(X, dtype=float)
     y = np.asarray(y, dtype=float)
     params = resolve_params(X, kernel, **kernel_params)

@@ -1,4 +1,4 @@
-"""Ridge-type (L2) family in representer form: the interface the runner calls.
+"""Ridge-type (L2) family in representer form: grid, exact path over λ, prediction.
 
     minimise (1/n) Σ loss(yᵢ, b + (Kc)ᵢ) + (λ/2) cᵀKc,  intercept b unpenalised.
 
@@ -10,20 +10,16 @@ from __future__ import annotations
 
 import numpy as np
 
-from pipeline.models.l2_eigen import KernelEigen, effective_df, kernel_eigen
-from pipeline.models.l2_path import L2Path
-from pipeline.models.l2_squared import squared_path, squared_primal_path
+from pipeline.losses import get_loss
+from pipeline.models.ridge.eigen import KernelEigen, effective_df, kernel_eigen
+from pipeline.models.ridge.result import L2Path
+from pipeline.models.ridge.closed_form import squared_path, squared_primal_path
 
-__all__ = ["L2Path", "KernelEigen", "kernel_eigen", "l2_lambda_grid", "fit_l2_path",
-           "fit_l2_primal_path", "predict_path", "predict_rows", "kfold_errors", "primal_weights", "loss_name"]
+__all__ = ["L2Path", "KernelEigen", "kernel_eigen", "l2_lambda_grid", "spectrum_lambda_grid", "fit_l2_path",
+           "fit_l2_primal_path", "predict_path", "predict_rows", "kfold_errors", "primal_weights"]
 
 # Blocks of test rows in prediction: memory stays at block × n floats.
 PREDICT_BLOCK_ROWS = 4096
-
-
-def loss_name(loss) -> str:
-    """Accept a loss object from pipeline.losses (``.name``) or its name."""
-    return loss if isinstance(loss, str) else str(getattr(loss, "name"))
 
 
 def _df_to_lambda(d: np.ndarray, n: int, target: float) -> float:
@@ -47,7 +43,13 @@ def l2_lambda_grid(K, n_lambdas: int, df_range=(1.0, None), min_lambda_ratio: fl
     one cannot reach df ≈ n − 1 otherwise). ``K`` may be a KernelEigen already made.
     """
     eig = K if isinstance(K, KernelEigen) else kernel_eigen(K, fit_intercept, on_psd_fail="ignore")
-    d, n = eig.eigenvalues, eig.n
+    return spectrum_lambda_grid(eig.eigenvalues, eig.n, n_lambdas, df_range, min_lambda_ratio)
+
+
+def spectrum_lambda_grid(d, n: int, n_lambdas: int, df_range=(1.0, None),
+                         min_lambda_ratio: float = 1e-10) -> np.ndarray:
+    """l2_lambda_grid from the (centred) Gram eigenvalues d of n rows, or of a low-rank stand-in."""
+    d = np.asarray(d, dtype=float)
     df_lo, df_hi = df_range
     df_hi = 0.95 * (n - 1) if df_hi is None else df_hi
     rank_df = float(np.sum(d > 1e-12 * max(d.max(), 1e-300)))
@@ -65,7 +67,7 @@ def fit_l2_path(K, y, loss, lambdas, *, fit_intercept: bool = True, eigen: Kerne
     """Fit the whole λ path on the training Gram K (n, n).
 
     Squared loss: closed form from one eigendecomposition, with exact LOO and GCV.
-    Other losses: see pipeline.models.l2_general (Newton in eigen-coordinates for
+    Other losses: see pipeline.models.ridge.other_losses (Newton in eigen-coordinates for
     smooth losses, cvxpy for non-smooth ones), warm-started along the path.
     The PSD check runs on the eigenvalues (raise / warn / ignore per on_psd_fail).
     """
@@ -76,10 +78,9 @@ def fit_l2_path(K, y, loss, lambdas, *, fit_intercept: bool = True, eigen: Kerne
     eig = eigen if eigen is not None else kernel_eigen(K, fit_intercept, psd_tol, on_psd_fail)
     if eig.n != y.shape[0]:
         raise ValueError(f"Gram has {eig.n} rows but y has {y.shape[0]}")
-    name = loss_name(loss)
-    if name == "squared":
+    if get_loss(loss).quadratic:
         return squared_path(eig, y, lambdas)
-    from pipeline.models.l2_general import general_path  # cvxpy import only when needed
+    from pipeline.models.ridge.other_losses import general_path  # cvxpy import only when needed
     return general_path(eig, y, loss, lambdas, **(solver_options or {}))
 
 
@@ -128,7 +129,6 @@ def kfold_errors(K, y, loss, lambdas, folds) -> np.ndarray:
     Each fold fits on its own sub-Gram K[train, train] (one decomposition per fold)
     and predicts with K[val, train]; the table feeds pipeline.selection directly.
     """
-    from pipeline.losses import get_loss
     K = np.asarray(K, dtype=float)
     y = np.asarray(y, dtype=float)
     lo = get_loss(loss)

@@ -26,8 +26,8 @@ import numpy as np
 import scipy.linalg
 
 from pipeline.losses import get_loss
-from pipeline.models.l2_eigen import KernelEigen
-from pipeline.models.l2_path import L2Path
+from pipeline.models.ridge.eigen import KernelEigen
+from pipeline.models.ridge.result import L2Path
 
 RANK_TOL = 1e-10
 # Tighter than CLARABEL's defaults (1e-8): the elbow count and reference agreement need it.
@@ -190,7 +190,7 @@ def general_path(eig: KernelEigen, y, loss, lambdas, *, rank_tol: float = RANK_T
                                                       col_scale=sq**2, **solve_options)
     C = (beta / sq[None, :]) @ U_r.T               # c = U_r D_r^{-1/2} β
     if eig.centred:
-        C -= C.mean(axis=1, keepdims=True)         # exact c ⟂ 1 (see l2_squared)
+        C -= C.mean(axis=1, keepdims=True)         # exact c ⟂ 1 (see closed_form)
     return L2Path(lambdas=np.asarray(lambdas, float), dual_coef=C,
                   intercept=b - eig.intercept_shift(C), effective_df=df, loo_error=None,
                   gcv=None, converged=ok, status=status, fit_seconds=time.perf_counter() - start,

@@ -2,13 +2,13 @@
 and an optimality certificate per fit.
 
 At each lambda the problem restricted to a working set W is solved by a convex
-solver (see l1_restricted); one product X'u checks the optimality conditions on
+solver (see restricted); one product X'u checks the optimality conditions on
 every column and violators join W. W is seeded by the sequential strong rule
 (Tibshirani et al. 2012, JRSS-B 74(2)) or by the previous active set.
 
 For smooth losses, solver "auto" / "active_set" first tries active-set continuation
-from the previous lambda (l1_active.refine over every column); the convex solver
-runs only where that does not settle. Solver "osqp" / "cvxpy" forces the solver route.
+from the previous lambda (active_set.refine over every column); the convex solver
+runs only where that does not settle. A named solver forces that route; routing.SOLVER_TABLE says which solver takes which problem.
 """
 from __future__ import annotations
 
@@ -18,12 +18,13 @@ from dataclasses import dataclass, field
 import numpy as np
 from threadpoolctl import threadpool_limits
 
-from pipeline.losses import Loss, get_loss, intercept_only_dual, lambda_max
-from pipeline.models import l1_certificate as cert
-from pipeline.models import l1_restricted as rs
-from pipeline.models.l1_active import GramCache, refine
+from pipeline.losses import get_loss
+from pipeline.models.sparse import certificate as cert
+from pipeline.models.sparse import restricted as rs
+from pipeline.models.sparse.active_set import GramCache, refine
+from pipeline.models.sparse.dual import intercept_only_dual, lambda_max
+from pipeline.models.sparse.routing import AUTOMATIC, route as choose_route
 
-SOLVERS = ("auto", "active_set", "osqp", "highs", "cvxpy")
 SCREENING = ("strong", "active")
 
 
@@ -70,37 +71,16 @@ def predict_path(path: L1Path, X) -> np.ndarray:
     return path.coef @ np.asarray(X, float).T + path.intercept[:, None]
 
 
-def _route(loss: Loss, alpha: float, solver: str) -> str:
-    if solver not in SOLVERS:
-        raise ValueError(f"unknown solver '{solver}': valid are {', '.join(SOLVERS)}")
-    if solver == "highs" and (loss.smooth or alpha < 1.0):
-        raise ValueError("solver 'highs' (split LP) handles absolute, quantile and hinge "
-                         "losses with alpha = 1 only")
-    if solver == "osqp" and not loss.quadratic:
-        raise ValueError("solver 'osqp' (Gram form) handles the squared loss only")
-    if solver not in ("auto", "active_set"):
-        return solver
-    if loss.quadratic:
-        return "osqp"
-    if not loss.smooth and alpha >= 1.0:
-        return "highs"
-    return "cvxpy"
-
-
 def _solve_restricted(route, XW, y, lam, alpha, loss, warm, tol):
+    """One restricted solve by the routed solver (highs is kept warm by PathFitter instead)."""
     if route == "osqp":
-        if not loss.quadratic:
-            raise ValueError("solver 'osqp' (Gram form) handles the squared loss only")
         return rs.solve_squared_gram(XW, y, lam, alpha, warm=warm, tol=min(tol, 1e-7) * 1e-2)
-    if route == "highs":  # validation only: the path keeps a warm LP (see _PathFitter)
-        if loss.smooth or alpha < 1.0:
-            raise ValueError("solver 'highs' (split LP) handles absolute, quantile and hinge "
-                             "losses with alpha = 1 only")
+    if route == "highs":
         return rs.solve_piecewise_lp(XW, y, lam, loss)
     return rs.solve_cvxpy(XW, y, lam, alpha, loss, warm=warm, tol=min(tol, 1e-7) * 1e-2)
 
 
-class _PathFitter:
+class PathFitter:
     """State carried along the path: warm start, last gradient, active set."""
 
     def __init__(self, X, y, loss, alpha, tol, route, max_rounds, screening, continuation):
@@ -212,9 +192,9 @@ def _fit_path(X, y, loss, lambdas, alpha, tol, solver, max_working_set_rounds, s
         raise ValueError(f"unknown screening '{screening}': valid are {', '.join(SCREENING)}")
     if loss.task == "classification" and not np.all(np.isin(y, (-1.0, 1.0))):
         raise ValueError("classification losses need labels in {-1, +1}")
-    route = _route(loss, alpha, solver)
-    fitter = _PathFitter(X, y, loss, alpha, tol, route, max_working_set_rounds, screening,
-                         continuation=solver in ("auto", "active_set"))
+    route = choose_route(loss, alpha, solver)
+    fitter = PathFitter(X, y, loss, alpha, tol, route, max_working_set_rounds, screening,
+                        continuation=solver in AUTOMATIC)
     L, p = lambdas.size, X.shape[1]
     coefs, icpts = np.zeros((L, p)), np.zeros(L)
     gaps, kkts, objs = np.zeros(L), np.zeros(L), np.zeros(L)
@@ -257,7 +237,7 @@ def degrees_of_freedom(path: L1Path, X) -> np.ndarray:
     columns of the support S (Zou & Hastie 2005, JRSS-B 67(2)). Other losses with alpha < 1
     get the nonzero count as an upper bound.
     """
-    if path.alpha >= 1.0 or path.loss != "squared":
+    if path.alpha >= 1.0 or not get_loss(path.loss).quadratic:
         return path.n_nonzero.astype(float)
     X = np.asarray(X, float)
     Xc = X - X.mean(axis=0)

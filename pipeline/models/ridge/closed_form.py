@@ -13,11 +13,11 @@ import time
 import numpy as np
 import scipy.linalg
 
-from pipeline.models.l2_eigen import KernelEigen
-from pipeline.models.l2_path import L2Path
+from pipeline.models.ridge.eigen import KernelEigen
+from pipeline.models.ridge.result import L2Path
 
 
-def _finish_stats(resid: np.ndarray, hat_diag: np.ndarray, trace: np.ndarray, finite_coef):
+def loo_gcv_stats(resid: np.ndarray, hat_diag: np.ndarray, trace: np.ndarray, finite_coef):
     """Mean squared LOO residual rᵢ/(1 − Sᵢᵢ), GCV, and a per-λ verdict."""
     n = resid.shape[0]
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -29,7 +29,7 @@ def _finish_stats(resid: np.ndarray, hat_diag: np.ndarray, trace: np.ndarray, fi
 
 
 def _finish(lambdas, C, intercept, df, resid, hat_diag, centred, start, psd_ratio=None):
-    loo, gcv, ok, status = _finish_stats(resid, hat_diag, df + (1.0 if centred else 0.0),
+    loo, gcv, ok, status = loo_gcv_stats(resid, hat_diag, df + (1.0 if centred else 0.0),
                                          np.all(np.isfinite(C), axis=0))
     return L2Path(lambdas=lambdas, dual_coef=np.ascontiguousarray(C.T), intercept=intercept,
                   effective_df=df, loo_error=loo, gcv=gcv, converged=ok, status=status,

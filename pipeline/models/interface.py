@@ -1,0 +1,69 @@
+"""The one interface every model family exports (pipeline.models.sparse, pipeline.models.ridge).
+
+The runner, the fit task, the estimators, tracking and the report talk to a family only
+through a `Family`: they read its labels and properties and call grid / fit_path /
+predict, and never ask which family it is by name. A family's fit of one λ path comes
+back as a `PathFit`, the same shape for every family.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from pipeline.losses import Loss
+
+
+@dataclass(frozen=True)
+class PathFit:
+    """One family's path over λ on the training rows, on the scale it was fitted on."""
+    lambdas: np.ndarray              # (L,) decreasing
+    intercept: np.ndarray            # (L,)
+    coef: np.ndarray | None          # (L, p) weight per fitted column; None where the family has none
+    n_nonzero: np.ndarray | None     # (L,) size of the support, for families with exact zeros
+    effective_df: np.ndarray         # (L,)
+    df_kind: str                     # what effective_df counts
+    certificate: np.ndarray | None   # (L,) optimality certificate, for families that give one
+    certificate_kind: str
+    converged: np.ndarray            # (L,) bool
+    status: tuple[str, ...]
+    solver: str
+    fit_seconds: float
+    loo_error: np.ndarray | None = None   # exact leave-one-out error, where the family has it
+    gcv: np.ndarray | None = None
+    note: str = ""                   # how the path was fitted when that is worth saying (e.g. low rank)
+    model: Any = None                # the family's own path object, read back by predict
+
+
+class Family:
+    """A penalised model family. Subclasses set the labels and implement the four methods."""
+    key: str                  # its section under `families:` in the experiment file
+    title: str                # how the report, tracking and CLI name it
+    colour: str               # plot colour (Okabe & Ito colour-blind-safe palette)
+    marker: str               # plot marker
+    has_support: bool         # exact zeros: the fit selects a set of features
+    selected_set: str         # which features count as selected in stability summaries
+    df_description: str       # what its degrees of freedom count, in general terms
+    gives_certificate: bool   # each fit carries an optimality certificate
+    grid_reads_loss: bool     # the λ grid depends on the loss (else one grid serves every loss)
+
+    def options(self, section, seed: int = 0) -> dict:
+        """The picklable fit options from its config section; `seed` for any random choice it makes."""
+        raise NotImplementedError
+
+    def has_coefficients(self, options: dict) -> bool:
+        """Whether fits with these options have one weight per feature."""
+        raise NotImplementedError
+
+    def grid(self, Z, t, loss: Loss, options: dict) -> np.ndarray:
+        """Decreasing λ grid from the training features Z and (scaled) targets t."""
+        raise NotImplementedError
+
+    def fit_path(self, Z, t, loss: Loss, lambdas, options: dict) -> PathFit:
+        """Fit every λ of the grid on the training features Z and targets t."""
+        raise NotImplementedError
+
+    def predict(self, fit: PathFit, Z) -> np.ndarray:
+        """Decision values (L, m) of the fitted path on the rows Z (built like the training ones)."""
+        raise NotImplementedError

@@ -1,0 +1,15 @@
+"""Ridge-type (L2) family in representer form: f = b + Σⱼ cⱼ k(xⱼ, ·), penalty (λ/2)‖f‖²_H.
+
+Modules: path (grid, exact path, prediction), eigen (one eigendecomposition shared by every
+λ), closed_form (squared loss with exact LOO/GCV), other_losses (Newton / cvxpy in
+eigen-coordinates), nystrom (low-rank route past family.EXACT_MAX_ROWS rows), result
+(the path value type), family (the common interface, `RIDGE`).
+"""
+from pipeline.models.ridge.family import EXACT_MAX_ROWS, N_LANDMARKS, RIDGE, RidgeFamily, RidgeModel
+from pipeline.models.ridge.path import (KernelEigen, L2Path, fit_l2_path, fit_l2_primal_path, kernel_eigen,
+                                        kfold_errors, l2_lambda_grid, predict_path, predict_rows,
+                                        primal_weights, spectrum_lambda_grid)
+
+__all__ = ["RIDGE", "RidgeFamily", "RidgeModel", "EXACT_MAX_ROWS", "N_LANDMARKS", "L2Path", "KernelEigen",
+           "kernel_eigen", "l2_lambda_grid", "spectrum_lambda_grid", "fit_l2_path", "fit_l2_primal_path",
+           "predict_path", "predict_rows", "primal_weights", "kfold_errors"]
