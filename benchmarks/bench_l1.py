@@ -12,8 +12,8 @@ import numpy as np
 
 from benchmarks.harness import timed_pair
 from pipeline.losses import get_loss
-from pipeline.models.l1 import default_lambdas, fit_l1_path
-from pipeline.models.l1_certificate import primal_value
+from pipeline.models.sparse.path import default_lambdas, fit_l1_path
+from pipeline.models.sparse.certificate import primal_value
 
 N_LAMBDAS, RATIO = 30, 0.01
 

@@ -35,7 +35,7 @@ def bench_l2_path_vs_gridsearch():
     from sklearn.model_selection import GridSearchCV
 
     from pipeline.kernels import gram
-    from pipeline.models.l2 import fit_l2_path, l2_lambda_grid
+    from pipeline.models.ridge.path import fit_l2_path, l2_lambda_grid
 
     X, y = _regression_data(PATH_N, PATH_P)
     n = len(y)
@@ -58,7 +58,7 @@ def bench_l2_path_vs_gridsearch():
 
 def bench_l2_path_vs_eigh_floor():
     from pipeline.kernels import gram
-    from pipeline.models.l2 import fit_l2_path, l2_lambda_grid
+    from pipeline.models.ridge.path import fit_l2_path, l2_lambda_grid
 
     X, y = _regression_data(PATH_N, PATH_P)
     K = gram(X, kernel="rbf", bandwidth=BANDWIDTH)
@@ -71,8 +71,8 @@ def bench_l2_path_vs_eigh_floor():
 
 # ------------------------------------------------------------- child workloads
 def _child_nystrom() -> dict:
-    from pipeline.models.l2 import predict_rows
-    from pipeline.models.l2_nystrom import fit_nystrom_path, nystrom_gap
+    from pipeline.models.ridge.path import predict_rows
+    from pipeline.models.ridge.nystrom import fit_nystrom_path, nystrom_gap
 
     X, y = _regression_data(50_000, PATH_P, seed=1)
     lambdas = np.geomspace(1e-1, 1e-7, N_LAMBDAS)
@@ -89,7 +89,7 @@ def _child_nystrom() -> dict:
 
 def _child_million_features() -> dict:
     from pipeline.kernels import feature_gram, random_fourier_blocks
-    from pipeline.models.l2 import fit_l2_path, predict_path
+    from pipeline.models.ridge.path import fit_l2_path, predict_path
 
     X, y = _regression_data(2500, PATH_P, seed=2)
     Xtr, ytr, Xte, yte = X[:2000], y[:2000], X[2000:], y[2000:]

@@ -32,8 +32,8 @@ def _problem(seed: int = 0):
 
 
 def _grid(X, y):
-    from pipeline.models.l1 import lambda_grid
-    from pipeline.losses import lambda_max
+    from pipeline.models.sparse.path import lambda_grid
+    from pipeline.models.sparse import lambda_max
 
     Xs = (X - X.mean(axis=0)) / X.std(axis=0)
     return lambda_grid(lambda_max(Xs, y - y.mean(), "squared"), N_LAMBDAS, RATIO)
@@ -52,7 +52,7 @@ def _to_original_scale(coef, y_mean, mean, scale):
 def fit_project_l1(X, y, lambdas):
     """The project's L1 path, squared loss, on standardised columns of one subsample."""
     from pipeline.losses import get_loss
-    from pipeline.models.l1 import fit_l1_path
+    from pipeline.models.sparse.path import fit_l1_path
 
     Xs, yc, mean, scale = _standardised(X, y)
     path = fit_l1_path(Xs, yc, get_loss("squared"), lambdas)

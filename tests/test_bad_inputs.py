@@ -15,7 +15,7 @@ import pandas as pd
 import pytest
 
 from pipeline.cli import main
-from pipeline.models.l1 import SOLVERS
+from pipeline.models.sparse import SOLVERS
 
 SMALL = ("stability: {enabled: false}\nfamilies: {l1: {n_lambdas: 4}, l2: {n_lambdas: 4}}\n"
          "selection: {cv_folds: 3}\n")
@@ -200,10 +200,10 @@ def test_categorical_encoded_and_constant_dropped_with_notes(tmp_path, store, mo
 
 
 def test_failed_solver_on_one_fit_is_recorded_and_the_run_goes_on(tmp_path, store, monkeypatch):
-    import pipeline.models.l1 as l1
+    import pipeline.models.sparse.path as l1
     from mlflow.tracking import MlflowClient
     monkeypatch.chdir(tmp_path)
-    real_step = l1._PathFitter.step
+    real_step = l1.PathFitter.step
     failing_lambda = {}
 
     def step(self, lam):
@@ -212,7 +212,7 @@ def test_failed_solver_on_one_fit_is_recorded_and_the_run_goes_on(tmp_path, stor
             raise RuntimeError("solver gave up (injected)")
         return real_step(self, lam)
 
-    monkeypatch.setattr(l1._PathFitter, "step", step)
+    monkeypatch.setattr(l1.PathFitter, "step", step)
     (tmp_path / "data.csv").write_text(_csv(_frame(n=40)), encoding="utf-8")
     (tmp_path / "experiment.yaml").write_text(_file_config() + "cache: {enabled: false}\n", encoding="utf-8")
     out = io.StringIO()

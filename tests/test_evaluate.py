@@ -331,8 +331,10 @@ def _duel_on_linear_truth(beta, n_train, n_test, n_lambdas, seed):
     """Both project families, squared loss, linear features; λ by 5-fold CV (min rule) on
     identical folds, refit on all training rows, paired bootstrap on the test rows."""
     from pipeline.kernels import gram
-    from pipeline.losses import get_loss, lambda_max
-    from pipeline.models import l1, l2
+    from pipeline.losses import get_loss
+    from pipeline.models.ridge import path as l2
+    from pipeline.models.sparse import lambda_max
+    from pipeline.models.sparse import path as l1
     from pipeline.selection import choose_lambda_index, make_folds
 
     rng = np.random.default_rng(seed)

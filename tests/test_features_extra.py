@@ -7,7 +7,7 @@ from sklearn.metrics.pairwise import rbf_kernel
 
 from pipeline.features.extra import KernelDictionary, RandomReLU, SplineBasis, blockwise_xt_dot
 from pipeline.losses import get_loss
-from pipeline.models.l1 import fit_l1_path
+from pipeline.models.sparse.path import fit_l1_path
 
 rng = np.random.default_rng(0)
 X = rng.normal(size=(60, 3))

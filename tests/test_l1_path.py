@@ -1,11 +1,12 @@
-"""Path behaviour of pipeline.models.l1 for every loss: KKT at every point, all-zero at
+"""Path behaviour of pipeline.models.sparse for every loss: KKT at every point, all-zero at
 lambda_max, exact zeros, certificates, agreement with an independent full cvxpy solve."""
 import cvxpy as cp
 import numpy as np
 import pytest
 
-from pipeline.losses import LOSS_NAMES, get_loss, lambda_max
-from pipeline.models.l1 import L1Path, default_lambdas, fit_l1_path, lambda_grid, predict_path
+from pipeline.losses import LOSS_NAMES, get_loss
+from pipeline.models.sparse import lambda_max
+from pipeline.models.sparse.path import L1Path, default_lambdas, fit_l1_path, lambda_grid, predict_path
 
 
 def _problem(task, n=120, p=30, seed=0):
@@ -114,7 +115,7 @@ def test_lambda_grid_and_predict():
 
 
 def test_solver_failure_is_recorded_not_raised(monkeypatch):
-    from pipeline.models import l1_restricted
+    from pipeline.models.sparse import restricted as l1_restricted
 
     X, y = _problem("regression", n=60, p=10)
     lams = default_lambdas(X, y, "squared", 4, 0.1)
@@ -146,7 +147,7 @@ def test_bad_inputs():
 
 
 def test_degrees_of_freedom():
-    from pipeline.models.l1 import degrees_of_freedom
+    from pipeline.models.sparse.path import degrees_of_freedom
 
     X, y = _problem("regression", n=100, p=20, seed=6)
     lams = default_lambdas(X, y, "squared", 5, 0.05)

@@ -9,8 +9,9 @@ import pytest
 from sklearn.datasets import load_diabetes
 from sklearn.linear_model import Lasso, LogisticRegression, QuantileRegressor, lars_path
 
-from pipeline.losses import get_loss, lambda_max
-from pipeline.models.l1 import fit_l1_path, lambda_grid
+from pipeline.losses import get_loss
+from pipeline.models.sparse import lambda_max
+from pipeline.models.sparse.path import fit_l1_path, lambda_grid
 
 
 @pytest.fixture(scope="module")

@@ -7,8 +7,8 @@ import pytest
 from scipy.optimize import minimize
 
 from pipeline.losses import get_loss
-from pipeline.models import l1_restricted as rs
-from pipeline.models.l1_certificate import primal_value
+from pipeline.models.sparse import restricted as rs
+from pipeline.models.sparse.certificate import primal_value
 
 LAM = 0.02
 

@@ -7,7 +7,7 @@ from sklearn.utils.estimator_checks import parametrize_with_checks
 
 from pipeline.kernels import gram
 from pipeline.models.estimators import KernelL2Classifier, KernelL2Regressor
-from pipeline.models.l2 import fit_l2_path, l2_lambda_grid
+from pipeline.models.ridge.path import fit_l2_path, l2_lambda_grid
 
 
 @parametrize_with_checks([KernelL2Regressor(), KernelL2Classifier()])

@@ -15,7 +15,7 @@ from sklearn.svm import SVC, LinearSVC
 
 from pipeline.kernels import gram
 from pipeline.losses import get_loss
-from pipeline.models.l2 import fit_l2_path, predict_path, primal_weights
+from pipeline.models.ridge.path import fit_l2_path, predict_path, primal_weights
 
 
 @pytest.fixture(scope="module")

@@ -3,8 +3,8 @@ import numpy as np
 import pytest
 
 from pipeline.kernels import gram
-from pipeline.models.l2 import fit_l2_path, fit_l2_primal_path, predict_path
-from pipeline.models.l2_nystrom import fit_nystrom_path, nystrom_gap
+from pipeline.models.ridge.path import fit_l2_path, fit_l2_primal_path, predict_path
+from pipeline.models.ridge.nystrom import fit_nystrom_path, nystrom_gap
 
 
 def _data(n=400, seed=0):
@@ -67,14 +67,20 @@ def test_other_losses_with_all_rows_as_landmarks_match_the_exact_route(loss):
 
 
 def test_route_switches_past_the_size_limit_and_says_so():
-    from pipeline.models.l2_route import fit_l2_rows
+    from pipeline.losses import get_loss
+    from pipeline.models.ridge import RIDGE
     X, y = _data(n=300, seed=5)
     lambdas = np.array([1e-2])
-    exact = fit_l2_rows(X, y, "squared", lambdas, kernel="rbf", max_exact_n=300)
-    low = fit_l2_rows(X, y, "squared", lambdas, kernel="rbf", max_exact_n=299, n_landmarks=120)
-    assert exact.route == "exact" and exact.note == ""
-    assert low.route == "nystrom" and "exceeds the exact-route limit 299" in low.note
-    assert low.basis_rows.shape == (120, 3)
+    options = {"kernel": "rbf", "kernel_params": (), "n_lambdas": 5, "landmark_seed": 0}
+    sq = get_loss("squared")
+    exact = RIDGE.fit_path(X, y, sq, lambdas, {**options, "max_exact_rows": 300})
+    low = RIDGE.fit_path(X, y, sq, lambdas, {**options, "max_exact_rows": 299, "n_landmarks": 120})
+    assert exact.solver == "representer" and exact.note == ""
+    assert low.solver == "nystrom" and "exceed 299" in low.note
+    assert low.model.basis.shape == (120, 3)
     Xt = X[:40]
     # Low rank (m = 120 of 300) on a smooth target at moderate λ: close, not equal.
-    np.testing.assert_allclose(low.predict(Xt), exact.predict(Xt), atol=1e-3)
+    np.testing.assert_allclose(RIDGE.predict(low, Xt), RIDGE.predict(exact, Xt), atol=1e-3)
+    # the grid of the low-rank route comes from its own spectrum and spans the same df range
+    grid = RIDGE.grid(X, y, sq, {**options, "max_exact_rows": 299, "n_landmarks": 120})
+    assert grid.shape == (5,) and np.all(np.diff(grid) < 0)

@@ -12,7 +12,7 @@ from sklearn.kernel_ridge import KernelRidge
 from sklearn.linear_model import Ridge
 
 from pipeline.kernels import gram
-from pipeline.models.l2 import (fit_l2_path, fit_l2_primal_path, l2_lambda_grid, predict_path,
+from pipeline.models.ridge.path import (fit_l2_path, fit_l2_primal_path, l2_lambda_grid, predict_path,
                                 predict_rows, primal_weights)
 
 
@@ -166,7 +166,7 @@ def test_kfold_errors_equal_brute_force_refits_per_fold():
     # Brute force: refit on each training fold, score ½(y − f)² on its held-out fold.
     # (The per-fold fit itself is checked against scikit-learn above.)
     from sklearn.model_selection import KFold
-    from pipeline.models.l2 import kfold_errors
+    from pipeline.models.ridge.path import kfold_errors
     X, y, _ = _data(n=60, seed=8)
     K = gram(X, kernel="rbf", bandwidth=1.0)
     folds = list(KFold(4, shuffle=True, random_state=0).split(X))

@@ -6,7 +6,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.optimize import minimize_scalar
 
-from pipeline.losses import LOSS_NAMES, get_loss, intercept_only_dual, lambda_max
+from pipeline.losses import LOSS_NAMES, get_loss
+from pipeline.models.sparse import intercept_only_dual, lambda_max
 
 ALL = [get_loss(n) for n in LOSS_NAMES] + [get_loss("huber", delta=0.3), get_loss("quantile", tau=0.2)]
 IDS = [f"{l.name}-{getattr(l, 'delta', getattr(l, 'tau', ''))}" for l in ALL]

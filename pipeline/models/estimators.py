@@ -1,4 +1,5 @@
-"""scikit-learn-compatible estimators over the two families.
+"""scikit-learn-compatible estimators: thin wrappers over the family interface the pipeline fits with
+(`RIDGE` / `SPARSE` grid, fit_path and predict), so what a user imports and what a run fits are one code.
 
 L2 (representer form) part: KernelL2Regressor, KernelL2Classifier. Both minimise
 (1/n) Σ loss(yᵢ, b + (Kc)ᵢ) + (λ/2) cᵀKc with the intercept unpenalised; with
@@ -14,9 +15,10 @@ from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
 from sklearn.utils.multiclass import check_classification_targets
 from sklearn.utils.validation import check_is_fitted, validate_data
 
-from pipeline.kernels import gram, resolve_params
+from pipeline.kernels import resolve_params
 from pipeline.losses import get_loss
-from pipeline.models.l2 import fit_l2_path, kernel_eigen, l2_lambda_grid, predict_rows
+from pipeline.models.ridge import RIDGE, RidgeModel
+from pipeline.models.sparse import SPARSE, lambda_max
 
 # ---------------------------------------------------------------- L2 family
 DEFAULT_LAM = 1e-3
@@ -35,27 +37,26 @@ class _KernelL2Base(BaseEstimator):
         return loss
 
     def _fit_targets(self, X, targets, n_lambdas=30):
-        """Fit one path per column of targets (n, k), sharing one eigendecomposition."""
+        """Fit one path per column of targets (n, k) through the ridge family."""
         loss = self._check_params()
         self.kernel_params_ = resolve_params(X, self.kernel, **(self.kernel_params or {}))
-        self.X_fit_ = X
-        eig = kernel_eigen(gram(X, kernel=self.kernel, **self.kernel_params_), self.fit_intercept,
-                           on_psd_fail="warn")
+        options = {"kernel": self.kernel, "kernel_params": tuple(sorted(self.kernel_params_.items())),
+                   "n_lambdas": n_lambdas, "fit_intercept": self.fit_intercept, "on_psd_fail": "warn"}
         coefs, intercepts, dfs = [], [], []
         for t in targets.T:
             if self.lam is None and loss.quadratic and X.shape[0] > 2:
-                grid = l2_lambda_grid(eig, n_lambdas)
-                path = fit_l2_path(None, t, loss, grid, eigen=eig)
-                best = int(np.nanargmin(path.loo_error))
+                fit = RIDGE.fit_path(X, t, loss, RIDGE.grid(X, t, loss, options), options)
+                best = int(np.nanargmin(fit.loo_error))
             else:
                 lam = DEFAULT_LAM if self.lam is None else self.lam
-                path = fit_l2_path(None, t, loss, [lam], eigen=eig)
+                fit = RIDGE.fit_path(X, t, loss, [lam], options)
                 best = 0
-            self.lam_ = float(path.lambdas[best])
-            coefs.append(path.dual_coef[best])
-            intercepts.append(path.intercept[best])
-            dfs.append(path.effective_df[best])
-        self.dual_coef_ = np.array(coefs)          # (k, n)
+            self.lam_ = float(fit.lambdas[best])
+            coefs.append(fit.model.path.dual_coef[best])
+            intercepts.append(fit.intercept[best])
+            dfs.append(fit.effective_df[best])
+            self.basis_ = fit.model.basis            # training rows, or landmarks past EXACT_MAX_ROWS
+        self.dual_coef_ = np.array(coefs)          # (k, n_basis)
         self.intercept_ = np.array(intercepts)     # (k,)
         self.effective_df_ = np.array(dfs)
         return self
@@ -64,7 +65,7 @@ class _KernelL2Base(BaseEstimator):
         check_is_fitted(self, "dual_coef_")
         X = validate_data(self, X, reset=False)
         path = SimpleNamespace(dual_coef=self.dual_coef_, intercept=self.intercept_)
-        return predict_rows(path, X, self.X_fit_, self.kernel, **self.kernel_params_).T  # (m, k)
+        return RidgeModel(path, self.basis_, self.kernel, self.kernel_params_).predict(X).T  # (m, k)
 
 
 class KernelL2Regressor(RegressorMixin, _KernelL2Base):
@@ -140,6 +141,11 @@ def signed_targets(y):
     return classes, (signs[:, 1:] if len(classes) == 2 else signs)
 
 
+def warm_start_grid(top: float, lam: float) -> list[float]:
+    """A short path from lambda_max down to lam: warm starts make the final fit cheap."""
+    return [lam] if top <= lam or lam == 0 else list(np.geomspace(top, lam, 6))
+
+
 class _SparseL1Base(BaseEstimator):
     """Columns are standardised on the training rows; the penalty acts on that scale and
     coef_ / intercept_ are reported on the input scale. l1_ratio is the elastic-net
@@ -158,24 +164,21 @@ class _SparseL1Base(BaseEstimator):
         return loss
 
     def _fit_targets(self, X, targets):
-        from pipeline.losses import lambda_max
-        from pipeline.models.l1 import fit_l1_path
-
+        """Fit each column of targets through the sparse family, on columns standardised here."""
         loss = self._check_loss()
         mean, scale = X.mean(axis=0), X.std(axis=0)
         scale[scale == 0] = 1.0
         Z = (X - mean) / scale
+        options = {"alpha": self.l1_ratio, "tol": self.tol, "solver": self.solver}
         coefs, intercepts, gaps, lams = [], [], [], []
         for t in targets.T:
             top = lambda_max(Z, t, loss, self.l1_ratio) if Z.shape[1] else 0.0
             lam = DEFAULT_L1_FRACTION * top if self.lam is None else float(self.lam)
-            # a short warm-start path from lambda_max makes the final fit cheap
-            grid = [lam] if top <= lam or lam == 0 else list(np.geomspace(top, lam, 6))
-            path = fit_l1_path(Z, t, loss, grid, alpha=self.l1_ratio, tol=self.tol, solver=self.solver)
-            w = path.coef[-1] / scale
+            fit = SPARSE.fit_path(Z, t, loss, warm_start_grid(top, lam), options)
+            w = fit.coef[-1] / scale
             coefs.append(w)
-            intercepts.append(path.intercept[-1] - w @ mean)
-            gaps.append(path.certificate[-1])
+            intercepts.append(fit.intercept[-1] - w @ mean)
+            gaps.append(fit.certificate[-1])
             lams.append(lam)
         self.lam_ = np.array(lams)
         self.certificate_ = np.array(gaps)   # relative duality gap of each final fit
