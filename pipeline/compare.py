@@ -9,6 +9,7 @@ import json
 import math
 
 from .evaluate import _winner
+from .models.families import compared_pair
 from .tracking import StoreError, child_runs, execution_runs, read_config, read_payload
 
 PRIMARY = {"regression": "rmse", "classification": "balanced_accuracy"}
@@ -74,7 +75,7 @@ def stored_verdicts(payload: dict) -> dict:
             won = "not compared"
         else:
             w = _winner(v["low"], v["high"], lower)
-            won = "no clear winner" if w is None else ("sparse (L1)", "ridge-type (L2)")[w]
+            won = "no clear winner" if w is None else compared_pair()[w].title
         out[v["loss"]] = {"sentence": v["sentence"], "winner": won}
     return out
 

@@ -84,12 +84,14 @@ def check_feature_budget(spec: ExperimentSpec, dataset: Dataset, n_train: int) -
             f"rows, about {mib:,.0f} MiB, over features.memory_budget_mib = {spec.features.memory_budget_mib}. "
             f"Use fewer features (lower degree or n_components) or the representer route (families.l2.kernel) "
             f"instead of an explicit map, or raise the budget.")
-    gram_mib = n_train ** 2 * 8 * 3 / 2**20   # K, its eigenvectors and one work copy
-    if spec.families.l2.enabled and gram_mib > spec.features.memory_budget_mib:
-        raise DataError(
-            f"families.l2: the Gram matrix of {n_train:,} training rows would take about {gram_mib:,.0f} MiB, "
-            f"over features.memory_budget_mib = {spec.features.memory_budget_mib}. Use fewer rows, disable "
-            f"families.l2 (the sparse family needs no Gram matrix) or raise the budget.")
+    for fam in enabled_families(spec):
+        gram_mib = fam.gram_mib(n_train)
+        if gram_mib > spec.features.memory_budget_mib:
+            raise DataError(
+                f"families.{fam.key}: the Gram matrix of {n_train:,} training rows would take about "
+                f"{gram_mib:,.0f} MiB, over features.memory_budget_mib = {spec.features.memory_budget_mib}. "
+                f"Use fewer rows, disable families.{fam.key} (the sparse family needs no Gram matrix) or "
+                f"raise the budget.")
     return width
 
 

@@ -9,12 +9,15 @@ from __future__ import annotations
 import numpy as np
 
 from . import seeds
+from .models.families import FAMILIES
 from .resampling import resample_indices
 from .stability import (compare_families, correlated_groups_sharing, lambda_range_for_error_bound,
                         selection_probabilities)
 
 TOP_FEATURES = 20
-
+# the family whose fits select a support, and the one compared with it by its top-k |w| set
+SUPPORT_FAMILY = next(f.key for f in FAMILIES if f.has_support)
+TOP_K_FAMILY = next(f.key for f in FAMILIES if not f.has_support)
 
 def stability_losses(spec) -> tuple[str, ...]:
     if not spec.stability.enabled:
@@ -47,21 +50,21 @@ def summarise_families(spec, outcomes_by_family: dict, lambdas_by_family: dict, 
     out = {"scheme": st.scheme, "n_resamples": st.n_resamples, "fraction": st.fraction,
            "threshold": st.threshold, "target_false_selections": st.target_false_selections,
            "group_correlation": st.group_correlation}
-    l1, l2 = outcomes_by_family.get("l1"), outcomes_by_family.get("l2")
+    l1, l2 = outcomes_by_family.get(SUPPORT_FAMILY), outcomes_by_family.get(TOP_K_FAMILY)
     have_l1 = l1 is not None and l1[0].coef is not None
     have_l2 = l2 is not None and l2[0].coef is not None
     if have_l1:
         paths = np.stack([o.coef for o in l1])                    # (M, L, p)
         probs = selection_probabilities(paths)                    # (L, p)
-        idx = chosen["l1"]
+        idx = chosen[SUPPORT_FAMILY]
         top = np.argsort(-probs.max(0), kind="stable")[:TOP_FEATURES]
-        control = lambda_range_for_error_bound(paths, lambdas_by_family["l1"], st.threshold,
+        control = lambda_range_for_error_bound(paths, lambdas_by_family[SUPPORT_FAMILY], st.threshold,
                                                st.target_false_selections)
         at_chosen = probs[idx]
         freq_order = np.argsort(-at_chosen, kind="stable")[:TOP_FEATURES]
-        out["l1_paths"] = {"lambdas": [float(x) for x in lambdas_by_family["l1"]],
+        out["l1_paths"] = {"lambdas": [float(x) for x in lambdas_by_family[SUPPORT_FAMILY]],
                            "names": _names(feature_names, top), "probabilities": probs[:, top].T.tolist()}
-        out["frequency"] = {"names": _names(feature_names, freq_order), "l1": at_chosen[freq_order].tolist()}
+        out["frequency"] = {"names": _names(feature_names, freq_order), SUPPORT_FAMILY: at_chosen[freq_order].tolist()}
         out["error_control"] = {
             "lambda_min": control["lambda_min"], "lambda_max": control["lambda_max"], "q": control["q"],
             "bound": control["bound"], "q_allowed": control["q_allowed"],
@@ -75,17 +78,17 @@ def summarise_families(spec, outcomes_by_family: dict, lambdas_by_family: dict, 
                               "any_member_frequency": g["any_member_frequency"],
                               "mean_members_selected": g["mean_members_selected"]} for g in groups[:8]]
     if have_l1 and have_l2:
-        l1_coefs = np.stack([o.coef[chosen["l1"]] for o in l1])
-        l2_coefs = np.stack([o.coef[chosen["l2"]] for o in l2])
-        l1_pred = np.stack([o.eval_pred[chosen["l1"]] for o in l1])
-        l2_pred = np.stack([o.eval_pred[chosen["l2"]] for o in l2])
+        l1_coefs = np.stack([o.coef[chosen[SUPPORT_FAMILY]] for o in l1])
+        l2_coefs = np.stack([o.coef[chosen[TOP_K_FAMILY]] for o in l2])
+        l1_pred = np.stack([o.eval_pred[chosen[SUPPORT_FAMILY]] for o in l1])
+        l2_pred = np.stack([o.eval_pred[chosen[TOP_K_FAMILY]] for o in l2])
         both = compare_families(l1_coefs, l2_coefs, l1_pred, l2_pred)
-        out["families"] = {fam: _family_row(both[fam]) for fam in ("l1", "l2")}
+        out["families"] = {SUPPORT_FAMILY: _family_row(both["l1"]), TOP_K_FAMILY: _family_row(both["l2"])}
         if "frequency" in out:
             l2_freq = both["l2"]["selection_frequency"]
             names = out["frequency"]["names"]
             lookup = {str(n): j for j, n in enumerate(feature_names)}
-            out["frequency"]["l2"] = [float(l2_freq[lookup[n]]) for n in names]
+            out["frequency"][TOP_K_FAMILY] = [float(l2_freq[lookup[n]]) for n in names]
     return out
 
 

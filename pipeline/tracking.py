@@ -30,6 +30,7 @@ import mlflow  # noqa: E402
 from mlflow.entities import Metric, Param, RunTag  # noqa: E402
 from mlflow.tracking import MlflowClient  # noqa: E402
 
+from .models.families import get_family  # noqa: E402
 from .stability import selection_probabilities  # noqa: E402
 
 PACKAGES = ("penduel", "numpy", "scipy", "scikit-learn", "cvxpy", "mlflow", "pandas")
@@ -234,8 +235,9 @@ class ExecutionLog:
                   Param("lambda_max", repr(float(r.lambdas[0]))), Param("lambda_min", repr(float(r.lambdas[-1]))),
                   Param("solver", r.path.solver)]
         params += [Param(f"loss_{k}", repr(v)) for k, v in r.loss_params.items()]
-        if r.family == "l2":
-            params.append(Param("kernel", result.spec.families.l2.kernel))
+        family = get_family(r.family)
+        section = getattr(result.spec.families, family.key)
+        params += [Param(name, str(getattr(section, name))) for name in family.tracked_settings]
         ts = 0
         metrics = []
         for step, lam in enumerate(r.lambdas):
@@ -287,7 +289,7 @@ class ExecutionLog:
             if metrics:
                 self.client.log_batch(rid, metrics=metrics)
         resamples = getattr(r, "resamples", ())
-        if r.family == "l1" and resamples and resamples[0].coef is not None:
+        if get_family(r.family).has_support and resamples and resamples[0].coef is not None:
             probs = selection_probabilities(np.stack([o.coef for o in resamples]))     # (L, p)
             frame = pd.DataFrame({"feature": list(result.feature_names),
                                   "at_chosen_lambda": probs[r.chosen_index]})

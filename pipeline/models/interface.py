@@ -40,13 +40,20 @@ class Family:
     """A penalised model family. Subclasses set the labels and implement the four methods."""
     key: str                  # its section under `families:` in the experiment file
     title: str                # how the report, tracking and CLI name it
+    short: str                # its penalty in two characters, for axis labels
     colour: str               # plot colour (Okabe & Ito colour-blind-safe palette)
     marker: str               # plot marker
     has_support: bool         # exact zeros: the fit selects a set of features
     selected_set: str         # which features count as selected in stability summaries
-    df_description: str       # what its degrees of freedom count, in general terms
+    selected_phrase: str      # the same, said of one feature ("in the support")
+    df_description: str       # what its degrees of freedom count, in a few words
     gives_certificate: bool   # each fit carries an optimality certificate
+    tracked_settings: tuple   # config fields of its section logged as parameters of every fit
     grid_reads_loss: bool     # the λ grid depends on the loss (else one grid serves every loss)
+
+    def gram_mib(self, n_rows: int) -> float:
+        """Memory (MiB) of the kernel matrices a fit on n_rows training rows holds; 0 without any."""
+        return 0.0
 
     def options(self, section, seed: int = 0) -> dict:
         """The picklable fit options from its config section; `seed` for any random choice it makes."""

@@ -9,15 +9,22 @@ from importlib import resources
 import jinja2
 import yaml
 
+from ..models.families import FAMILIES, compared_pair, get_family
 from . import plots
 from .payload import build_payload
 
 RULE_TEXT = {"min": "least CV error", "one_se": "the one-standard-error rule"}
 
 
-def _env() -> jinja2.Environment:
+def template_env() -> jinja2.Environment:
     loader = jinja2.FileSystemLoader(str(resources.files("pipeline.report") / "templates"))
     return jinja2.Environment(loader=loader, autoescape=True, undefined=jinja2.StrictUndefined)
+
+
+def difference_label() -> str:
+    """How every paired difference reads, first family minus second ("L1 − L2")."""
+    first, second = compared_pair()
+    return f"{first.short} − {second.short}"
 
 
 def _g(x, digits=4) -> str:
@@ -40,7 +47,7 @@ def _loss_blocks(p) -> list[dict]:
         by_loss.setdefault(f["loss_label"], []).append(f)
     blocks = []
     for label, fams in by_loss.items():
-        l1 = next((f for f in fams if f["family"] == "l1"), None)
+        l1 = next((f for f in fams if get_family(f["family"]).has_support), None)   # the support-selecting family
         names = sorted({k for f in fams for k in f["metrics"]})
         blocks.append({
             "loss": label, "families": [f["title"] for f in fams],
@@ -61,10 +68,11 @@ def _loss_blocks(p) -> list[dict]:
 
 def _truth_row(f) -> dict:
     t, err = f["truth"], f["truth"].get("coef_error") or {}
-    return {"family": f["title"], "true": t["true"], "selected": t["selected"] if f["family"] == "l1" else "all",
-            "precision": _g(t["precision"], 3) if f["family"] == "l1" else "—",
-            "recall": _g(t["recall"], 3) if f["family"] == "l1" else "—",
-            "f1": _g(t["f1"], 3) if f["family"] == "l1" else "—",
+    selects = get_family(f["family"]).has_support   # support recovery is defined only for exact zeros
+    return {"family": f["title"], "true": t["true"], "selected": t["selected"] if selects else "all",
+            "precision": _g(t["precision"], 3) if selects else "—",
+            "recall": _g(t["recall"], 3) if selects else "—",
+            "f1": _g(t["f1"], 3) if selects else "—",
             "l2_error": _g(err.get("l2")), "relative": _g(err.get("relative_l2"), 3)}
 
 
@@ -79,10 +87,10 @@ def _stability_block(stab) -> dict | None:
     if not stab:
         return None
     rows = []
-    for fam, title in (("l1", "sparse (L1): support"), ("l2", "ridge-type (L2): top-k by |w|")):
-        s = (stab.get("families") or {}).get(fam)
+    for family in FAMILIES:
+        s = (stab.get("families") or {}).get(family.key)
         if s:
-            rows.append({"family": title, "index": f"{_g(s['stability'], 3)} [{_g(s['lower'], 3)}, {_g(s['upper'], 3)}]",
+            rows.append({"family": f"{family.title}: {family.selected_set}", "index": f"{_g(s['stability'], 3)} [{_g(s['lower'], 3)}, {_g(s['upper'], 3)}]",
                          "size": _g(s["mean_set_size"], 3), "signs": _g(s["sign_agreement"], 3),
                          "instability": _g(s["prediction_instability"], 3)})
     ec = stab.get("error_control") or {}
@@ -130,21 +138,22 @@ def render(p: dict, run_id: str) -> str:
     for v in p["verdicts"]:
         fams = by_loss[v["loss"]]
         verdicts.append({"loss": v["loss"],
-                         "l1": _with_interval(fams["l1"], primary) if "l1" in fams else "not fitted",
-                         "l2": _with_interval(fams["l2"], primary) if "l2" in fams else "not fitted",
+                         "cells": [_with_interval(fams[f.key], primary) if f.key in fams else "not fitted"
+                                   for f in FAMILIES],
                          "diff": "—" if v["diff"] is None else f"{_g(v['diff'])} [{_g(v['low'])}, {_g(v['high'])}]",
                          "sentence": v["sentence"], "fold_test": _fold_test(p.get("fold_tests", {}).get(v["loss"]))})
     data_rows = [(k.replace("_", " "), _g(v) if isinstance(v, float) else v) for k, v in p["dataset"].items()]
     data_rows += [("features built", f"{p['n_features_built']} (maps: {', '.join(p['feature_maps'])})"),
                   ("training rows", p["n_train"]), ("test rows", p["n_test"])]
     css = (resources.files("pipeline.report") / "templates" / "report.css").read_text(encoding="utf-8")
-    return _env().get_template("execution.html").render(
+    return template_env().get_template("execution.html").render(
         name=p["name"], description=p["description"], run_id=run_id,
         written=dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
         config_hash=p["config_hash"], data_hash=p["data_hash"], seconds=p["seconds"],
         n_test=p["n_test"], n_rows=p["n_rows"], n_boot=p["n_boot"],
         primary_label=primary.replace("_", " ") + ("" if p["primary_lower_is_better"] else " (higher is better)"),
-        rule_text=RULE_TEXT[p["rule"]], verdicts=verdicts, summary=summary, loss_blocks=_loss_blocks(p),
+        rule_text=RULE_TEXT[p["rule"]], verdicts=verdicts, difference=difference_label(),
+        family_titles=[f.title[:1].upper() + f.title[1:] for f in FAMILIES], summary=summary, loss_blocks=_loss_blocks(p),
         n_folds=p["n_folds"], data_rows=data_rows, notes=p["notes"],
         config_yaml=yaml.safe_dump(p["config"], sort_keys=False, allow_unicode=True),
         versions=", ".join(f"{k} {v}" for k, v in p["versions"].items()), version=p["versions"]["penduel"], css=css)

@@ -7,7 +7,8 @@ import json
 import pathlib
 from importlib import resources
 
-from . import _env
+from ..models.families import title
+from . import template_env, difference_label
 from .comparison_plots import across_executions
 
 
@@ -25,7 +26,7 @@ def _when(ms) -> str:
 
 def _row(r, label) -> dict:
     secs = None if r["fit_seconds"] is None or r["cv_seconds"] is None else r["fit_seconds"] + r["cv_seconds"]
-    return {"execution": label, "family": "sparse (L1)" if r["family"] == "l1" else "ridge-type (L2)",
+    return {"execution": label, "family": title(r["family"]),
             "value": _interval(r["value"], r["low"], r["high"]), "best": r["best"],
             "nnz": "all" if r["n_nonzero"] is None else f"{r['n_nonzero']:.0f}", "df": _g(r["effective_df"], 3),
             "stability": _interval(r["stability"], r["stability_low"], r["stability_high"]),
@@ -46,8 +47,9 @@ def render_comparison(p: dict) -> str:
                               "value": _interval(r["value"], r["low"], r["high"])} for r in b["rows"] if r["best"]),
                             None)} for b in p["losses"]]
     css = (resources.files("pipeline.report") / "templates" / "report.css").read_text(encoding="utf-8")
-    return _env().get_template("comparison.html").render(
-        executions=executions, labels=labels, blocks=blocks, differences=p["differences"],
+    return template_env().get_template("comparison.html").render(
+        executions=executions, labels=labels, blocks=blocks, difference=difference_label(),
+        differences=p["differences"],
         primary=p["primary"].replace("_", " "), higher=p["higher_is_better"], same_data=p["same_data"],
         written=dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"), css=css)
 

@@ -7,10 +7,11 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
-from .plots import COLOURS, MARKERS, _encode  # noqa: E402
+from ..models.families import FAMILIES  # noqa: E402
+from .plots import encode_png  # noqa: E402
 
-OFFSET = {"l1": -0.12, "l2": 0.12}
-TITLES = {"l1": "sparse (L1)", "l2": "ridge-type (L2)"}
+# families side by side around each execution's tick
+OFFSET = {f.key: 0.24 * (i - (len(FAMILIES) - 1) / 2) for i, f in enumerate(FAMILIES)}
 
 
 def _nan(x) -> float:
@@ -22,7 +23,8 @@ def across_executions(block: dict, labels: list[str], primary: str) -> str:
     (path + CV) per execution and family, log scale."""
     fig, (ax, bx) = plt.subplots(1, 2, figsize=(10.5, 3.6))
     any_time = False
-    for fam in ("l1", "l2"):
+    for family in FAMILIES:
+        fam = family.key
         rows = [r for r in block["rows"] if r["family"] == fam]
         if not rows:
             continue
@@ -31,10 +33,10 @@ def across_executions(block: dict, labels: list[str], primary: str) -> str:
         lo = np.array([_nan(r["low"]) for r in rows])
         hi = np.array([_nan(r["high"]) for r in rows])
         err = np.vstack([np.where(np.isnan(lo), 0, y - lo), np.where(np.isnan(hi), 0, hi - y)])
-        ax.errorbar(x, y, yerr=err, color=COLOURS[fam], marker=MARKERS[fam], ls="none", capsize=3,
-                    label=TITLES[fam])
+        ax.errorbar(x, y, yerr=err, color=family.colour, marker=family.marker, ls="none", capsize=3,
+                    label=family.title)
         secs = np.array([_nan(r["fit_seconds"]) + _nan(r["cv_seconds"]) for r in rows])
-        bx.plot(x, secs, color=COLOURS[fam], marker=MARKERS[fam], ls="none", label=TITLES[fam])
+        bx.plot(x, secs, color=family.colour, marker=family.marker, ls="none", label=family.title)
         any_time |= bool(np.any(np.isfinite(secs) & (secs > 0)))
     for a in (ax, bx):
         a.set_xticks(range(len(labels)), labels)
@@ -48,4 +50,4 @@ def across_executions(block: dict, labels: list[str], primary: str) -> str:
     bx.set_ylabel("path fit + CV fits (s, log scale)" if any_time else "path fit + CV fits (s)")
     bx.set_title(f"Time — {block['loss']}", fontsize=10)
     fig.tight_layout()
-    return _encode(fig)
+    return encode_png(fig)

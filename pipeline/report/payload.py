@@ -11,6 +11,7 @@ import math
 import numpy as np
 
 from ..evaluate import coefficient_error, metric_function, paired_bootstrap_diff, support_recovery, verdict
+from ..models.families import compared_pair, get_family
 from ..seeds import generator
 
 PAYLOAD_VERSION = 1
@@ -88,7 +89,7 @@ def _family(result, r) -> dict:
         "coef_path": None, "top_features": [], "truth": None, "selected_by": r.selected_by,
         "nested": _clean(r.nested), "df_kind": r.path.df_kind,
     }
-    if r.family == "l1" and r.path.coef is not None:
+    if get_family(r.family).has_support and r.path.coef is not None:
         out["coef_path"] = _path_columns(r.path.coef, result.feature_names)
     if r.coefficients is not None:
         order = np.argsort(-np.abs(r.coefficients), kind="stable")[:15]
@@ -107,11 +108,12 @@ def _verdicts(result, primary) -> list[dict]:
     out = []
     for label, d in by_loss.items():
         row = {"loss": label, "diff": None, "low": None, "high": None, "sentence": "Only one family was fitted."}
-        if "l1" in d and "l2" in d:
-            diff, lo, hi = paired_bootstrap_diff(result.y_test, d["l1"].test_pred, d["l2"].test_pred, metric,
-                                                 n_boot=N_BOOT, level=0.9, rng=rng)
+        first, second = compared_pair()
+        if first.key in d and second.key in d:
+            diff, lo, hi = paired_bootstrap_diff(result.y_test, d[first.key].test_pred, d[second.key].test_pred,
+                                                 metric, n_boot=N_BOOT, level=0.9, rng=rng)
             row.update(diff=_num(diff), low=_num(lo), high=_num(hi),
-                       sentence=verdict("sparse (L1)", "ridge-type (L2)", diff, lo, hi, primary,
+                       sentence=verdict(first.title, second.title, diff, lo, hi, primary,
                                         metric.lower_is_better))
         out.append(row)
     return out

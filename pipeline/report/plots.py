@@ -10,13 +10,17 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
-# Okabe & Ito's colour-blind-safe palette (published colour set; common practice for accessible plots).
-COLOURS = {"l1": "#0072B2", "l2": "#D55E00"}
+from ..models.families import FAMILIES  # noqa: E402
+
+# Okabe & Ito's colour-blind-safe palette (published colour set; common practice for accessible plots):
+# each family carries its own colour and marker, the rest of the palette is for other lines.
+COLOURS = {f.key: f.colour for f in FAMILIES}
 EXTRA = ["#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442", "#000000"]
-MARKERS = {"l1": "o", "l2": "s"}
+MARKERS = {f.key: f.marker for f in FAMILIES}
+PALETTE = EXTRA + [f.colour for f in FAMILIES]
 
 
-def _encode(fig) -> str:
+def encode_png(fig) -> str:
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
     plt.close(fig)
@@ -41,7 +45,7 @@ def cv_curves(families, loss_label: str) -> str:
         ax.set_title(f"{f['title']} — {loss_label}", fontsize=10)
         ax.grid(alpha=0.3)
     fig.tight_layout()
-    return _encode(fig)
+    return encode_png(fig)
 
 
 def error_vs_df(families, loss_label: str) -> str:
@@ -53,13 +57,14 @@ def error_vs_df(families, loss_label: str) -> str:
                     ms=3, lw=1.2, elinewidth=0.6, capsize=2, label=f["title"])
         ax.plot([f["effective_df"]], [mean[f["chosen_index"]]], marker="*", ms=12, color=col,
                 markeredgecolor="black", ls="none")
-    ax.set_xlabel("effective degrees of freedom (L1: nonzeros; L2: trace of the hat matrix)")
+    ax.set_xlabel("effective degrees of freedom ("
+                  + "; ".join(f"{fam.short}: {fam.df_description}" for fam in FAMILIES) + ")")
     ax.set_ylabel("CV held-out loss")
     ax.set_title(f"Error against model size — {loss_label}", fontsize=10)
     ax.grid(alpha=0.3)
     ax.legend(fontsize=8)
     fig.tight_layout()
-    return _encode(fig)
+    return encode_png(fig)
 
 
 def coefficient_path(f, top: int = 12) -> str:
@@ -69,7 +74,7 @@ def coefficient_path(f, top: int = 12) -> str:
     fig, ax = plt.subplots(figsize=(6.8, 3.8))
     for vals in values[top:]:
         ax.plot(lambdas, _arr(vals), color="0.75", lw=0.6)
-    palette = EXTRA + [COLOURS["l1"], COLOURS["l2"]]
+    palette = PALETTE
     styles = ["-", "--", ":", "-."]
     for i, (name, vals) in enumerate(zip(names[:top], values[:top])):
         ax.plot(lambdas, _arr(vals), color=palette[i % len(palette)], ls=styles[(i // len(palette)) % 4],
@@ -82,7 +87,7 @@ def coefficient_path(f, top: int = 12) -> str:
     ax.grid(alpha=0.3)
     ax.legend(fontsize=7, loc="center left", bbox_to_anchor=(1.01, 0.5), frameon=False)
     fig.tight_layout()
-    return _encode(fig)
+    return encode_png(fig)
 
 
 def stability_paths(stab: dict, top: int = 12) -> str:
@@ -90,7 +95,7 @@ def stability_paths(stab: dict, top: int = 12) -> str:
     paths = stab["l1_paths"]
     lambdas = _arr(paths["lambdas"])
     fig, ax = plt.subplots(figsize=(6.8, 3.6))
-    palette = EXTRA + [COLOURS["l1"], COLOURS["l2"]]
+    palette = PALETTE
     styles = ["-", "--", ":", "-."]
     for i, (name, probs) in enumerate(zip(paths["names"], paths["probabilities"])):
         kw = dict(color=palette[i % len(palette)], ls=styles[(i // len(palette)) % 4], lw=1.3,
@@ -105,21 +110,20 @@ def stability_paths(stab: dict, top: int = 12) -> str:
     ax.grid(alpha=0.3)
     ax.legend(fontsize=7, loc="center left", bbox_to_anchor=(1.01, 0.5), frameon=False)
     fig.tight_layout()
-    return _encode(fig)
+    return encode_png(fig)
 
 
 def selection_frequency(stab: dict) -> str:
-    """How often each top feature is selected at the chosen λ: L1 support vs the L2 top-k set."""
+    """How often each top feature is selected at the chosen λ, by each family's notion of selected."""
     freq = stab["frequency"]
     names = freq["names"][::-1]
     y = np.arange(len(names))
     fig, ax = plt.subplots(figsize=(6.8, 0.28 * len(names) + 1.2))
-    h = 0.4 if "l2" in freq else 0.8
-    ax.barh(y + (h / 2 if "l2" in freq else 0), _arr(freq["l1"][::-1]), height=h, color=COLOURS["l1"],
-            label="sparse (L1): in the support")
-    if "l2" in freq:
-        ax.barh(y - h / 2, _arr(freq["l2"][::-1]), height=h, color=COLOURS["l2"], hatch="//",
-                label="ridge-type (L2): among the k largest |w|")
+    present = [fam for fam in FAMILIES if fam.key in freq]
+    h = 0.8 / len(present)
+    for i, fam in enumerate(present):   # bars side by side, the first family on top
+        ax.barh(y + (len(present) - 1 - 2 * i) * h / 2, _arr(freq[fam.key][::-1]), height=h, color=fam.colour,
+                hatch="//" if i else None, label=f"{fam.title}: {fam.selected_phrase}")
     ax.set_yticks(y, [n[:40] for n in names], fontsize=7)
     ax.set_xlim(0, 1)
     ax.set_xlabel("share of resamples")
@@ -127,4 +131,4 @@ def selection_frequency(stab: dict) -> str:
     ax.legend(fontsize=7, loc="lower right")
     ax.grid(alpha=0.3, axis="x")
     fig.tight_layout()
-    return _encode(fig)
+    return encode_png(fig)

@@ -41,13 +41,21 @@ def _low_rank(options: dict, n: int) -> bool:
 class RidgeFamily(Family):
     key = "l2"
     title = "ridge-type (L2)"
+    short = "L2"
     colour = "#D55E00"     # Okabe & Ito vermilion
     marker = "s"
     has_support = False
     selected_set = "top-k by |w|"
+    selected_phrase = "among the k largest |w|"
     df_description = "trace of the hat matrix"
+    tracked_settings = ("kernel",)
     grid_reads_loss = False
     gives_certificate = False
+
+    def gram_mib(self, n_rows: int) -> float:
+        if n_rows > EXACT_MAX_ROWS:   # low rank: Φ blocks and the m × m matrices only
+            return (n_rows * N_LANDMARKS + 3 * N_LANDMARKS ** 2) * 8 / 2**20
+        return n_rows ** 2 * 8 * 3 / 2**20   # K, its eigenvectors and one work copy
 
     def options(self, section, seed: int = 0) -> dict:
         return {"kernel": section.kernel, "kernel_params": tuple(sorted(section.kernel_params().items())),

@@ -14,11 +14,14 @@ _FIT_OPTIONS = ("tol", "solver", "alpha")
 class SparseFamily(Family):
     key = "l1"
     title = "sparse (L1)"
+    short = "L1"
     colour = "#0072B2"     # Okabe & Ito blue
     marker = "o"
     has_support = True
     selected_set = "support"
-    df_description = "number of nonzero coefficients (elastic net: trace on the support)"
+    selected_phrase = "in the support"
+    df_description = "nonzeros"
+    tracked_settings = ()
     grid_reads_loss = True
     gives_certificate = True
 
