@@ -300,6 +300,8 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
                                   scheduler_address=spec.execution.scheduler_address, shared=shared)
     notes = dataset.notes + ((f"reused {reused} of {len(tasks)} finished fit task(s) from the cache "
                               f"'{spec.cache.directory}' (refits avoided)",) if reused else ())
+    notes += tuple(dict.fromkeys(f"{get_family(o.family).title}: {o.note}" for o in outcomes
+                                 if o.note and o.split == "final"))   # e.g. the low-rank route was taken
     results = assemble(spec, shared, tasks, outcomes, test_rows, seeds.generator(spec.seed, "test_intervals"))
     feature_names = next(o.feature_names for o in outcomes)
     fold0 = splits[0]
