@@ -10,7 +10,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from pipeline.kernels import gram, resolve_params
+from pipeline.kernels import gram
 from pipeline.models.interface import Family, PathFit
 from pipeline.models.ridge.nystrom import fit_nystrom_path, nystrom_spectrum
 from pipeline.models.ridge.path import L2Path, fit_l2_path, l2_lambda_grid, predict_path, spectrum_lambda_grid

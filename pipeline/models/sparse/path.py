@@ -8,7 +8,8 @@ every column and violators join W. W is seeded by the sequential strong rule
 
 For smooth losses, solver "auto" / "active_set" first tries active-set continuation
 from the previous lambda (active_set.refine over every column); the convex solver
-runs only where that does not settle. A named solver forces that route; routing.SOLVER_TABLE says which solver takes which problem.
+runs only where that does not settle. A named solver forces that route; routing.SOLVER_TABLE
+says which solver takes which problem.
 """
 from __future__ import annotations
 
@@ -72,11 +73,9 @@ def predict_path(path: L1Path, X) -> np.ndarray:
 
 
 def _solve_restricted(route, XW, y, lam, alpha, loss, warm, tol):
-    """One restricted solve by the routed solver (highs is kept warm by PathFitter instead)."""
+    """One restricted solve by the routed solver (the highs route keeps one warm LP in PathFitter)."""
     if route == "osqp":
         return rs.solve_squared_gram(XW, y, lam, alpha, warm=warm, tol=min(tol, 1e-7) * 1e-2)
-    if route == "highs":
-        return rs.solve_piecewise_lp(XW, y, lam, loss)
     return rs.solve_cvxpy(XW, y, lam, alpha, loss, warm=warm, tol=min(tol, 1e-7) * 1e-2)
 
 
