@@ -11,6 +11,7 @@ from scipy.special import expit
 from sklearn import metrics as skm
 
 from pipeline import evaluate
+from pipeline.evaluate import intervals
 from pipeline.evaluate import (
     CLASSIFICATION_METRICS,
     REGRESSION_METRICS,
@@ -166,7 +167,7 @@ def test_bootstrap_coverage_of_nominal_90_percent():
 def test_bootstrap_is_reproducible_and_blocking_does_not_change_it(monkeypatch):
     y, pred = _regression_data(1, 50)
     first = bootstrap_ci(y, pred, "rmse", rng=np.random.default_rng(9))
-    monkeypatch.setattr(evaluate, "_BLOCK_CELLS", 7 * 50)  # blocks of 7 resamples
+    monkeypatch.setattr(intervals, "_BLOCK_CELLS", 7 * 50)  # blocks of 7 resamples
     second = bootstrap_ci(y, pred, "rmse", rng=np.random.default_rng(9))
     assert first == second
 

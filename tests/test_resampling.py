@@ -7,7 +7,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from sklearn.linear_model import Lasso, lasso_path
 
-from pipeline.resampling import held_out_rows, in_fit_mask, resample_fits, resample_indices
+from pipeline.stability import held_out_rows, in_fit_mask, resample_indices
+from pipeline.stability.engine import resample_fits
 
 
 @given(st.integers(4, 200), st.sampled_from([0.3, 0.5, 0.8]), st.integers(0, 1000))
