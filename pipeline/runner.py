@@ -228,7 +228,7 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     fold0 = splits[0]
     evaluation = evaluate_results(results, task=dataset.task, y_test=dataset.y[test_rows],
                                   fold_sizes=(len(fold0[1]), len(fold0[2])), dataset=dataset,
-                                  feature_names=feature_names, rng=seeds.generator(spec.seed, "paired_difference"))
+                                  feature_names=feature_names, seed=spec.seed)
     stability = stability_stage(spec, results, feature_names,
                                 lambda: build_features(shared, train_rows).transform(shared.X[train_rows]))
     return ExperimentResult(spec=spec, dataset=dataset, data_hash=data_hash, train_rows=train_rows,

@@ -404,3 +404,68 @@ def test_corrected_ttest_holds_its_size_where_the_naive_one_does_not():
         naive += stats.ttest_1samp(diffs, 0.0).pvalue < 0.1
     assert 0.05 <= corrected / reps <= 0.15
     assert naive / reps > 0.3
+
+
+# --- the metric registry and the evaluation stage ---
+
+def test_registry_declares_one_primary_metric_per_task():
+    from pipeline.evaluate import METRICS, PRIMARY, primary_metric, task_metrics
+
+    assert PRIMARY == {"regression": "rmse", "classification": "balanced_accuracy"}
+    for task, name in PRIMARY.items():
+        assert METRICS[name].task == task and primary_metric(task) is METRICS[name]
+        assert name in task_metrics(task)
+    assert evaluate.REGRESSION_METRICS == ("mse", "rmse", "mae", "pinball", "r2")
+    assert evaluate.CLASSIFICATION_METRICS == ("accuracy", "balanced_accuracy", "roc_auc", "log_loss", "brier")
+    higher = {name for name, m in METRICS.items() if m.higher_is_better}
+    assert higher == {"r2", "accuracy", "balanced_accuracy", "roc_auc"}
+    assert {m.unit for m in METRICS.values()} <= {"target", "target squared", "none"}
+    assert all(m.label and m.single is not None and m.resampled is not None for m in METRICS.values())
+
+
+def test_pinball_at_a_level_matches_scikit_learn():
+    y, pred = _regression_data(4, 30)
+    # reference: scikit-learn mean_pinball_loss with alpha = τ
+    assert metric_function("pinball", tau=0.9)(y, pred) == pytest.approx(skm.mean_pinball_loss(y, pred, alpha=0.9))
+    assert metric_function("pinball", tau=0.9).name == "pinball"
+
+
+def test_winner_is_public_and_reads_the_interval():
+    assert evaluate.winner(-2.0, -1.0, lower_is_better=True) == 0
+    assert evaluate.winner(-2.0, -1.0, lower_is_better=False) == 1
+    assert evaluate.winner(-1.0, 1.0, lower_is_better=True) is None
+    assert evaluate.winner(float("nan"), 1.0, lower_is_better=True) is None
+
+
+def _family_result(label, family, title, pred, cv_column):
+    from types import SimpleNamespace
+    cv = np.column_stack([cv_column + 1.0, cv_column])
+    return SimpleNamespace(loss_label=label, family=family, title=title, test_pred=pred, cv_errors=cv,
+                           chosen_index=1, coefficients=None)
+
+
+def test_evaluation_stage_draws_the_paired_difference_stream_once():
+    from types import SimpleNamespace
+
+    from pipeline import seeds
+    from pipeline.evaluate import evaluate_results
+
+    y, pred_a = _regression_data(5, 40)
+    pred_b = pred_a + np.random.default_rng(6).normal(0, 0.5, 40)
+    results = [_family_result("squared", "l1", "sparse (L1)", pred_a, np.array([1.0, 2.0, 3.0])),
+               _family_result("squared", "l2", "ridge-type (L2)", pred_b, np.array([1.5, 2.0, 2.0])),
+               _family_result("huber", "l1", "sparse (L1)", pred_a, np.array([1.0, 1.0, 1.0]))]
+    out = evaluate_results(results, task="regression", y_test=y, fold_sizes=(20, 10),
+                           dataset=SimpleNamespace(truth=None), feature_names=(), seed=12)
+    assert out.primary == "rmse" and out.primary_lower_is_better
+    first, second = out.verdicts
+    expected = compare_pair(y, pred_a, pred_b, "rmse", name_a="sparse (L1)", name_b="ridge-type (L2)",
+                            rng=seeds.generator(12, "paired_difference"), n_boot=1000, level=0.9)
+    assert (first["diff"], first["low"], first["high"]) == (expected["diff"], expected["diff_low"],
+                                                           expected["diff_high"])
+    assert first["sentence"] == expected["verdict"]
+    assert second == {"loss": "huber", "diff": None, "low": None, "high": None,
+                      "sentence": "Only one family was fitted."}
+    # the fold test pairs the chosen columns fold by fold (Nadeau & Bengio correction, see above)
+    assert out.fold_tests["squared"] == corrected_resampled_ttest([-0.5, 0.0, 1.0], 20, 10, level=0.9)
+    assert "huber" not in out.fold_tests

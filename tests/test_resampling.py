@@ -111,3 +111,19 @@ def test_resample_fits_identical_across_backends():
     processes = resample_fits(_lasso_fit, X, y, resamples, backend="processes", n_jobs=2)
     for name in ("coefs", "intercepts", "predictions"):
         assert getattr(local, name).tobytes() == getattr(processes, name).tobytes(), name
+
+
+def test_scheme_table_properties_hold_for_the_draws():
+    from pipeline.stability import SCHEME_TABLE, SCHEMES
+
+    assert SCHEMES == ("subsample", "bootstrap", "complementary_pairs")
+    for name, scheme in SCHEME_TABLE.items():
+        assert scheme.name == name and scheme.description
+        draws = resample_indices(40, name, 6, fraction=0.5, rng=7)
+        if scheme.half_size:
+            assert all(len(rows) == 20 for rows in draws)
+        repeats = any(len(np.unique(rows)) < len(rows) for rows in draws)
+        assert repeats == scheme.with_replacement
+        if scheme.paired:
+            for first, second in zip(draws[::2], draws[1::2]):
+                assert not np.isin(first, second).any()

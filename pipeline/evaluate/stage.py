@@ -10,6 +10,7 @@ from __future__ import annotations
 import warnings
 from dataclasses import dataclass, field
 
+from .. import seeds
 from .comparisons import corrected_resampled_ttest, paired_bootstrap_diff, verdict
 from .intervals import bootstrap_metrics
 from .metrics import (PRIMARY, classification_metrics, loss_metric, metric_function, primary_metric,
@@ -92,8 +93,10 @@ def paired_verdicts(results, y_test, task: str, rng) -> tuple[dict, ...]:
     return tuple(out)
 
 
-def evaluate_results(results, *, task: str, y_test, fold_sizes, dataset, feature_names, rng) -> Evaluation:
-    """The comparisons and scores of the evaluation stage; `rng` is the `paired_difference` stream."""
+def evaluate_results(results, *, task: str, y_test, fold_sizes, dataset, feature_names, seed: int) -> Evaluation:
+    """The comparisons and scores of the evaluation stage (the held-out metrics with their intervals
+    are already on each family result, from `test_metrics`)."""
+    rng = seeds.generator(seed, "paired_difference")
     return Evaluation(
         primary=PRIMARY[task], primary_lower_is_better=primary_metric(task).lower_is_better,
         fold_tests=fold_comparisons(results, fold_sizes),
