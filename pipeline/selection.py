@@ -12,7 +12,6 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
-from sklearn.model_selection import KFold, RepeatedKFold, RepeatedStratifiedKFold, StratifiedKFold
 
 
 def _sklearn_seed(rng: np.random.Generator) -> int:
@@ -40,6 +39,9 @@ def make_folds(
         raise ValueError(f"repeats must be at least 1; got {repeats}")
     if stratify and y is None:
         raise ValueError("stratify=True needs the labels y")
+    # imported here so that config can read this module's tables without loading scikit-learn
+    from sklearn.model_selection import KFold, RepeatedKFold, RepeatedStratifiedKFold, StratifiedKFold
+
     seed = _sklearn_seed(rng)
     if stratify:
         if repeats == 1:
