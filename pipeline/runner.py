@@ -19,6 +19,7 @@ from .fitting import FitOutcome, FitTask, Shared, build_features, run_fit, targe
 from .losses import get_loss, lambda_max
 from .selection import choose_lambda_index, cv_summary, make_folds, nested_estimate, nested_splits
 from .stability import resample_splits, stability_losses, stability_stage
+
 FAMILY_TITLES = {"l1": "sparse (L1)", "l2": "ridge-type (L2)"}
 
 

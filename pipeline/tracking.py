@@ -30,7 +30,6 @@ import mlflow  # noqa: E402
 from mlflow.entities import Metric, Param, RunTag  # noqa: E402
 from mlflow.tracking import MlflowClient  # noqa: E402
 
-
 PACKAGES = ("penduel", "numpy", "scipy", "scikit-learn", "cvxpy", "mlflow", "pandas")
 
 
