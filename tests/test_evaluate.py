@@ -469,3 +469,18 @@ def test_evaluation_stage_draws_the_paired_difference_stream_once():
     # the fold test pairs the chosen columns fold by fold (Nadeau & Bengio correction, see above)
     assert out.fold_tests["squared"] == corrected_resampled_ttest([-0.5, 0.0, 1.0], 20, 10, level=0.9)
     assert "huber" not in out.fold_tests
+
+
+def test_truth_scores_by_hand():
+    from types import SimpleNamespace
+
+    from pipeline.evaluate import truth_scores
+
+    truth = SimpleNamespace(support=[0, 2], coefficients=np.array([1.0, 0.0, 2.0]))
+    data = SimpleNamespace(truth=truth, feature_names=("a", "b", "c"), n_features=3)
+    # identity map first, then a built feature that is not an original column (ignored for support)
+    out = truth_scores(data, ("a", "b", "c", "rff0"), np.array([0.5, 0.0, 0.0, 0.3]))
+    assert (out["true"], out["selected"]) == (2, 1)
+    assert out["precision"] == 1.0 and out["recall"] == 0.5 and out["f1"] == pytest.approx(2 / 3)
+    assert out["coef_error"]["l2"] == pytest.approx(np.hypot(0.5, 2.0))
+    assert truth_scores(SimpleNamespace(truth=None), ("a",), np.ones(1)) is None

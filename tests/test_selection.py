@@ -162,3 +162,21 @@ def test_leave_one_out_table_works_as_n_folds():
     residuals = np.array([[3.0, 1.0, 1.1], [2.0, 0.5, 0.4], [4.0, 1.5, 1.4]])
     assert choose_lambda_index(residuals**2, "min") == 2
     assert choose_lambda_index(residuals**2, "one_se") == 1
+
+
+def test_nested_cv_through_the_runner():
+    """selection.nested: true runs the nested splits as fit tasks and reports the outer losses."""
+    import pathlib
+
+    import yaml
+
+    from pipeline.config import parse_config
+    from pipeline.runner import run_experiment
+
+    config = yaml.safe_load((pathlib.Path(__file__).parent / "configs" / "tiny.yaml").read_text())
+    config.update(selection={"cv_folds": 3, "nested": True}, stability={"enabled": False},
+                  cache={"enabled": False})
+    result = run_experiment(parse_config(config), None, progress=False)
+    for r in result.results:
+        assert len(r.nested["outer"]) == 3 and np.isfinite(r.nested["outer"]).all()
+        assert r.nested["mean"] == pytest.approx(np.mean(r.nested["outer"]))
