@@ -22,6 +22,7 @@ import numpy as np
 from scipy.special import expit
 from sklearn import metrics as skm
 
+
 @dataclass(frozen=True)
 class Metric:
     """A held-out score: `metric(y, pred) -> float`, plus what the bootstrap needs."""
