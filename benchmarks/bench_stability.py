@@ -16,8 +16,8 @@ from sklearn.linear_model import lasso_path
 from threadpoolctl import threadpool_limits
 
 from benchmarks.harness import timed_pair
-from pipeline.resampling import resample_fits, resample_indices
-from pipeline.stability import selection_probabilities
+from pipeline.stability import resample_indices, selection_probabilities
+from pipeline.stability.engine import resample_fits
 
 N, P, N_TRUE, N_LAMBDAS, RATIO = 400, 4000, 10, 30, 0.05
 

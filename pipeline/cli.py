@@ -37,7 +37,9 @@ def cmd_validate(args) -> int:
 
 
 def _summary_table(result) -> str:
-    primary = "rmse" if result.dataset.task == "regression" else "balanced_accuracy"
+    from .evaluate import PRIMARY
+
+    primary = PRIMARY[result.dataset.task]
     head = f"{'loss':18s} {'family':16s} {'λ chosen':>10s} {'test ' + primary:>24s} {'nonzero':>8s} {'df':>7s} {'fit s':>7s}"
     lines = [head, "-" * len(head)]
     for r in result.results:

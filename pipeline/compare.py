@@ -8,12 +8,10 @@ from __future__ import annotations
 import json
 import math
 
-from .evaluate import _winner
+from .evaluate import METRICS, PRIMARY, winner
 from .models.families import compared_pair
 from .tracking import StoreError, child_runs, execution_runs, read_config, read_payload
 
-PRIMARY = {"regression": "rmse", "classification": "balanced_accuracy"}
-HIGHER_IS_BETTER = {"balanced_accuracy", "accuracy", "roc_auc"}
 MISSING = "(not set)"
 
 
@@ -74,7 +72,7 @@ def stored_verdicts(payload: dict) -> dict:
         if v.get("low") is None or v.get("high") is None:
             won = "not compared"
         else:
-            w = _winner(v["low"], v["high"], lower)
+            w = winner(v["low"], v["high"], lower)
             won = "no clear winner" if w is None else compared_pair()[w].title
         out[v["loss"]] = {"sentence": v["sentence"], "winner": won}
     return out
@@ -113,7 +111,7 @@ def _task(executions) -> str:
 
 def loss_tables(executions: list[dict], primary: str) -> list[dict]:
     """Per loss: one row per (execution, family) and the best primary estimate among them."""
-    higher = primary in HIGHER_IS_BETTER
+    higher = METRICS[primary].higher_is_better
     labels = sorted({f["loss"] for e in executions for f in e["fits"]})
     out = []
     for label in labels:
@@ -141,7 +139,7 @@ def loss_tables(executions: list[dict], primary: str) -> list[dict]:
 def comparison_payload(executions: list[dict]) -> dict:
     task = _task(executions)
     primary = PRIMARY[task]
-    return {"task": task, "primary": primary, "higher_is_better": primary in HIGHER_IS_BETTER,
+    return {"task": task, "primary": primary, "higher_is_better": METRICS[primary].higher_is_better,
             "executions": [{k: v for k, v in e.items() if k not in ("fits", "config")} for e in executions],
             "losses": loss_tables(executions, primary),
             "differences": config_differences([e["config"] for e in executions]),

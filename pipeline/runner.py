@@ -3,7 +3,6 @@ from __future__ import annotations
 
 import pathlib
 import time
-import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -12,18 +11,15 @@ from sklearn.model_selection import train_test_split
 from . import seeds
 from .config import ExperimentSpec
 from .data import DataError, Dataset, load_dataset
-from .evaluate import (bootstrap_metrics, classification_metrics, corrected_resampled_ttest, loss_metric,
-                       metric_function, regression_metrics)
+from .evaluate import Evaluation, evaluate_results, test_metrics
 from .cache import cache_for, run_cached, task_keys
 from .execution import run_tasks
 from .features import output_width
 from .fitting import FitOutcome, FitTask, Shared, build_features, run_fit, target_scaling
 from .losses import get_loss
-from .models.families import FAMILIES, compared_pair, get_family
-from .selection import choose_lambda_index, cv_summary, make_folds
-from .stability_stage import resample_splits, stability_losses, summarise_families
-
-PRIMARY_METRIC = {"regression": "rmse", "classification": "log_loss"}
+from .models.families import FAMILIES, get_family
+from .selection import choose_lambda_index, cv_summary, make_folds, nested_estimate, nested_splits
+from .stability import resample_splits, stability_losses, stability_stage
 
 
 @dataclass(frozen=True)
@@ -71,8 +67,9 @@ class ExperimentResult:
     notes: tuple[str, ...] = field(default_factory=tuple)
     tasks_reused: int = 0          # fit tasks taken from the cache instead of refitted
     tasks_total: int = 0
-    comparisons: dict = field(default_factory=dict)   # loss label -> corrected t-test across CV folds
+    evaluation: Evaluation | None = None              # fold tests, paired verdicts, ground-truth scores
     stability: dict = field(default_factory=dict)     # loss label -> resampling summary
+    selection_paths: dict = field(default_factory=dict)  # (loss label, family) -> (L, p) selection probabilities
 
 
 def check_feature_budget(spec: ExperimentSpec, dataset: Dataset, n_train: int) -> int:
@@ -150,13 +147,7 @@ def plan_splits(spec: ExperimentSpec, dataset: Dataset, train_rows, test_rows) -
     splits = [(f"fold{k}", train_rows[tr], train_rows[va]) for k, (tr, va) in enumerate(folds)]
     splits.append(("final", train_rows, test_rows))
     if spec.selection.nested:
-        rng = seeds.generator(spec.seed, "nested")
-        for o, (otr, ote) in enumerate(make_folds(len(train_rows), K, rng, y=dataset.y[train_rows],
-                                                  stratify=classify)):
-            outer_train = train_rows[otr]
-            inner = make_folds(len(outer_train), K, rng, y=dataset.y[outer_train], stratify=classify)
-            splits += [(f"outer{o}.fold{k}", outer_train[tr], outer_train[va]) for k, (tr, va) in enumerate(inner)]
-            splits.append((f"outer{o}.final", outer_train, train_rows[ote]))
+        splits += nested_splits(train_rows, dataset.y[train_rows], K, seeds.generator(spec.seed, "nested"), classify)
     return splits
 
 
@@ -173,26 +164,6 @@ def plan_tasks(spec: ExperimentSpec, shared: Shared, train_rows, test_rows, spli
     return tasks
 
 
-def test_metrics(task: str, y, pred, loss, rng) -> tuple[dict, dict]:
-    """Held-out metrics at the chosen λ, each with a seeded 90 % bootstrap interval, all from the
-    same resampled rows. Classification adds the loss's own mean held-out value."""
-    tau = getattr(loss, "tau", 0.5)
-    metrics = regression_metrics(y, pred, tau=tau) if task == "regression" else classification_metrics(y, pred)
-    wanted = [metric_function(name, tau=tau) for name in metrics]
-    if task == "classification":  # regression losses are read on the fitting scale, see FitOutcome.eval_loss
-        wanted.append(loss_metric(loss))
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)  # resamples where a metric is undefined are dropped
-        boot = bootstrap_metrics(y, pred, wanted, n_boot=1000, level=0.9, rng=rng)
-    intervals = {}
-    for m in wanted:
-        key = "own_loss" if m.name not in metrics else m.name
-        est, lo, hi = boot[m.name]
-        metrics[key] = float(est)
-        intervals[key] = (float(lo), float(hi))
-    return metrics, intervals
-
-
 def _choose(spec, cv_errors, final) -> tuple[int, str]:
     crit = spec.selection.l2_criterion
     # only a path with exact leave-one-out values (ridge-type, squared loss) can use loo / gcv
@@ -200,17 +171,6 @@ def _choose(spec, cv_errors, final) -> tuple[int, str]:
         values = final.loo_error if crit == "loo" else final.gcv
         return int(np.nanargmin(values)), crit
     return choose_lambda_index(cv_errors, spec.selection.rule), f"{spec.selection.cv_folds}-fold CV, {spec.selection.rule}"
-
-
-def _nested_estimate(spec, by_split: dict) -> dict | None:
-    """Outer-fold held-out loss of the whole procedure (inner CV picks λ, refit on the outer fold)."""
-    values = []
-    for o in range(spec.selection.cv_folds):
-        inner = [by_split[f"outer{o}.fold{k}"].eval_loss for k in range(spec.selection.cv_folds)]
-        idx = choose_lambda_index(np.vstack(inner), spec.selection.rule)
-        values.append(float(by_split[f"outer{o}.final"].eval_loss[idx]))
-    v = np.array(values)
-    return {"mean": float(v.mean()), "se": float(v.std(ddof=1) / np.sqrt(len(v))), "outer": values}
 
 
 def assemble(spec, shared, tasks, outcomes, test_rows, rng) -> list[FamilyResult]:
@@ -239,44 +199,10 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng) -> list[FamilyResult
             cv_seconds=float(sum(o.fit_seconds for o in folds)),
             coefficients=None if final.coef is None else final.coef[idx],
             intercept=float(final.intercept[idx]), selected_by=how,
-            nested=_nested_estimate(spec, {k: o for k, (_, o) in splits.items()}) if spec.selection.nested else None,
+            nested=nested_estimate({k: o.eval_loss for k, (_, o) in splits.items()}, spec.selection.cv_folds,
+                                   spec.selection.rule) if spec.selection.nested else None,
             resamples=tuple(o for k, (_, o) in sorted(splits.items()) if k.startswith("resample"))))
     return results
-
-
-def compare_on_folds(spec, results, fold_sizes) -> dict:
-    """Per loss: corrected resampled t-test (Nadeau & Bengio 2003) of the two families' CV losses at
-    their chosen λ, fold by fold on identical folds."""
-    out = {}
-    by_loss: dict[str, dict] = {}
-    for r in results:
-        by_loss.setdefault(r.loss_label, {})[r.family] = r
-    n_tr, n_te = fold_sizes
-    for label, d in by_loss.items():
-        first, second = (d.get(f.key) for f in compared_pair())
-        if first is not None and second is not None:
-            diffs = first.cv_errors[:, first.chosen_index] - second.cv_errors[:, second.chosen_index]
-            try:
-                out[label] = corrected_resampled_ttest(diffs, n_tr, n_te, level=0.9)
-            except ValueError:
-                continue
-    return out
-
-
-def stability_summaries(spec, results, feature_names, shared, train_rows) -> dict:
-    out = {}
-    Z_train = None
-    by_loss: dict[str, dict] = {}
-    for r in results:
-        if r.resamples:
-            by_loss.setdefault(r.loss_label, {})[r.family] = r
-    for label, d in by_loss.items():
-        if Z_train is None:
-            Z_train = build_features(shared, train_rows).transform(shared.X[train_rows])
-        out[label] = summarise_families(spec, {f: list(r.resamples) for f, r in d.items()},
-                                        {f: r.lambdas for f, r in d.items()},
-                                        {f: r.chosen_index for f, r in d.items()}, feature_names, Z_train)
-    return out
 
 
 def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool = True) -> ExperimentResult:
@@ -305,10 +231,14 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     results = assemble(spec, shared, tasks, outcomes, test_rows, seeds.generator(spec.seed, "test_intervals"))
     feature_names = next(o.feature_names for o in outcomes)
     fold0 = splits[0]
-    comparisons = compare_on_folds(spec, results, (len(fold0[1]), len(fold0[2])))
-    stability = stability_summaries(spec, results, feature_names, shared, train_rows)
+    evaluation = evaluate_results(results, task=dataset.task, y_test=dataset.y[test_rows],
+                                  fold_sizes=(len(fold0[1]), len(fold0[2])), dataset=dataset,
+                                  feature_names=feature_names, seed=spec.seed)
+    stability = stability_stage(spec, results, feature_names,
+                                lambda: build_features(shared, train_rows).transform(shared.X[train_rows]))
     return ExperimentResult(spec=spec, dataset=dataset, data_hash=data_hash, train_rows=train_rows,
                             test_rows=test_rows, y_test=dataset.y[test_rows], feature_names=feature_names,
                             results=tuple(results), seconds=time.perf_counter() - start,
                             notes=notes, tasks_reused=reused, tasks_total=len(tasks),
-                            comparisons=comparisons, stability=stability)
+                            evaluation=evaluation, stability=stability.summaries,
+                            selection_paths=stability.selection_paths)

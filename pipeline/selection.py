@@ -1,4 +1,5 @@
-"""Cross-validation folds and λ selection rules.
+"""Selection: cross-validation folds, λ selection rules (a table), the ridge-type family's
+closed-form criteria and nested CV of the whole select-then-fit procedure.
 
 The λ grid is indexed from the simplest model (largest λ, column 0) to the most
 complex (smallest λ). A CV error table has one row per split and one column per λ;
@@ -11,9 +12,6 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
-from sklearn.model_selection import KFold, RepeatedKFold, RepeatedStratifiedKFold, StratifiedKFold
-
-RULES = ("min", "one_se")
 
 
 def _sklearn_seed(rng: np.random.Generator) -> int:
@@ -41,6 +39,9 @@ def make_folds(
         raise ValueError(f"repeats must be at least 1; got {repeats}")
     if stratify and y is None:
         raise ValueError("stratify=True needs the labels y")
+    # imported here so that config can read this module's tables without loading scikit-learn
+    from sklearn.model_selection import KFold, RepeatedKFold, RepeatedStratifiedKFold, StratifiedKFold
+
     seed = _sklearn_seed(rng)
     if stratify:
         if repeats == 1:
@@ -71,14 +72,43 @@ def cv_summary(cv_errors: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return mean, se
 
 
-def choose_lambda_index(cv_errors: np.ndarray, rule: str = "min") -> int:
-    """Column index chosen by `rule`.
+def _rule_min(mean: np.ndarray, se: np.ndarray, valid: np.ndarray, best: int) -> int:
+    return best
 
-    "min": the column with the smallest mean CV error (the simplest one on ties).
-    "one_se": the simplest column whose mean is within one standard error of the
-    minimum, the error bar being that of the minimising column (ESL 2nd ed. §7.10).
-    """
-    if rule not in RULES:
+
+def _rule_one_se(mean: np.ndarray, se: np.ndarray, valid: np.ndarray, best: int) -> int:
+    within = valid & (mean <= mean[best] + se[best])
+    return int(np.flatnonzero(within)[0])
+
+
+@dataclass(frozen=True)
+class Rule:
+    """A λ selection rule: `choose(mean, se, valid, best)` -> column index, where `best` is the
+    valid column of least mean CV error (the simplest one on ties)."""
+
+    name: str
+    description: str
+    choose: Callable[[np.ndarray, np.ndarray, np.ndarray, int], int]
+
+
+RULE_TABLE: dict[str, Rule] = {r.name: r for r in (
+    Rule("min", "the λ of least mean CV error (the simplest one on ties)", _rule_min),
+    Rule("one_se", "the simplest λ whose mean CV error is within one standard error of the minimum, "
+                   "the error bar being that of the minimising λ (ESL 2nd ed. §7.10)", _rule_one_se),
+)}
+RULES = tuple(RULE_TABLE)
+
+# How the ridge-type family may pick λ for the squared loss (other losses always use K-fold CV).
+L2_CRITERIA: dict[str, str] = {
+    "cv": "K-fold CV with the selection rule",
+    "loo": "exact leave-one-out error of the closed form",
+    "gcv": "generalised cross-validation",
+}
+
+
+def choose_lambda_index(cv_errors: np.ndarray, rule: str = "min") -> int:
+    """Column index chosen by `rule` (a name in RULE_TABLE)."""
+    if rule not in RULE_TABLE:
         raise ValueError(f"unknown selection rule {rule!r}; allowed: {', '.join(RULES)}")
     mean, se = cv_summary(cv_errors)
     valid = np.isfinite(mean)
@@ -86,50 +116,35 @@ def choose_lambda_index(cv_errors: np.ndarray, rule: str = "min") -> int:
         raise ValueError("every λ has a failed fit (NaN) in some split; nothing to choose")
     masked = np.where(valid, mean, np.inf)
     best = int(np.argmin(masked))
-    if rule == "min":
-        return best
-    within = valid & (mean <= mean[best] + se[best])
-    return int(np.flatnonzero(within)[0])
+    return RULE_TABLE[rule].choose(mean, se, valid, best)
 
 
-@dataclass(frozen=True)
-class NestedCVResult:
-    outer_errors: np.ndarray    # (n_outer_splits,) test error of the select-then-fit procedure
-    chosen_index: np.ndarray    # (n_outer_splits,) λ column chosen by the inner CV
-    mean: float
-    se: float
+# ---------------------------------------------------------------- nested CV
+# Outer folds of the training rows; in each, inner folds choose λ and the outer-fold fit on all
+# outer-training rows is scored on the outer test rows, which never take part in choosing λ.
+# The splits run as ordinary fit tasks named "outer{o}.fold{k}" and "outer{o}.final".
 
 
-def nested_cv(
-    n: int,
-    path_errors: Callable[[np.ndarray, np.ndarray], np.ndarray],
-    rng: np.random.Generator,
-    n_outer: int = 5,
-    n_inner: int = 5,
-    rule: str = "min",
-    y: np.ndarray | None = None,
-    stratify: bool = False,
-) -> NestedCVResult:
-    """Honest error estimate of the whole procedure "choose λ by inner CV, refit, predict".
+def nested_splits(train_rows: np.ndarray, y_train, n_folds: int, rng: np.random.Generator,
+                  stratify: bool) -> list[tuple[str, np.ndarray, np.ndarray]]:
+    """(name, fit rows, evaluation rows) of every nested-CV split; `rng` is the `nested` stream."""
+    splits = []
+    y_train = np.asarray(y_train)
+    for o, (otr, ote) in enumerate(make_folds(len(train_rows), n_folds, rng, y=y_train, stratify=stratify)):
+        outer_train = train_rows[otr]
+        inner = make_folds(len(outer_train), n_folds, rng, y=y_train[otr], stratify=stratify)
+        splits += [(f"outer{o}.fold{k}", outer_train[tr], outer_train[va]) for k, (tr, va) in enumerate(inner)]
+        splits.append((f"outer{o}.final", outer_train, train_rows[ote]))
+    return splits
 
-    `path_errors(train_idx, eval_idx)` fits the model on `train_idx` along the fixed
-    λ grid and returns the (L,) errors on `eval_idx` (NaN where a fit failed). It is
-    called for every inner split and once per outer split; the outer test rows never
-    take part in choosing λ.
-    """
-    outer = make_folds(n, n_outer, rng, y=y, stratify=stratify)
-    errors, chosen = [], []
-    for train, test in outer:
-        inner = make_folds(len(train), n_inner, rng, y=None if y is None else np.asarray(y)[train],
-                           stratify=stratify)
-        table = np.vstack([path_errors(train[tr], train[va]) for tr, va in inner])
-        idx = choose_lambda_index(table, rule)
-        chosen.append(idx)
-        errors.append(float(np.asarray(path_errors(train, test))[idx]))
-    errors_arr = np.asarray(errors)
-    return NestedCVResult(
-        outer_errors=errors_arr,
-        chosen_index=np.asarray(chosen, dtype=int),
-        mean=float(errors_arr.mean()),
-        se=float(errors_arr.std(ddof=1) / np.sqrt(len(errors_arr))),
-    )
+
+def nested_estimate(eval_loss_by_split: dict, n_folds: int, rule: str) -> dict:
+    """Outer-fold held-out loss of the whole procedure (inner CV picks λ, refit on the outer fold),
+    from the (L,) evaluation losses of the nested splits keyed by split name."""
+    values = []
+    for o in range(n_folds):
+        inner = [eval_loss_by_split[f"outer{o}.fold{k}"] for k in range(n_folds)]
+        idx = choose_lambda_index(np.vstack(inner), rule)
+        values.append(float(eval_loss_by_split[f"outer{o}.final"][idx]))
+    v = np.array(values)
+    return {"mean": float(v.mean()), "se": float(v.std(ddof=1) / np.sqrt(len(v))), "outer": values}

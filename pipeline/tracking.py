@@ -31,7 +31,6 @@ from mlflow.entities import Metric, Param, RunTag  # noqa: E402
 from mlflow.tracking import MlflowClient  # noqa: E402
 
 from .models.families import get_family  # noqa: E402
-from .stability import selection_probabilities  # noqa: E402
 
 PACKAGES = ("penduel", "numpy", "scipy", "scikit-learn", "cvxpy", "mlflow", "pandas")
 
@@ -288,9 +287,8 @@ class ExecutionLog:
             metrics = [Metric(name, float(row[key]), 0, 0) for key, name in names.items() if _finite(row.get(key))]
             if metrics:
                 self.client.log_batch(rid, metrics=metrics)
-        resamples = getattr(r, "resamples", ())
-        if get_family(r.family).has_support and resamples and resamples[0].coef is not None:
-            probs = selection_probabilities(np.stack([o.coef for o in resamples]))     # (L, p)
+        probs = getattr(result, "selection_paths", {}).get((r.loss_label, r.family))   # (L, p), from the stage
+        if probs is not None:
             frame = pd.DataFrame({"feature": list(result.feature_names),
                                   "at_chosen_lambda": probs[r.chosen_index]})
             for step, lam in enumerate(r.lambdas):

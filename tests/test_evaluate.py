@@ -11,6 +11,7 @@ from scipy.special import expit
 from sklearn import metrics as skm
 
 from pipeline import evaluate
+from pipeline.evaluate import intervals
 from pipeline.evaluate import (
     CLASSIFICATION_METRICS,
     REGRESSION_METRICS,
@@ -166,7 +167,7 @@ def test_bootstrap_coverage_of_nominal_90_percent():
 def test_bootstrap_is_reproducible_and_blocking_does_not_change_it(monkeypatch):
     y, pred = _regression_data(1, 50)
     first = bootstrap_ci(y, pred, "rmse", rng=np.random.default_rng(9))
-    monkeypatch.setattr(evaluate, "_BLOCK_CELLS", 7 * 50)  # blocks of 7 resamples
+    monkeypatch.setattr(intervals, "_BLOCK_CELLS", 7 * 50)  # blocks of 7 resamples
     second = bootstrap_ci(y, pred, "rmse", rng=np.random.default_rng(9))
     assert first == second
 
@@ -405,3 +406,83 @@ def test_corrected_ttest_holds_its_size_where_the_naive_one_does_not():
         naive += stats.ttest_1samp(diffs, 0.0).pvalue < 0.1
     assert 0.05 <= corrected / reps <= 0.15
     assert naive / reps > 0.3
+
+
+# --- the metric registry and the evaluation stage ---
+
+def test_registry_declares_one_primary_metric_per_task():
+    from pipeline.evaluate import METRICS, PRIMARY, primary_metric, task_metrics
+
+    assert PRIMARY == {"regression": "rmse", "classification": "balanced_accuracy"}
+    for task, name in PRIMARY.items():
+        assert METRICS[name].task == task and primary_metric(task) is METRICS[name]
+        assert name in task_metrics(task)
+    assert evaluate.REGRESSION_METRICS == ("mse", "rmse", "mae", "pinball", "r2")
+    assert evaluate.CLASSIFICATION_METRICS == ("accuracy", "balanced_accuracy", "roc_auc", "log_loss", "brier")
+    higher = {name for name, m in METRICS.items() if m.higher_is_better}
+    assert higher == {"r2", "accuracy", "balanced_accuracy", "roc_auc"}
+    assert {m.unit for m in METRICS.values()} <= {"target", "target squared", "none"}
+    assert all(m.label and m.single is not None and m.resampled is not None for m in METRICS.values())
+
+
+def test_pinball_at_a_level_matches_scikit_learn():
+    y, pred = _regression_data(4, 30)
+    # reference: scikit-learn mean_pinball_loss with alpha = τ
+    assert metric_function("pinball", tau=0.9)(y, pred) == pytest.approx(skm.mean_pinball_loss(y, pred, alpha=0.9))
+    assert metric_function("pinball", tau=0.9).name == "pinball"
+
+
+def test_winner_is_public_and_reads_the_interval():
+    assert evaluate.winner(-2.0, -1.0, lower_is_better=True) == 0
+    assert evaluate.winner(-2.0, -1.0, lower_is_better=False) == 1
+    assert evaluate.winner(-1.0, 1.0, lower_is_better=True) is None
+    assert evaluate.winner(float("nan"), 1.0, lower_is_better=True) is None
+
+
+def _family_result(label, family, title, pred, cv_column):
+    from types import SimpleNamespace
+    cv = np.column_stack([cv_column + 1.0, cv_column])
+    return SimpleNamespace(loss_label=label, family=family, title=title, test_pred=pred, cv_errors=cv,
+                           chosen_index=1, coefficients=None)
+
+
+def test_evaluation_stage_draws_the_paired_difference_stream_once():
+    from types import SimpleNamespace
+
+    from pipeline import seeds
+    from pipeline.evaluate import evaluate_results
+
+    y, pred_a = _regression_data(5, 40)
+    pred_b = pred_a + np.random.default_rng(6).normal(0, 0.5, 40)
+    results = [_family_result("squared", "l1", "sparse (L1)", pred_a, np.array([1.0, 2.0, 3.0])),
+               _family_result("squared", "l2", "ridge-type (L2)", pred_b, np.array([1.5, 2.0, 2.0])),
+               _family_result("huber", "l1", "sparse (L1)", pred_a, np.array([1.0, 1.0, 1.0]))]
+    out = evaluate_results(results, task="regression", y_test=y, fold_sizes=(20, 10),
+                           dataset=SimpleNamespace(truth=None), feature_names=(), seed=12)
+    assert out.primary == "rmse" and out.primary_lower_is_better
+    first, second = out.verdicts
+    expected = compare_pair(y, pred_a, pred_b, "rmse", name_a="sparse (L1)", name_b="ridge-type (L2)",
+                            rng=seeds.generator(12, "paired_difference"), n_boot=1000, level=0.9)
+    assert (first["diff"], first["low"], first["high"]) == (expected["diff"], expected["diff_low"],
+                                                           expected["diff_high"])
+    assert first["sentence"] == expected["verdict"]
+    assert second == {"loss": "huber", "diff": None, "low": None, "high": None,
+                      "sentence": "Only one family was fitted."}
+    # the fold test pairs the chosen columns fold by fold (Nadeau & Bengio correction, see above)
+    assert out.fold_tests["squared"] == corrected_resampled_ttest([-0.5, 0.0, 1.0], 20, 10, level=0.9)
+    assert "huber" not in out.fold_tests
+
+
+def test_truth_scores_by_hand():
+    from types import SimpleNamespace
+
+    from pipeline.evaluate import truth_scores
+
+    truth = SimpleNamespace(support=[0, 2], coefficients=np.array([1.0, 0.0, 2.0]))
+    data = SimpleNamespace(truth=truth, feature_names=("a", "b", "c"), n_features=3)
+    # identity map first, then a built feature that is not an original column (ignored for support)
+    out = truth_scores(data, ("a", "b", "c", "rff0"), np.array([0.5, 0.0, 0.0, 0.3]))
+    assert (out["true"], out["selected"]) == (2, 1)
+    assert out["precision"] == 1.0 and out["recall"] == 0.5 and out["f1"] == pytest.approx(2 / 3)
+    assert out["coef_error"]["l2"] == pytest.approx(np.hypot(0.5, 2.0))
+    assert truth_scores(SimpleNamespace(truth=None), ("a",), np.ones(1)) is None

@@ -7,7 +7,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from sklearn.linear_model import Lasso, lasso_path
 
-from pipeline.resampling import held_out_rows, in_fit_mask, resample_fits, resample_indices
+from pipeline.stability import held_out_rows, in_fit_mask, resample_indices
+from pipeline.stability.engine import resample_fits
 
 
 @given(st.integers(4, 200), st.sampled_from([0.3, 0.5, 0.8]), st.integers(0, 1000))
@@ -110,3 +111,19 @@ def test_resample_fits_identical_across_backends():
     processes = resample_fits(_lasso_fit, X, y, resamples, backend="processes", n_jobs=2)
     for name in ("coefs", "intercepts", "predictions"):
         assert getattr(local, name).tobytes() == getattr(processes, name).tobytes(), name
+
+
+def test_scheme_table_properties_hold_for_the_draws():
+    from pipeline.stability import SCHEME_TABLE, SCHEMES
+
+    assert SCHEMES == ("subsample", "bootstrap", "complementary_pairs")
+    for name, scheme in SCHEME_TABLE.items():
+        assert scheme.name == name and scheme.description
+        draws = resample_indices(40, name, 6, fraction=0.5, rng=7)
+        if scheme.half_size:
+            assert all(len(rows) == 20 for rows in draws)
+        repeats = any(len(np.unique(rows)) < len(rows) for rows in draws)
+        assert repeats == scheme.with_replacement
+        if scheme.paired:
+            for first, second in zip(draws[::2], draws[1::2]):
+                assert not np.isin(first, second).any()

@@ -4,7 +4,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
-from pipeline.selection import choose_lambda_index, cv_summary, make_folds, nested_cv
+from pipeline.selection import (L2_CRITERIA, RULE_TABLE, RULES, choose_lambda_index, cv_summary, make_folds,
+                                nested_estimate, nested_splits)
 
 # Hand-worked CV table, 4 splits x 5 λ (column 0 = largest λ = simplest model).
 # One-standard-error rule as in ESL 2nd ed. (Hastie, Tibshirani, Friedman) §7.10:
@@ -105,25 +106,39 @@ def _shrunk_mean_errors(y, factors):
 
 
 def test_nested_cv_keeps_outer_test_rows_out_of_selection():
+    """The nested splits the pipeline runs (selection.nested: true): inner folds inside the outer
+    training rows only, every training row in exactly one outer test fold."""
     y = np.random.default_rng(1).normal(3.0, 1.0, size=60)
     factors = np.linspace(0, 1, 6)
-    inner_calls, inner_fn = [], _shrunk_mean_errors(y, factors)
-
-    def recording(train, evaluate):
-        inner_calls.append((train, evaluate))
-        return inner_fn(train, evaluate)
-
-    result = nested_cv(60, recording, np.random.default_rng(2), n_outer=4, n_inner=3)
-    assert result.outer_errors.shape == (4,)
-    # calls come in groups: 3 inner splits then the outer evaluation
-    for g in range(4):
-        outer_train, outer_test = inner_calls[g * 4 + 3]
-        for tr, va in inner_calls[g * 4:g * 4 + 3]:
+    path_errors = _shrunk_mean_errors(y, factors)
+    train_rows = np.arange(100, 160)          # positions into a larger data set, as in the runner
+    y_all = np.concatenate([np.zeros(100), y])
+    splits = nested_splits(train_rows, y_all[train_rows], 4, np.random.default_rng(2), stratify=False)
+    assert [name for name, _, _ in splits] == [f"outer{o}.{s}" for o in range(4)
+                                                 for s in ("fold0", "fold1", "fold2", "fold3", "final")]
+    by_name = {name: (tr, ev) for name, tr, ev in splits}
+    outer_tests = []
+    for o in range(4):
+        outer_train, outer_test = by_name[f"outer{o}.final"]
+        outer_tests.append(outer_test)
+        assert not np.isin(outer_train, outer_test).any()
+        for k in range(4):
+            tr, va = by_name[f"outer{o}.fold{k}"]
             assert np.isin(tr, outer_train).all() and np.isin(va, outer_train).all()
             assert not np.isin(np.concatenate([tr, va]), outer_test).any()
-    # mean 3, noise 1: no shrinkage wins clearly, so the full-mean column is chosen
-    assert np.all(result.chosen_index == len(factors) - 1)
-    assert result.mean == pytest.approx(result.outer_errors.mean())
+    np.testing.assert_array_equal(np.sort(np.concatenate(outer_tests)), train_rows)
+    losses = {name: path_errors(tr - 100, ev - 100) for name, tr, ev in splits}
+    result = nested_estimate(losses, 4, "min")
+    # mean 3, noise 1: no shrinkage wins clearly, so the full-mean column is chosen in every outer fold
+    np.testing.assert_allclose(result["outer"], [losses[f"outer{o}.final"][-1] for o in range(4)])
+    assert result["mean"] == pytest.approx(np.mean(result["outer"]))
+    assert result["se"] == pytest.approx(np.std(result["outer"], ddof=1) / 2)
+
+
+def test_rule_and_criterion_tables_name_what_config_allows():
+    assert RULES == ("min", "one_se") and set(RULE_TABLE) == set(RULES)
+    assert all(rule.description for rule in RULE_TABLE.values())
+    assert tuple(L2_CRITERIA) == ("cv", "loo", "gcv")
 
 
 @settings(max_examples=150, deadline=None)
@@ -147,3 +162,21 @@ def test_leave_one_out_table_works_as_n_folds():
     residuals = np.array([[3.0, 1.0, 1.1], [2.0, 0.5, 0.4], [4.0, 1.5, 1.4]])
     assert choose_lambda_index(residuals**2, "min") == 2
     assert choose_lambda_index(residuals**2, "one_se") == 1
+
+
+def test_nested_cv_through_the_runner():
+    """selection.nested: true runs the nested splits as fit tasks and reports the outer losses."""
+    import pathlib
+
+    import yaml
+
+    from pipeline.config import parse_config
+    from pipeline.runner import run_experiment
+
+    config = yaml.safe_load((pathlib.Path(__file__).parent / "configs" / "tiny.yaml").read_text())
+    config.update(selection={"cv_folds": 3, "nested": True}, stability={"enabled": False},
+                  cache={"enabled": False})
+    result = run_experiment(parse_config(config), None, progress=False)
+    for r in result.results:
+        assert len(r.nested["outer"]) == 3 and np.isfinite(r.nested["outer"]).all()
+        assert r.nested["mean"] == pytest.approx(np.mean(r.nested["outer"]))

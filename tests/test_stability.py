@@ -243,7 +243,7 @@ def test_lasso_splits_selection_across_neighbouring_bands():
     from sklearn.linear_model import Lasso
 
     from pipeline.data.scenarios import make_scenario
-    from pipeline.resampling import resample_indices
+    from pipeline.stability import resample_indices
 
     src = SimpleNamespace(name="spectral_bands", seed=3, n_samples=120, n_features=40, n_informative=2,
                           correlation=0.95, noise=0.5)
@@ -294,7 +294,8 @@ def _lasso_and_ridge(X, y):
 
 
 def test_stability_summary_on_a_sparse_problem():
-    from pipeline.resampling import resample_fits, resample_indices
+    from pipeline.stability import resample_indices
+    from pipeline.stability.engine import resample_fits
 
     rng = np.random.default_rng(8)
     X = rng.standard_normal((100, 30))

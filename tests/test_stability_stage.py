@@ -11,8 +11,10 @@ SPEC = {
     "name": "bands-stability", "seed": 11,
     # Strongly correlated neighbouring bands, few true bands: the setting where a lasso
     # picks one member of a correlated group on one sample and its neighbour on another.
+    # data.seed 4: the scenario stream fix (own seed stream for scenario data) changed the draw;
+    # with it, seed 2 no longer shows a split group near the truth at this small n.
     "data": {"kind": "scenario", "name": "spectral_bands", "n_samples": 90, "n_features": 40,
-             "n_informative": 2, "correlation": 0.97, "noise": 0.5, "seed": 2},
+             "n_informative": 2, "correlation": 0.97, "noise": 0.5, "seed": 4},
     "losses": ["squared"],
     "families": {"l1": {"n_lambdas": 10, "lambda_ratio": 0.05}, "l2": {"n_lambdas": 10}},
     "selection": {"cv_folds": 3},
@@ -57,3 +59,17 @@ def test_report_shows_the_shared_selection(result):
     group = result.stability["squared"]["groups"][0]
     assert group["features"][0] in html
     assert "Stability paths" in html and "Selection frequency" in html
+
+
+def test_stage_hands_the_selection_paths_to_the_store(result):
+    """tracking stores these paths; they are the stage's own probabilities, not recomputed."""
+    from pipeline.stability import selection_probabilities
+
+    l1 = next(r for r in result.results if r.family == "l1")
+    paths = result.selection_paths[("squared", "l1")]
+    np.testing.assert_array_equal(paths, selection_probabilities(np.stack([o.coef for o in l1.resamples])))
+    shown = result.stability["squared"]["l1_paths"]
+    column = {n: j for j, n in enumerate(result.feature_names)}
+    for name, probs in zip(shown["names"], shown["probabilities"]):
+        np.testing.assert_allclose(paths[:, column[name]], probs)
+    assert ("squared", "l2") not in result.selection_paths

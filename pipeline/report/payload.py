@@ -10,13 +10,10 @@ import math
 
 import numpy as np
 
-from ..evaluate import coefficient_error, metric_function, paired_bootstrap_diff, support_recovery, verdict
-from ..models.families import compared_pair, get_family
-from ..seeds import generator
+from ..evaluate import N_BOOT
+from ..models.families import get_family
 
 PAYLOAD_VERSION = 1
-PRIMARY = {"regression": "rmse", "classification": "balanced_accuracy"}
-N_BOOT = 1000
 PATH_COLUMNS = 300          # coefficient-path columns kept for the plot (in order of entry)
 
 
@@ -57,23 +54,6 @@ def _path_columns(coef: np.ndarray, names) -> dict:
     return {"names": [str(names[j]) for j in keep], "values": [_nums(coef[:, j]) for j in keep]}
 
 
-def _truth(result, r) -> dict | None:
-    truth = result.dataset.truth
-    if truth is None or r.coefficients is None:
-        return None
-    raw = {name: j for j, name in enumerate(result.dataset.feature_names)}
-    selected = [raw[name] for name, c in zip(result.feature_names, r.coefficients) if c != 0 and name in raw]
-    rec = support_recovery(selected, truth.support, result.dataset.n_features)
-    out = {"true": len(truth.support), "selected": len(selected),
-           **{k: _num(rec[k]) for k in ("precision", "recall", "f1")}, "coef_error": None}
-    names = list(result.feature_names)
-    if truth.coefficients is not None and names[:len(raw)] == list(result.dataset.feature_names):
-        # Truth is linear in the original columns; compare on them (identity map first in the features).
-        err = coefficient_error(r.coefficients[:len(raw)], truth.coefficients)
-        out["coef_error"] = {k: _num(v) for k, v in err.items()}
-    return out
-
-
 def _family(result, r) -> dict:
     out = {
         "family": r.family, "title": r.title, "loss_label": r.loss_label, "loss_name": r.loss_name,
@@ -95,27 +75,7 @@ def _family(result, r) -> dict:
         order = np.argsort(-np.abs(r.coefficients), kind="stable")[:15]
         out["top_features"] = [[str(result.feature_names[j]), float(r.coefficients[j])] for j in order
                                if r.coefficients[j] != 0]
-        out["truth"] = _truth(result, r)
-    return out
-
-
-def _verdicts(result, primary) -> list[dict]:
-    metric = metric_function(primary)
-    rng = generator(result.spec.seed, "paired_difference")
-    by_loss: dict[str, dict] = {}
-    for r in result.results:
-        by_loss.setdefault(r.loss_label, {})[r.family] = r
-    out = []
-    for label, d in by_loss.items():
-        row = {"loss": label, "diff": None, "low": None, "high": None, "sentence": "Only one family was fitted."}
-        first, second = compared_pair()
-        if first.key in d and second.key in d:
-            diff, lo, hi = paired_bootstrap_diff(result.y_test, d[first.key].test_pred, d[second.key].test_pred,
-                                                 metric, n_boot=N_BOOT, level=0.9, rng=rng)
-            row.update(diff=_num(diff), low=_num(lo), high=_num(hi),
-                       sentence=verdict(first.title, second.title, diff, lo, hi, primary,
-                                        metric.lower_is_better))
-        out.append(row)
+        out["truth"] = _clean(result.evaluation.truth.get((r.loss_label, r.family)))
     return out
 
 
@@ -123,20 +83,20 @@ def build_payload(result) -> dict:
     from ..tracking import package_versions
 
     task = result.dataset.task
-    primary = PRIMARY[task]
+    evaluation = result.evaluation
     spec = result.spec
     return {
         "payload_version": PAYLOAD_VERSION,
         "name": spec.name, "description": spec.description, "config": spec.resolved(),
         "config_hash": spec.config_hash(), "data_hash": result.data_hash, "seconds": result.seconds,
-        "task": task, "primary": primary, "primary_lower_is_better": metric_function(primary).lower_is_better,
+        "task": task, "primary": evaluation.primary, "primary_lower_is_better": evaluation.primary_lower_is_better,
         "rule": spec.selection.rule, "n_folds": spec.selection.cv_folds, "n_boot": N_BOOT,
         "n_rows": result.dataset.n_samples, "n_train": len(result.train_rows), "n_test": len(result.test_rows),
         "dataset": result.dataset.summary(), "notes": list(result.notes),
         "feature_maps": [m.kind for m in spec.features.maps], "n_features_built": len(result.feature_names),
         "families": [_family(result, r) for r in result.results],
-        "verdicts": _verdicts(result, primary),
-        "fold_tests": _clean(result.comparisons),
+        "verdicts": _clean(list(evaluation.verdicts)),
+        "fold_tests": _clean(evaluation.fold_tests),
         "stability": _clean(result.stability),
         "versions": package_versions(),
     }

@@ -6,13 +6,15 @@ on rows no fit saw. The summary reads the fits at each family's chosen λ.
 """
 from __future__ import annotations
 
+from dataclasses import dataclass, field
+
 import numpy as np
 
-from . import seeds
-from .models.families import FAMILIES
-from .resampling import resample_indices
-from .stability import (compare_families, correlated_groups_sharing, lambda_range_for_error_bound,
-                        selection_probabilities)
+from .. import seeds
+from ..models.families import FAMILIES
+from .measures import (compare_families, correlated_groups_sharing, lambda_range_for_error_bound,
+                       selection_probabilities)
+from .schemes import resample_indices
 
 TOP_FEATURES = 20
 # the family whose fits select a support, and the one compared with it by its top-k |w| set
@@ -26,7 +28,7 @@ def stability_losses(spec) -> tuple[str, ...]:
     wanted = spec.stability.losses or (labels[0],)
     unknown = [w for w in wanted if w not in labels]
     if unknown:
-        from .data import DataError
+        from ..data import DataError
         raise DataError(f"stability.losses: {unknown} not among the experiment's losses ({labels}); "
                         f"use the labels shown there (e.g. 'huber_delta1').")
     return tuple(wanted)
@@ -44,8 +46,37 @@ def _names(feature_names, idx):
     return [str(feature_names[j]) for j in idx]
 
 
+@dataclass(frozen=True)
+class StabilityResult:
+    summaries: dict = field(default_factory=dict)        # loss label -> what the report shows
+    selection_paths: dict = field(default_factory=dict)  # (loss label, family) -> (L, p) selection probabilities
+
+
+def stability_stage(spec, results, feature_names, train_features) -> StabilityResult:
+    """Summaries of every loss whose fits were resampled. `train_features()` builds the training
+    rows' feature matrix (for correlated groups) only when some loss needs it."""
+    summaries, paths = {}, {}
+    Z_train = None
+    by_loss: dict[str, dict] = {}
+    for r in results:
+        if r.resamples:
+            by_loss.setdefault(r.loss_label, {})[r.family] = r
+    for label, d in by_loss.items():
+        if Z_train is None:
+            Z_train = train_features()
+        found: dict = {}
+        summaries[label] = summarise_families(spec, {f: list(r.resamples) for f, r in d.items()},
+                                              {f: r.lambdas for f, r in d.items()},
+                                              {f: r.chosen_index for f, r in d.items()}, feature_names, Z_train,
+                                              paths_out=found)
+        paths.update({(label, f): p for f, p in found.items()})
+    return StabilityResult(summaries, paths)
+
+
 def summarise_families(spec, outcomes_by_family: dict, lambdas_by_family: dict, chosen: dict,
-                       feature_names, Z_train: np.ndarray | None) -> dict:
+                       feature_names, Z_train: np.ndarray | None, paths_out: dict | None = None) -> dict:
+    """The report's stability summary of one loss. When `paths_out` is given, the (L, p) selection
+    probabilities along each family's path are returned in it, keyed by family."""
     st = spec.stability
     out = {"scheme": st.scheme, "n_resamples": st.n_resamples, "fraction": st.fraction,
            "threshold": st.threshold, "target_false_selections": st.target_false_selections,
@@ -56,6 +87,8 @@ def summarise_families(spec, outcomes_by_family: dict, lambdas_by_family: dict, 
     if have_l1:
         paths = np.stack([o.coef for o in l1])                    # (M, L, p)
         probs = selection_probabilities(paths)                    # (L, p)
+        if paths_out is not None:
+            paths_out[SUPPORT_FAMILY] = probs
         idx = chosen[SUPPORT_FAMILY]
         top = np.argsort(-probs.max(0), kind="stable")[:TOP_FEATURES]
         control = lambda_range_for_error_bound(paths, lambdas_by_family[SUPPORT_FAMILY], st.threshold,

@@ -1,4 +1,4 @@
-"""Resampling schemes and a resampling stage that fits one model family on every resample.
+"""Resampling schemes as a table: each scheme's name, description, draw function and properties.
 
 Both families are fitted on the same index arrays, so their stability is compared on
 identical resamples. Complementary pairs follow Shah & Samworth (2013, JRSS-B 75(1)).
@@ -9,11 +9,6 @@ from dataclasses import dataclass
 from typing import Any, Callable
 
 import numpy as np
-from scipy import sparse
-
-from pipeline.execution import run_tasks
-
-SCHEMES = ("subsample", "bootstrap", "complementary_pairs")
 
 
 def _by_class(n: int, y) -> list[np.ndarray]:
@@ -52,6 +47,45 @@ def _complementary_pair(rng, strata):
     return np.sort(np.concatenate(first)), np.sort(np.concatenate(second))
 
 
+def _draw_subsamples(rng, strata, n_resamples, fraction):
+    return [_subsample(rng, strata, fraction) for _ in range(n_resamples)]
+
+
+def _draw_bootstrap(rng, strata, n_resamples, fraction):
+    return [_bootstrap(rng, strata) for _ in range(n_resamples)]
+
+
+def _draw_pairs(rng, strata, n_resamples, fraction):
+    if n_resamples % 2:
+        raise ValueError(f"complementary pairs need an even n_resamples, got {n_resamples}")
+    if fraction != 0.5:
+        raise ValueError(f"complementary pairs use halves: fraction must be 0.5, got {fraction}")
+    return [half for _ in range(n_resamples // 2) for half in _complementary_pair(rng, strata)]
+
+
+@dataclass(frozen=True)
+class Scheme:
+    """A resampling scheme. `draw(rng, strata, n_resamples, fraction)` -> sorted row-index arrays."""
+
+    name: str
+    description: str
+    draw: Callable[..., list[np.ndarray]]
+    with_replacement: bool      # rows may repeat within a resample
+    half_size: bool             # resamples are n/2 rows when fraction is 1/2 (the Meinshausen–Bühlmann setting)
+    paired: bool                # resamples come in disjoint complementary pairs (needs an even count)
+
+
+SCHEME_TABLE: dict[str, Scheme] = {s.name: s for s in (
+    Scheme("subsample", "floor(fraction · n) rows drawn without replacement", _draw_subsamples,
+           with_replacement=False, half_size=True, paired=False),
+    Scheme("bootstrap", "n rows drawn with replacement", _draw_bootstrap,
+           with_replacement=True, half_size=False, paired=False),
+    Scheme("complementary_pairs", "random splits into two disjoint halves (Shah & Samworth 2013)", _draw_pairs,
+           with_replacement=False, half_size=True, paired=True),
+)}
+SCHEMES = tuple(SCHEME_TABLE)
+
+
 def resample_indices(n: int, scheme: str = "subsample", n_resamples: int = 100, fraction: float = 0.5,
                      rng: Any = None, y=None) -> list[np.ndarray]:
     """Sorted row-index arrays, one per resample.
@@ -70,16 +104,7 @@ def resample_indices(n: int, scheme: str = "subsample", n_resamples: int = 100, 
     if not 0 < fraction <= 1:
         raise ValueError(f"fraction must be in (0, 1], got {fraction}")
     rng = np.random.default_rng(rng)
-    strata = _by_class(n, y)
-    if scheme == "subsample":
-        return [_subsample(rng, strata, fraction) for _ in range(n_resamples)]
-    if scheme == "bootstrap":
-        return [_bootstrap(rng, strata) for _ in range(n_resamples)]
-    if n_resamples % 2:
-        raise ValueError(f"complementary pairs need an even n_resamples, got {n_resamples}")
-    if fraction != 0.5:
-        raise ValueError(f"complementary pairs use halves: fraction must be 0.5, got {fraction}")
-    return [half for _ in range(n_resamples // 2) for half in _complementary_pair(rng, strata)]
+    return SCHEME_TABLE[scheme].draw(rng, _by_class(n, y), n_resamples, fraction)
 
 
 def in_fit_mask(n: int, resamples: list[np.ndarray]) -> np.ndarray:
@@ -88,61 +113,6 @@ def in_fit_mask(n: int, resamples: list[np.ndarray]) -> np.ndarray:
     for m, rows in enumerate(resamples):
         mask[m, rows] = True
     return mask
-
-
-@dataclass(frozen=True)
-class ResampledFits:
-    """Outcome of fitting one family on every resample.
-
-    coefs: (M, L, p) coefficient paths over explicit features; intercepts: (M, L);
-    predictions: (M, L, n) on every row of X, NaN where the row was in that resample's fit.
-    """
-
-    coefs: np.ndarray
-    intercepts: np.ndarray
-    predictions: np.ndarray
-    resamples: tuple
-
-
-@dataclass(frozen=True)
-class _FitTask:
-    fit: Callable
-    rows: np.ndarray
-
-
-def _fit_one(task: _FitTask, data):
-    X, y = data
-    coef, intercept = task.fit(X[task.rows], y[task.rows])
-    coef = np.atleast_2d(np.asarray(coef, dtype=float))
-    intercept = np.atleast_1d(np.asarray(intercept, dtype=float))
-    if np.count_nonzero(coef) < 0.25 * coef.size:
-        coef = sparse.csr_matrix(coef)  # sparse paths travel back from workers several times smaller
-    return coef, intercept, intercept[:, None] + np.asarray(coef @ X.T)
-
-
-def _dense(coef) -> np.ndarray:
-    return coef.toarray() if sparse.issparse(coef) else coef
-
-
-def resample_fits(fit: Callable, X: np.ndarray, y: np.ndarray, resamples: list[np.ndarray], *,
-                  backend: str = "local", n_jobs: int = 1, progress: str | None = None,
-                  scheduler_address: str | None = None) -> ResampledFits:
-    """Fit a linear model path on every resample through `run_tasks`.
-
-    fit(X_rows, y_rows) -> (coef (L, p), intercept (L,)) must be a picklable module-level
-    callable; X and y are sent once to each worker. Predictions are b + Xw on all rows and
-    masked to NaN on the rows each fit saw, so only held-out predictions remain.
-    """
-    X = np.asarray(X, dtype=float)
-    y = np.asarray(y)
-    tasks = [_FitTask(fit, np.asarray(rows)) for rows in resamples]
-    out = run_tasks(_fit_one, tasks, backend=backend, n_jobs=n_jobs, progress=progress,
-                    scheduler_address=scheduler_address, shared=(X, y))
-    coefs = np.stack([_dense(o[0]) for o in out])
-    intercepts = np.stack([o[1] for o in out])
-    predictions = np.stack([o[2] for o in out])
-    predictions = np.where(in_fit_mask(X.shape[0], resamples)[:, None, :], np.nan, predictions)
-    return ResampledFits(coefs, intercepts, predictions, tuple(resamples))
 
 
 def held_out_rows(n: int, rows: np.ndarray) -> np.ndarray:

@@ -8,9 +8,9 @@ prediction instability; and which groups of correlated features share selection.
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
-from scipy.sparse import csr_matrix
-from scipy.sparse.csgraph import connected_components
+
+# scipy is imported inside the functions that need it: config reads the scheme table from this
+# package and should not pay for scipy.stats.
 
 
 def selected(coefs: np.ndarray, tol: float = 0.0) -> np.ndarray:
@@ -101,6 +101,8 @@ def nogueira_stability(Z: np.ndarray, level: float = 0.95) -> dict:
     in tests/test_stability.py. Φ̂ is 1 for identical sets and has expectation 0 for random sets of a
     fixed size; it is undefined (NaN) when every row is empty or every row is full.
     """
+    from scipy import stats
+
     Z = np.asarray(Z, dtype=float)
     if Z.ndim != 2 or Z.shape[0] < 2:
         raise ValueError(f"Z must be (M, p) with M >= 2, got shape {Z.shape}")
@@ -173,6 +175,9 @@ def prediction_instability(preds: np.ndarray) -> float:
 
 def correlated_groups(X: np.ndarray, features: np.ndarray, min_abs_corr: float) -> list[np.ndarray]:
     """Connected components of the graph |corr(x_a, x_b)| ≥ min_abs_corr among the given features."""
+    from scipy.sparse import csr_matrix
+    from scipy.sparse.csgraph import connected_components
+
     features = np.asarray(features, dtype=int)
     if features.size == 0:
         return []

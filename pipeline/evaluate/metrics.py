@@ -1,0 +1,231 @@
+"""The metric registry: every held-out metric is one `Metric` in `METRICS`, and the metric that
+decides between the families is declared once per task in `PRIMARY`.
+
+Point estimates come from scikit-learn's metric functions. Each metric also has a
+vectorised numpy form over a (B, n) matrix of resampled row indices, used only to
+evaluate thousands of bootstrap resamples at once; tests check it against
+scikit-learn resample by resample.
+
+Classification: labels are in {-1, +1}, `pred` is the real-valued decision f(x).
+The predicted label is +1 where f(x) > 0 (scikit-learn's convention for decision
+functions). Log-loss and Brier score use the probability sigmoid(f(x)) — exact for
+the logistic loss, a stated convention for the hinge losses, whose margins are not
+calibrated probabilities.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+from scipy.special import expit
+from sklearn import metrics as skm
+
+
+@dataclass(frozen=True)
+class Metric:
+    """A held-out score: `metric(y, pred) -> float`, plus what the bootstrap needs."""
+
+    name: str
+    task: str                     # "regression" | "classification" | "any"
+    lower_is_better: bool
+    single: Callable[[np.ndarray, np.ndarray], float] = field(repr=False)
+    # (y, pred, idx) -> (B,) values on the resamples y[idx[b]], pred[idx[b]]
+    resampled: Callable[[np.ndarray, np.ndarray, np.ndarray], np.ndarray] | None = field(default=None, repr=False)
+    title: str = ""               # how tables and figures name it
+    # "target": in the units of y; "target squared"; "none": unit-free (ratios, probabilities, scores)
+    unit: str = "none"
+    # metrics with a quantile level (pinball): tau -> the metric at that level
+    at_level: Callable[[float], "Metric"] | None = field(default=None, repr=False, compare=False)
+
+    @property
+    def higher_is_better(self) -> bool:
+        return not self.lower_is_better
+
+    @property
+    def label(self) -> str:
+        return self.title or self.name
+
+    def __call__(self, y, pred) -> float:
+        return float(self.single(np.asarray(y), np.asarray(pred)))
+
+    def on_resamples(self, y: np.ndarray, pred: np.ndarray, idx: np.ndarray) -> np.ndarray:
+        """Values on each resample given by the rows of the (B, n) index matrix `idx`."""
+        if self.resampled is not None:
+            return np.asarray(self.resampled(y, pred, idx), dtype=float)
+        return np.array([self(y[i], pred[i]) for i in idx])
+
+
+def _mean_of(pointwise: Callable[[np.ndarray, np.ndarray], np.ndarray]):
+    """Resampled form of a mean of per-row losses: the losses are computed once on all
+    rows and only gathered per resample (no (B, n) arithmetic)."""
+    return lambda y, pred, idx: pointwise(y, pred)[idx].mean(axis=1)
+
+
+def _resample_counts(idx: np.ndarray, n: int) -> np.ndarray:
+    """(B, n) how often each original row appears in each resample."""
+    b = idx.shape[0]
+    flat = (idx + n * np.arange(b)[:, None]).ravel()
+    return np.bincount(flat, minlength=b * n).reshape(b, n)
+
+
+def _labels(decision):
+    return np.where(decision > 0, 1.0, -1.0)
+
+
+def _squared(y, f):
+    return (y - f) ** 2
+
+
+def _absolute(y, f):
+    return np.abs(y - f)
+
+
+def _pinball(tau):
+    def pointwise(y, f):
+        r = y - f
+        return np.maximum(tau * r, (tau - 1) * r)
+    return pointwise
+
+
+def _rmse_resampled(y, f, idx):
+    return np.sqrt(_squared(y, f)[idx].mean(axis=1))
+
+
+def _r2_resampled(y, f, idx):
+    sse = _squared(y, f)[idx].sum(axis=1)
+    y_rows = y[idx]
+    sst = np.sum((y_rows - y_rows.mean(axis=1, keepdims=True)) ** 2, axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r2 = 1.0 - sse / sst
+    # scikit-learn's force_finite: constant y gives 1 for a perfect fit, else 0
+    return np.where(sst == 0, np.where(sse == 0, 1.0, 0.0), r2)
+
+
+def _hits(y, decision):
+    return (_labels(decision) == y).astype(float)
+
+
+def _balanced_accuracy_resampled(y, decision, idx):
+    hit, pos = (_labels(decision) == y)[idx], (y > 0)[idx]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        tpr = np.sum(hit & pos, axis=1) / np.sum(pos, axis=1)
+        tnr = np.sum(hit & ~pos, axis=1) / np.sum(~pos, axis=1)
+    return np.nanmean(np.stack([tpr, tnr]), axis=0)
+
+
+def _roc_auc_resampled(y, decision, idx):
+    # Mann-Whitney form of the AUC with ties counted one half, from resample counts:
+    # rows are sorted once by decision and grouped into tie blocks, so no resample is
+    # sorted again (O(B n) instead of O(B n log n)).
+    order = np.argsort(decision, kind="stable")
+    f_sorted = decision[order]
+    starts = np.concatenate([[0], np.flatnonzero(np.diff(f_sorted)) + 1])
+    counts = _resample_counts(idx, len(y))[:, order].astype(float)
+    pos = (y[order] > 0)
+    pos_groups = np.add.reduceat(counts * pos, starts, axis=1)
+    neg_groups = np.add.reduceat(counts * ~pos, starts, axis=1)
+    below = np.cumsum(neg_groups, axis=1) - neg_groups
+    n_pos, n_neg = pos_groups.sum(axis=1), neg_groups.sum(axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        auc = np.sum(pos_groups * (below + neg_groups / 2), axis=1) / (n_pos * n_neg)
+    return np.where((n_pos > 0) & (n_neg > 0), auc, np.nan)
+
+
+def _roc_auc_single(y, decision):
+    if np.unique(y).size < 2:
+        return math.nan  # undefined with one class present
+    return skm.roc_auc_score(y, decision)
+
+
+_EPS = np.finfo(float).eps
+
+
+def _log_loss_pointwise(y, decision):
+    # same clipping of probabilities as scikit-learn's log_loss (float64 machine eps)
+    p = expit(decision)
+    return -np.log(np.clip(np.where(y > 0, p, 1 - p), _EPS, 1 - _EPS))
+
+
+def _brier_pointwise(y, decision):
+    return (expit(decision) - (y > 0)) ** 2
+
+
+def _pinball_metric(tau: float) -> Metric:
+    return Metric("pinball", "regression", True, lambda y, f: skm.mean_pinball_loss(y, f, alpha=tau),
+                  _mean_of(_pinball(tau)), title="pinball loss", unit="target", at_level=_pinball_metric)
+
+
+_REG, _CLS = "regression", "classification"
+
+# The registry. Order within a task is the order metrics are reported in.
+METRICS: dict[str, Metric] = {m.name: m for m in (
+    Metric("mse", _REG, True, skm.mean_squared_error, _mean_of(_squared), title="MSE", unit="target squared"),
+    Metric("rmse", _REG, True, skm.root_mean_squared_error, _rmse_resampled, title="RMSE", unit="target"),
+    Metric("mae", _REG, True, skm.mean_absolute_error, _mean_of(_absolute), title="MAE", unit="target"),
+    _pinball_metric(0.5),
+    Metric("r2", _REG, False, skm.r2_score, _r2_resampled, title="R²"),
+    Metric("accuracy", _CLS, False, lambda y, f: skm.accuracy_score(y, _labels(f)), _mean_of(_hits),
+           title="accuracy"),
+    Metric("balanced_accuracy", _CLS, False, lambda y, f: skm.balanced_accuracy_score(y, _labels(f)),
+           _balanced_accuracy_resampled, title="balanced accuracy"),
+    Metric("roc_auc", _CLS, False, _roc_auc_single, _roc_auc_resampled, title="ROC AUC"),
+    Metric("log_loss", _CLS, True, lambda y, f: skm.log_loss(y, expit(f), labels=[-1, 1]),
+           _mean_of(_log_loss_pointwise), title="log-loss"),
+    Metric("brier", _CLS, True, lambda y, f: skm.brier_score_loss(y, expit(f), pos_label=1),
+           _mean_of(_brier_pointwise), title="Brier score"),
+)}
+
+# The decision metric per task: verdicts, the summary table and cross-execution comparisons use it.
+PRIMARY = {_REG: "rmse", _CLS: "balanced_accuracy"}
+
+
+def task_metrics(task: str) -> tuple[str, ...]:
+    return tuple(name for name, m in METRICS.items() if m.task == task)
+
+
+REGRESSION_METRICS = task_metrics(_REG)
+CLASSIFICATION_METRICS = task_metrics(_CLS)
+
+
+def metric_function(name: str, tau: float = 0.5) -> Metric:
+    """The metric called `name`; `tau` is the quantile level of the pinball loss."""
+    if name not in METRICS:
+        raise ValueError(f"unknown metric {name!r}; allowed: {', '.join(METRICS)}")
+    m = METRICS[name]
+    return m.at_level(tau) if m.at_level is not None else m
+
+
+def primary_metric(task: str) -> Metric:
+    """The metric that decides between the families for a task."""
+    return METRICS[PRIMARY[task]]
+
+
+def loss_metric(loss) -> Metric:
+    """Mean held-out value of a loss object (anything with `.name`, `.task` and a
+    per-row `.value(y, f)`), so each loss's own objective can be bootstrapped."""
+    return Metric(f"{loss.name}_loss", getattr(loss, "task", "any"), True,
+                  lambda y, f: float(np.mean(loss.value(y, f))),
+                  _mean_of(loss.value))
+
+
+def regression_metrics(y, pred, tau: float = 0.5) -> dict[str, float]:
+    return {name: metric_function(name, tau)(y, pred) for name in REGRESSION_METRICS}
+
+
+def classification_metrics(y, decision) -> dict[str, float]:
+    y = np.asarray(y)
+    if not np.isin(y, (-1, 1)).all():
+        raise ValueError("classification labels must be -1 or +1 (map them before evaluating)")
+    return {name: METRICS[name](y, decision) for name in CLASSIFICATION_METRICS}
+
+
+def as_metric(metric) -> Metric:
+    if isinstance(metric, Metric):
+        return metric
+    if isinstance(metric, str):
+        return metric_function(metric)
+    if callable(metric):  # a plain function: taken as lower-is-better, evaluated resample by resample
+        return Metric(getattr(metric, "__name__", "metric"), "any", True, metric)
+    raise TypeError(f"metric must be a name, a Metric or a callable; got {type(metric).__name__}")
