@@ -109,7 +109,11 @@ KERNELS: dict[str, Kernel] = {}
 
 
 def register_kernel(kernel: Kernel) -> Kernel:
-    """Add a kernel. Register before `pipeline.config` is imported: its choices are read once."""
+    """Add a kernel. Register before `pipeline.config` is imported: its choices are read once.
+
+    Worker processes (backends other than local) know only the entries of the modules they
+    import: a built-in entry belongs in this module's table.
+    """
     if not kernel.name.isidentifier():
         raise ValueError(f"a kernel name is an identifier, got {kernel.name!r}")
     KERNELS[kernel.name] = kernel

@@ -282,7 +282,11 @@ LOSSES: dict[str, LossKind] = {}
 
 def register_loss(name: str, task: str, title: str, factory: Callable[..., Loss],
                   params: tuple[LossParam, ...] = ()) -> LossKind:
-    """Add a loss kind. Register before `pipeline.config` is imported: its choices are read once."""
+    """Add a loss kind. Register before `pipeline.config` is imported: its choices are read once.
+
+    Worker processes (backends other than local) know only the entries of the modules they
+    import: a built-in entry belongs in this module's table.
+    """
     if not name.isidentifier() or name != name.lower():
         raise ValueError(f"a loss name is a lower-case identifier, got {name!r}")
     if task not in TASKS:

@@ -28,11 +28,11 @@ def load_dataset(source, base_dir: pathlib.Path, task: str) -> Dataset:
     path = pathlib.Path(source.path)
     if not path.is_absolute():
         path = base_dir / path
-    frame = _read_table(path, source.kind)
+    frame = read_table(path, source.kind)
     return frame_to_dataset(frame, source.target, task, source=str(path))
 
 
-def _read_table(path: pathlib.Path, kind: str) -> pd.DataFrame:
+def read_table(path: pathlib.Path, kind: str) -> pd.DataFrame:
     if path.is_dir():
         raise DataError(f"data.path: '{path}' is a folder; give the path of a {kind.upper()} file.")
     if not path.is_file():
