@@ -310,6 +310,22 @@ def all_loss_params() -> dict[str, LossParam]:
     return {p.name: p for kind in LOSSES.values() for p in kind.params}
 
 
+register_loss("squared", REGRESSION, "Squared error", SquaredLoss)
+register_loss("absolute", REGRESSION, "Absolute error", AbsoluteLoss)
+register_loss("huber", REGRESSION, "Huber", HuberLoss, (
+    LossParam("delta", 1.0, "Huber threshold (on standardised target).", gt=0.0),))
+register_loss("quantile", REGRESSION, "Quantile (pinball)", QuantileLoss, (
+    LossParam("tau", 0.5, "Quantile level.", gt=0.0, lt=1.0),))
+
+from . import losses_margin  # noqa: E402,F401  (registers the margin losses; it imports Loss from here)
+
+
+def __getattr__(name: str):
+    if name == "LOSS_NAMES":   # every registered loss name, read when asked
+        return loss_names()
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
+
 def get_loss(name: str, **params) -> Loss:
     """Loss by name, with the parameters its kind takes (e.g. `delta` for huber, `tau` for quantile)."""
     if isinstance(name, Loss):
@@ -324,23 +340,6 @@ def get_loss(name: str, **params) -> Loss:
         return LOSSES[key].factory(**params)
     except TypeError as exc:
         raise ValueError(f"loss '{key}' got parameters it does not take: {sorted(params)}") from exc
-
-
-register_loss("squared", REGRESSION, "Squared error", SquaredLoss)
-register_loss("absolute", REGRESSION, "Absolute error", AbsoluteLoss)
-register_loss("huber", REGRESSION, "Huber", HuberLoss, (
-    LossParam("delta", 1.0, "Huber threshold (on standardised target).", gt=0.0),))
-register_loss("quantile", REGRESSION, "Quantile (pinball)", QuantileLoss, (
-    LossParam("tau", 0.5, "Quantile level.", gt=0.0, lt=1.0),))
-
-from . import losses_margin  # noqa: E402  (registers the margin losses; it imports Loss from here)
-
-
-
-def __getattr__(name: str):
-    if name == "LOSS_NAMES":   # every registered loss name, read when asked
-        return loss_names()
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def intercept_only_dual(X, y, loss: Loss) -> np.ndarray:
