@@ -164,3 +164,45 @@ def test_toy_loss_and_kernel_run_end_to_end(tmp_path):
     assert "scaled_squared_weight3" in out.stdout
     reports = list((tmp_path / "reports").rglob("*.html"))
     assert reports and "rational_quadratic" in reports[0].read_text(encoding="utf-8")
+
+
+TOY_MAP = """
+from typing import Literal
+import numpy as np
+from pydantic import Field
+from sklearn.base import BaseEstimator, TransformerMixin
+from pipeline.features import MapKind, register_map
+from pipeline.settings import Settings
+
+class SquaresMap(Settings):
+    kind: Literal["squares"] = Field(description="Each standardised input squared.")
+
+class Squares(TransformerMixin, BaseEstimator):
+    def fit(self, X, y=None):
+        return self
+    def transform(self, X):
+        return np.asarray(X, float) ** 2
+    def get_feature_names_out(self, names):
+        return [f"{n}^2" for n in names]
+
+register_map(MapKind("squares", SquaresMap, lambda spec, seed: Squares(), lambda spec, n, rows=None: n))
+"""
+
+
+def test_toy_feature_map_is_one_registration(tmp_path):
+    path = tmp_path / "toy.yaml"
+    path.write_text("name: toy\ndata: {kind: scenario, name: dense_effects, n_features: 5, n_informative: 2}\n"
+                    "features: {maps: [{kind: identity}, {kind: squares}]}\n", encoding="utf-8")
+    check = textwrap.dedent(TOY_MAP) + textwrap.dedent("""
+        import numpy as np
+        from pipeline.config import load_config
+        from pipeline.features import FeatureBuilder
+        spec, _ = load_config("toy.yaml")
+        X = np.random.default_rng(0).normal(size=(12, 5))
+        assert FeatureBuilder(spec.features.maps).fit(X).transform(X).shape == (12, 10)
+        """)
+    out = _penduel(tmp_path, check, ["validate", str(path)])
+    assert out.returncode == 0, out.stderr
+    assert "squares" in out.stdout
+    out = _penduel(tmp_path, "", ["validate", str(path)])
+    assert out.returncode == 2 and "features.maps[2]" in out.stderr and "'squares'" in out.stderr
