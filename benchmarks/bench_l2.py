@@ -88,7 +88,8 @@ def _child_nystrom() -> dict:
 
 
 def _child_million_features() -> dict:
-    from pipeline.kernels import feature_gram, random_fourier_blocks
+    from pipeline.features.basic import random_fourier_blocks
+    from pipeline.kernels import feature_gram
     from pipeline.models.ridge.path import fit_l2_path, predict_path
 
     X, y = _regression_data(2500, PATH_P, seed=2)

@@ -156,10 +156,11 @@ def cmd_ui(args) -> int:
 
 def cmd_scenarios(args) -> int:
     from .config import ScenarioSource
+    from .data import SCENARIOS
 
     print("Synthetic scenarios (data.kind: scenario, data.name: ...):")
-    field = ScenarioSource.model_fields["name"]
-    print(f"  {field.description}")
+    for s in SCENARIOS.values():
+        print(f"  {s.name} ({s.task}): {s.description}")
     for name, f in ScenarioSource.model_fields.items():
         if name not in ("kind", "name"):
             print(f"  {name:14s} default {f.default!r:8}  {f.description}")

@@ -9,15 +9,13 @@ import contextlib
 import logging
 import sys
 import traceback
+from dataclasses import dataclass
 from typing import Any, Callable, Iterator, Sequence
 
 import numpy as np
 import scipy.linalg  # noqa: F401  load SciPy's BLAS now so the per-task thread limit covers it
 from threadpoolctl import threadpool_limits
 from tqdm import tqdm
-
-BACKENDS = ("local", "processes", "dask")
-
 
 class TaskFailed(RuntimeError):
     """A task raised; the message names the task and carries the worker's traceback."""
@@ -71,12 +69,12 @@ def local_dask_cluster(n_workers: int = 1) -> Iterator[str]:
         cluster.close()
 
 
-def _run_local(fn, tasks, shared, use_shared) -> Iterator[tuple[int, Any]]:
+def _run_local(fn, tasks, shared, use_shared, n_jobs, address) -> Iterator[tuple[int, Any]]:
     for i, task in enumerate(tasks):
         yield _call(fn, i, task, shared, use_shared)
 
 
-def _run_processes(fn, tasks, shared, use_shared, n_jobs) -> Iterator[tuple[int, Any]]:
+def _run_processes(fn, tasks, shared, use_shared, n_jobs, address) -> Iterator[tuple[int, Any]]:
     from joblib import Parallel, delayed, parallel_config
 
     # loky keeps its worker pool alive between calls, so repeated stages pay start-up once;
@@ -105,6 +103,21 @@ def _run_dask(fn, tasks, shared, use_shared, n_jobs, address) -> Iterator[tuple[
             client.cancel(futures)
 
 
+@dataclass(frozen=True)
+class Backend:
+    name: str
+    description: str      # where the fits run, for the config reference
+    # (fn, tasks, shared, use_shared, n_jobs, scheduler address) → (index, result) pairs in any order
+    run: Callable[..., Iterator[tuple[int, Any]]]
+
+
+BACKENDS: dict[str, Backend] = {b.name: b for b in (
+    Backend("local", "this process", _run_local),
+    Backend("processes", "worker processes", _run_processes),
+    Backend("dask", "a Dask cluster", _run_dask),
+)}
+
+
 def run_tasks(fn: Callable, tasks: Sequence, *, backend: str = "local", n_jobs: int = 1,
               progress: str | None = None, scheduler_address: str | None = None,
               shared: Any = None) -> list:
@@ -118,7 +131,7 @@ def run_tasks(fn: Callable, tasks: Sequence, *, backend: str = "local", n_jobs: 
     progress is a description. A failing task raises TaskFailed naming the task.
     """
     if backend not in BACKENDS:
-        raise ValueError(f"backend must be one of {BACKENDS}, got {backend!r}")
+        raise ValueError(f"backend must be one of {tuple(BACKENDS)}, got {backend!r}")
     if int(n_jobs) < 1:
         raise ValueError(f"n_jobs must be >= 1, got {n_jobs}")
     tasks = list(tasks)
@@ -127,12 +140,7 @@ def run_tasks(fn: Callable, tasks: Sequence, *, backend: str = "local", n_jobs: 
     with tqdm(total=len(tasks), desc=progress, file=sys.stderr, disable=progress is None) as bar:
         if not tasks:
             return results
-        if backend == "local":
-            stream = _run_local(fn, tasks, shared, use_shared)
-        elif backend == "processes":
-            stream = _run_processes(fn, tasks, shared, use_shared, int(n_jobs))
-        else:
-            stream = _run_dask(fn, tasks, shared, use_shared, int(n_jobs), scheduler_address)
+        stream = BACKENDS[backend].run(fn, tasks, shared, use_shared, int(n_jobs), scheduler_address)
         for index, result in stream:
             results[index] = result
             bar.update(1)

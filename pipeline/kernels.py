@@ -1,20 +1,10 @@
 """Kernel functions, blockwise Gram matrices and the positive-semidefiniteness check.
 
-Kernels (``KERNEL_NAMES``) and their parameters; ``d`` is the Euclidean distance
-‖x − z‖₂, ``d₁`` the Manhattan distance ‖x − z‖₁, ``ℓ`` = ``bandwidth``:
-
-=============  ==============================================  =====================
-name           k(x, z)                                         parameters
-=============  ==============================================  =====================
-linear         xᵀz                                             —
-polynomial     (scale·xᵀz + coef0)^degree                      degree=3, coef0=1,
-                                                               scale=1/p
-rbf            exp(−d² / (2ℓ²))          (Gaussian)            bandwidth
-laplacian      exp(−d₁ / ℓ)              (exponential, L1)     bandwidth
-matern12       exp(−d/ℓ)                 (Matérn ν = 1/2)      bandwidth
-matern32       (1 + √3 d/ℓ) exp(−√3 d/ℓ) (Matérn ν = 3/2)      bandwidth
-matern52       (1 + √5 d/ℓ + 5d²/(3ℓ²)) exp(−√5 d/ℓ)           bandwidth
-=============  ==============================================  =====================
+`KERNELS` is the one table of kernels: each `Kernel` carries its name, block function,
+formula, parameters with their defaults, and whether it has per-feature weights (only
+``linear``: K = ΦΦᵀ). ``d`` is the Euclidean distance ‖x − z‖₂, ``d₁`` the Manhattan
+distance ‖x − z‖₁, ``ℓ`` = ``bandwidth``. A new kernel is one `register_kernel(Kernel(...))`
+call (see tests/test_registries.py for a toy one).
 
 The Matérn and rbf forms follow the usual Gaussian-process parameterisation
 (Rasmussen & Williams 2006, eq. 4.14 and 4.17). When ``bandwidth`` is not given it
@@ -26,23 +16,14 @@ fix it explicitly.
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
-from typing import Callable, Iterable
+from dataclasses import dataclass, field
+from typing import Any, Callable, Iterable, Mapping
 
 import numpy as np
 import scipy.linalg
 from scipy.spatial.distance import cdist, pdist
 from sklearn.metrics.pairwise import euclidean_distances, manhattan_distances
 
-KERNEL_NAMES: tuple[str, ...] = (
-    "linear", "polynomial", "rbf", "laplacian", "matern12", "matern32", "matern52",
-)
-BANDWIDTH_KERNELS = frozenset({"rbf", "laplacian", "matern12", "matern32", "matern52"})
-_ALLOWED_PARAMS = {
-    "linear": set(),
-    "polynomial": {"degree", "coef0", "scale"},
-    **{name: {"bandwidth"} for name in BANDWIDTH_KERNELS},
-}
 # Rows per block: bounds the temporaries of a block to about block_rows × m floats.
 DEFAULT_BLOCK_ROWS = 1024
 
@@ -67,11 +48,15 @@ class PSDReport:
                 f"on these rows: choose another kernel or parameters, or loosen the tolerance.")
 
 
-def median_bandwidth(X, rng=None, max_rows: int = 2000, metric: str = "euclidean") -> float:
+# Rows the median distance looks at: its cost is quadratic in them.
+MEDIAN_MAX_ROWS = 2000
+
+
+def median_bandwidth(X, rng=None, max_rows: int = MEDIAN_MAX_ROWS, metric: str = "euclidean") -> float:
     """Median of the nonzero pairwise distances of (a seeded subsample of) the rows of X.
 
-    A common-practice default for the length scale of distance-based kernels.
-    ``rng`` None means a fixed seed, so the value is reproducible.
+    A common-practice default for the length scale of distance-based kernels and of the
+    random Fourier feature map. ``rng`` None means a fixed seed, so the value is reproducible.
     """
     X = np.asarray(X, dtype=float)
     if X.shape[0] > max_rows:
@@ -84,52 +69,115 @@ def median_bandwidth(X, rng=None, max_rows: int = 2000, metric: str = "euclidean
     return float(np.median(dist))
 
 
+@dataclass(frozen=True)
+class Kernel:
+    """One kernel: its block function, the parameters it takes and their defaults."""
+
+    name: str
+    block: Callable[[np.ndarray, np.ndarray, dict], np.ndarray]   # (rows, centres, resolved params) → K
+    formula: str = ""
+    params: tuple[str, ...] = ()
+    # constants, or callables of the training rows, for parameters not given; a
+    # "bandwidth" without a default is the median distance in `metric`
+    defaults: Mapping[str, Any] = field(default_factory=dict)
+    metric: str = "euclidean"
+    # K = ΦΦᵀ of the features themselves, so a fit has one coefficient per feature
+    has_feature_weights: bool = False
+
+    def resolve(self, X_train, **params) -> dict:
+        """Validate the parameter names and fill in the defaults from the training rows."""
+        unknown = set(params) - set(self.params)
+        if unknown:
+            raise ValueError(f"kernel {self.name!r} takes no parameter(s) {sorted(unknown)}; "
+                             f"allowed: {sorted(self.params) or 'none'}")
+        X_train = np.asarray(X_train, dtype=float)
+        out = dict(params)
+        for name in self.params:
+            if out.get(name) is not None:
+                continue
+            if name in self.defaults:
+                default = self.defaults[name]
+                out[name] = default(X_train) if callable(default) else default
+            elif name == "bandwidth":
+                out[name] = median_bandwidth(X_train, metric=self.metric)
+        if "bandwidth" in out and not out["bandwidth"] > 0:
+            raise ValueError(f"kernel bandwidth must be positive, got {out['bandwidth']!r}")
+        return out
+
+
+KERNELS: dict[str, Kernel] = {}
+
+
+def register_kernel(kernel: Kernel) -> Kernel:
+    """Add a kernel. Register before `pipeline.config` is imported: its choices are read once.
+
+    Worker processes (backends other than local) know only the entries of the modules they
+    import: a built-in entry belongs in this module's table.
+    """
+    if not kernel.name.isidentifier():
+        raise ValueError(f"a kernel name is an identifier, got {kernel.name!r}")
+    KERNELS[kernel.name] = kernel
+    return kernel
+
+
+def get_kernel(name: str) -> Kernel:
+    if name not in KERNELS:
+        raise ValueError(f"unknown kernel {name!r}; allowed: {', '.join(KERNELS)}")
+    return KERNELS[name]
+
+
 def resolve_params(X_train, kernel: str, **params) -> dict:
     """Fill in the defaults of ``kernel`` from the training rows; validate the names."""
-    if kernel not in KERNEL_NAMES:
-        raise ValueError(f"unknown kernel {kernel!r}; allowed: {', '.join(KERNEL_NAMES)}")
-    unknown = set(params) - _ALLOWED_PARAMS[kernel]
-    if unknown:
-        raise ValueError(f"kernel {kernel!r} takes no parameter(s) {sorted(unknown)}; "
-                         f"allowed: {sorted(_ALLOWED_PARAMS[kernel]) or 'none'}")
-    X_train = np.asarray(X_train, dtype=float)
-    out = dict(params)
-    if kernel in BANDWIDTH_KERNELS and out.get("bandwidth") is None:
-        metric = "manhattan" if kernel == "laplacian" else "euclidean"
-        out["bandwidth"] = median_bandwidth(X_train, metric=metric)
-    if kernel == "polynomial":
-        out.setdefault("degree", 3)
-        out.setdefault("coef0", 1.0)
-        if out.get("scale") is None:
-            out["scale"] = 1.0 / max(X_train.shape[1], 1)
-    if "bandwidth" in out and not out["bandwidth"] > 0:
-        raise ValueError(f"kernel bandwidth must be positive, got {out['bandwidth']!r}")
-    return out
+    return get_kernel(kernel).resolve(X_train, **params)
 
 
-def _kernel_block(Xb: np.ndarray, Z: np.ndarray, kernel: str, p: dict) -> np.ndarray:
-    if kernel == "linear":
-        return Xb @ Z.T
-    if kernel == "polynomial":
-        return (p["scale"] * (Xb @ Z.T) + p["coef0"]) ** p["degree"]
-    ell = p["bandwidth"]
-    if kernel == "rbf":
-        sq = euclidean_distances(Xb, Z, squared=True)
-        return np.exp(sq * (-0.5 / ell**2), out=sq)
-    if kernel == "laplacian":
-        d1 = manhattan_distances(Xb, Z)
-        return np.exp(d1 * (-1.0 / ell), out=d1)
+def _distances(Xb, Z, p):
     # cdist subtracts before squaring: the expansion trick loses ~1e-8 near d = 0, which
-    # the square root would pass on to these kernels.
+    # the square root would pass on to the Matérn kernels.
     r = cdist(Xb, Z)
-    r /= ell
-    if kernel == "matern12":
-        return np.exp(-r, out=r)
-    if kernel == "matern32":
-        r *= np.sqrt(3.0)
-        return (1.0 + r) * np.exp(-r)
-    r *= np.sqrt(5.0)  # matern52
+    r /= p["bandwidth"]
+    return r
+
+
+def _rbf(Xb, Z, p):
+    sq = euclidean_distances(Xb, Z, squared=True)
+    return np.exp(sq * (-0.5 / p["bandwidth"] ** 2), out=sq)
+
+
+def _laplacian(Xb, Z, p):
+    d1 = manhattan_distances(Xb, Z)
+    return np.exp(d1 * (-1.0 / p["bandwidth"]), out=d1)
+
+
+def _matern32(Xb, Z, p):
+    r = _distances(Xb, Z, p) * np.sqrt(3.0)
+    return (1.0 + r) * np.exp(-r)
+
+
+def _matern52(Xb, Z, p):
+    r = _distances(Xb, Z, p) * np.sqrt(5.0)
     return (1.0 + r + r * r / 3.0) * np.exp(-r)
+
+
+for _kernel in (
+    Kernel("linear", lambda Xb, Z, p: Xb @ Z.T, "xᵀz", has_feature_weights=True),
+    Kernel("polynomial", lambda Xb, Z, p: (p["scale"] * (Xb @ Z.T) + p["coef0"]) ** p["degree"],
+           "(scale·xᵀz + coef0)^degree", ("degree", "coef0", "scale"),
+           {"degree": 3, "coef0": 1.0, "scale": lambda X: 1.0 / max(X.shape[1], 1)}),
+    Kernel("rbf", _rbf, "exp(−d² / (2ℓ²)) (Gaussian)", ("bandwidth",)),
+    Kernel("laplacian", _laplacian, "exp(−d₁ / ℓ) (exponential, L1)", ("bandwidth",), metric="manhattan"),
+    Kernel("matern12", lambda Xb, Z, p: np.exp(-_distances(Xb, Z, p)), "exp(−d/ℓ) (Matérn ν = 1/2)",
+           ("bandwidth",)),
+    Kernel("matern32", _matern32, "(1 + √3 d/ℓ) exp(−√3 d/ℓ) (Matérn ν = 3/2)", ("bandwidth",)),
+    Kernel("matern52", _matern52, "(1 + √5 d/ℓ + 5d²/(3ℓ²)) exp(−√5 d/ℓ) (Matérn ν = 5/2)", ("bandwidth",)),
+):
+    register_kernel(_kernel)
+
+
+def __getattr__(name: str):
+    if name == "KERNEL_NAMES":   # every registered kernel name, read when asked
+        return tuple(KERNELS)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def gram(X, Z=None, kernel: str = "linear", block_rows: int = DEFAULT_BLOCK_ROWS,
@@ -140,11 +188,12 @@ def gram(X, Z=None, kernel: str = "linear", block_rows: int = DEFAULT_BLOCK_ROWS
     Z = X if symmetric else np.asarray(Z, dtype=float)
     if X.shape[1] != Z.shape[1]:
         raise ValueError(f"X has {X.shape[1]} columns but Z has {Z.shape[1]}")
-    p = resolve_params(Z, kernel, **params)
+    k = get_kernel(kernel)
+    p = k.resolve(Z, **params)
     K = np.empty((X.shape[0], Z.shape[0]))
     for start in range(0, X.shape[0], block_rows):
         stop = min(start + block_rows, X.shape[0])
-        K[start:stop] = _kernel_block(X[start:stop], Z, kernel, p)
+        K[start:stop] = k.block(X[start:stop], Z, p)
     if symmetric:
         # Distances computed by expansion are not exactly symmetric; make K so.
         K += K.T
@@ -170,33 +219,6 @@ def feature_gram(blocks: Iterable[Callable[[np.ndarray], np.ndarray]], X, Z=None
     K += K.T
     K *= 0.5
     return K if K_cross is None else (K, K_cross)
-
-
-def random_fourier_blocks(n_features_in: int, n_components: int, bandwidth: float,
-                          seed=0, block_size: int = 10_000):
-    """Seeded blocks of random Fourier features for the rbf kernel (Rahimi & Recht 2007).
-
-    φ(x) = √(2/D) cos(Wᵀx + u), W ~ N(0, ℓ⁻² I), u ~ U[0, 2π); E φ(x)ᵀφ(z) = rbf(x, z).
-    Each block draws from its own child of one SeedSequence, so a block is the
-    same whichever pass or worker evaluates it.
-    """
-    children = np.random.SeedSequence(seed).spawn((n_components + block_size - 1) // block_size)
-    scale = np.sqrt(2.0 / n_components)
-
-    def make(child, width):
-        def phi(X):
-            rng = np.random.default_rng(child)
-            W = rng.normal(scale=1.0 / bandwidth, size=(n_features_in, width))
-            u = rng.uniform(0.0, 2.0 * np.pi, size=width)
-            out = X @ W
-            out += u
-            np.cos(out, out=out)
-            out *= scale
-            return out
-        return phi
-
-    widths = [min(block_size, n_components - i * block_size) for i in range(len(children))]
-    return [make(c, w) for c, w in zip(children, widths)]
 
 
 def psd_from_eigenvalues(eigenvalues, tol: float = 1e-8, on_fail: str = "raise",

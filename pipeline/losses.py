@@ -1,42 +1,51 @@
-"""One object per loss, shared by the L1 and L2 families.
+"""One object per loss, shared by the L1 and L2 families, and the table of loss kinds.
 
 Every loss is a function of the decision value f for a fixed target y:
 regression losses of the residual r = y - f, classification losses of the
 margin m = y*f with y in {-1, +1}. Objective convention: (1/n) sum loss + lambda*penalty,
 squared loss written 0.5*(y - f)**2.
+
+`LOSSES` is the one table of loss kinds (name, task, title, parameters, factory); the
+config's loss choices, parameters and tasks come from it. A new loss is one
+`register_loss(...)` call (see tests/test_registries.py for a toy one).
 """
 from __future__ import annotations
 
 import difflib
 from dataclasses import dataclass, field
+from typing import Callable
 
 import cvxpy as cp
 import numpy as np
 from scipy.optimize import minimize_scalar
-from scipy.special import expit, xlogy
 
 REGRESSION = "regression"
 CLASSIFICATION = "classification"
+TASKS: tuple[str, ...] = (REGRESSION, CLASSIFICATION)
 
 
-def _as_float(a) -> np.ndarray:
+def as_float(a) -> np.ndarray:
     return np.asarray(a, dtype=float)
 
 
-def _outside(mask: np.ndarray, values: np.ndarray) -> np.ndarray:
+_as_float = as_float   # the lambda_max helpers at the end of this module use it
+
+
+def outside_domain(mask: np.ndarray, values: np.ndarray) -> np.ndarray:
     """Convex conjugates are +inf outside their domain."""
     return np.where(mask, values, np.inf)
 
 
-def _near_kink(arg, kink, y, f) -> np.ndarray:
+def near_kink(arg, kink, y, f) -> np.ndarray:
     """Samples whose loss argument sits on a kink up to rounding of the fit."""
-    scale = 1.0 + np.abs(_as_float(y)) + np.abs(_as_float(f))
+    scale = 1.0 + np.abs(as_float(y)) + np.abs(as_float(f))
     return np.abs(arg - kink) <= 1e-9 * scale
 
 
 @dataclass(frozen=True)
 class Loss:
-    """Base: subclasses fill the per-sample formulas."""
+    """Base: subclasses fill the per-sample formulas. Written for regression losses of the
+    residual; margin losses (pipeline.losses_margin) override the argument and dual domain."""
 
     name: str = field(init=False, default="")
     task: str = field(init=False, default=REGRESSION)
@@ -79,17 +88,12 @@ class Loss:
 
     def dual_bounds(self, y) -> tuple[np.ndarray, np.ndarray]:
         """Per-sample domain [low, high] of the conjugate loss*(y, .)."""
-        y = _as_float(y)
-        if self.task == REGRESSION:
-            return np.full(y.shape, -np.inf), np.full(y.shape, np.inf)
-        # margin losses: u*y in [-1, 0] (squared hinge: u*y <= 0)
-        reach = self.dual_reach
-        return np.where(y > 0, -reach, 0.0), np.where(y > 0, 0.0, reach)
+        y = as_float(y)
+        return np.full(y.shape, -np.inf), np.full(y.shape, np.inf)
 
-    # the variable the loss is written in: residual y - f or margin y*f
+    # the variable the loss is written in: the residual y - f here, the margin for margin losses
     def _arg(self, y, f):
-        y, f = _as_float(y), _as_float(f)
-        return (y - f) if self.task == REGRESSION else (y * f)
+        return as_float(y) - as_float(f)
 
 
 # ---------------------------------------------------------------- regression
@@ -106,14 +110,14 @@ class SquaredLoss(Loss):
         return -self._arg(y, f)
 
     def second_derivative(self, y, f):
-        return np.ones_like(_as_float(f))
+        return np.ones_like(as_float(f))
 
     def cvxpy_sum(self, y, f_expr):
         return 0.5 * cp.sum_squares(y - f_expr)
 
     def conjugate(self, y, u):
-        u = _as_float(u)
-        return u * _as_float(y) + 0.5 * u**2
+        u = as_float(u)
+        return u * as_float(y) + 0.5 * u**2
 
     def intercept_only(self, y):
         return float(np.mean(y))
@@ -146,14 +150,14 @@ class QuantileLoss(Loss):
 
     def subgradient_interval(self, y, f):
         r = self._arg(y, f)
-        kink = _near_kink(r, 0.0, y, f)
+        kink = near_kink(r, 0.0, y, f)
         above, below = self.slopes
         low = np.where(kink | (r > 0), -above, below)
         high = np.where(kink | (r < 0), below, -above)
         return low, high
 
     def second_derivative(self, y, f):
-        return np.zeros_like(_as_float(f))
+        return np.zeros_like(as_float(f))
 
     def dual_bounds(self, y):
         above, below = self.slopes
@@ -168,14 +172,14 @@ class QuantileLoss(Loss):
         return 0.5 * (above + below) * cp.sum(cp.abs(r)) + 0.5 * (above - below) * cp.sum(r)
 
     def conjugate(self, y, u):
-        u = _as_float(u)
+        u = as_float(u)
         above, below = self.slopes
         ok = (u >= -above - 1e-12) & (u <= below + 1e-12)
-        return _outside(ok, u * _as_float(y))
+        return outside_domain(ok, u * as_float(y))
 
     def intercept_only(self, y):
         above, below = self.slopes
-        return float(np.quantile(_as_float(y), above / (above + below), method="inverted_cdf"))
+        return float(np.quantile(as_float(y), above / (above + below), method="inverted_cdf"))
 
 
 @dataclass(frozen=True)
@@ -221,12 +225,12 @@ class HuberLoss(Loss):
         return 0.5 * cp.sum(cp.huber(y - f_expr, self.delta))
 
     def conjugate(self, y, u):
-        u = _as_float(u)
+        u = as_float(u)
         ok = np.abs(u) <= self.delta + 1e-12
-        return _outside(ok, u * _as_float(y) + 0.5 * u**2)
+        return outside_domain(ok, u * as_float(y) + 0.5 * u**2)
 
     def intercept_only(self, y):
-        y = _as_float(y)
+        y = as_float(y)
         lo, hi = float(np.min(y)), float(np.max(y))
         if hi - lo == 0:
             return lo
@@ -248,148 +252,91 @@ class HuberLoss(Loss):
         return b
 
 
-# ------------------------------------------------------------ classification
+# ---------------------------------------------------------------- the table
 @dataclass(frozen=True)
-class _MarginLoss(Loss):
-    """Loss of the margin m = y*f; conjugate of loss(y, .) at u is phi*(u*y) since y^2 = 1."""
+class LossParam:
+    """One numeric setting of a loss kind; the config checks gt < value < lt."""
 
-    def __post_init__(self):
-        object.__setattr__(self, "task", CLASSIFICATION)
-
-    def _class_counts(self, y) -> tuple[int, int]:
-        y = _as_float(y)
-        return int(np.sum(y > 0)), int(np.sum(y < 0))
-
-
-@dataclass(frozen=True)
-class LogisticLoss(_MarginLoss):
-    def __post_init__(self):
-        super().__post_init__()
-        object.__setattr__(self, "name", "logistic")
-        object.__setattr__(self, "cvxpy_solvers", ("CLARABEL", "SCS"))
-
-    def value(self, y, f):
-        return np.logaddexp(0.0, -self._arg(y, f))
-
-    def derivative(self, y, f):
-        y = _as_float(y)
-        return -y * expit(-self._arg(y, f))
-
-    def second_derivative(self, y, f):
-        p = expit(self._arg(y, f))
-        return p * (1.0 - p)
-
-    def cvxpy_sum(self, y, f_expr):
-        return cp.sum(cp.logistic(-cp.multiply(y, f_expr)))
-
-    def conjugate(self, y, u):
-        v = _as_float(u) * _as_float(y)
-        ok = (v >= -1 - 1e-12) & (v <= 1e-12)
-        a = np.clip(-v, 0.0, 1.0)
-        return _outside(ok, xlogy(a, a) + xlogy(1 - a, 1 - a))
-
-    def intercept_only(self, y):
-        pos, neg = self._class_counts(y)
-        # one class only: the optimum runs off to infinity; a large finite logit stands in
-        pos, neg = max(pos, 1e-12), max(neg, 1e-12)
-        return float(np.log(pos / neg))
+    name: str
+    default: float
+    description: str
+    gt: float | None = None
+    lt: float | None = None
 
 
 @dataclass(frozen=True)
-class HingeLoss(_MarginLoss):
-    def __post_init__(self):
-        super().__post_init__()
-        object.__setattr__(self, "name", "hinge")
-        object.__setattr__(self, "smooth", False)
-        object.__setattr__(self, "kinks", (1.0,))
-        object.__setattr__(self, "slopes", (0.0, 1.0))
+class LossKind:
+    name: str
+    task: str                          # REGRESSION or CLASSIFICATION
+    title: str                         # short human name for reports
+    factory: Callable[..., Loss]       # called with the parameters below as keywords
+    params: tuple[LossParam, ...] = ()
 
-    def value(self, y, f):
-        return np.maximum(0.0, 1.0 - self._arg(y, f))
-
-    def derivative(self, y, f):
-        m = self._arg(y, f)
-        y = _as_float(y)
-        return np.where(m < 1, -y, np.where(m > 1, 0.0, -0.5 * y))
-
-    def subgradient_interval(self, y, f):
-        m = self._arg(y, f)
-        at_kink = _near_kink(m, 1.0, y, f)
-        y = _as_float(y)
-        g = np.where((m < 1) & ~at_kink, -y, 0.0)
-        other = np.where(at_kink, -y, g)
-        return np.minimum(g, other), np.maximum(g, other)
-
-    def second_derivative(self, y, f):
-        return np.zeros_like(_as_float(f))
-
-    def cvxpy_sum(self, y, f_expr):
-        # max(0, 1-m) = 0.5|1-m| + 0.5(1-m): avoids pos() (cvxpy/HiGHS bound defect)
-        slack = 1 - cp.multiply(y, f_expr)
-        return 0.5 * cp.sum(cp.abs(slack)) + 0.5 * cp.sum(slack)
-
-    def conjugate(self, y, u):
-        v = _as_float(u) * _as_float(y)
-        ok = (v >= -1 - 1e-12) & (v <= 1e-12)
-        return _outside(ok, v)
-
-    def intercept_only(self, y):
-        pos, neg = self._class_counts(y)
-        return 1.0 if pos > neg else (-1.0 if neg > pos else 0.0)
+    @property
+    def param_names(self) -> tuple[str, ...]:
+        return tuple(p.name for p in self.params)
 
 
-@dataclass(frozen=True)
-class SquaredHingeLoss(_MarginLoss):
-    def __post_init__(self):
-        super().__post_init__()
-        object.__setattr__(self, "name", "squared_hinge")
-        object.__setattr__(self, "dual_reach", np.inf)
-
-    def value(self, y, f):
-        return np.maximum(0.0, 1.0 - self._arg(y, f)) ** 2
-
-    def derivative(self, y, f):
-        return -2.0 * _as_float(y) * np.maximum(0.0, 1.0 - self._arg(y, f))
-
-    def second_derivative(self, y, f):
-        return 2.0 * (self._arg(y, f) < 1).astype(float)
-
-    def cvxpy_sum(self, y, f_expr):
-        return cp.sum_squares(cp.pos(1 - cp.multiply(y, f_expr)))
-
-    def conjugate(self, y, u):
-        v = _as_float(u) * _as_float(y)
-        ok = v <= 1e-12
-        return _outside(ok, v + 0.25 * v**2)
-
-    def intercept_only(self, y):
-        pos, neg = self._class_counts(y)
-        total = pos + neg
-        return float((pos - neg) / total) if total else 0.0
+LOSSES: dict[str, LossKind] = {}
 
 
-_FACTORIES = {
-    "squared": SquaredLoss,
-    "absolute": AbsoluteLoss,
-    "huber": HuberLoss,
-    "quantile": QuantileLoss,
-    "logistic": LogisticLoss,
-    "hinge": HingeLoss,
-    "squared_hinge": SquaredHingeLoss,
-}
-LOSS_NAMES: tuple[str, ...] = tuple(_FACTORIES)
+def register_loss(name: str, task: str, title: str, factory: Callable[..., Loss],
+                  params: tuple[LossParam, ...] = ()) -> LossKind:
+    """Add a loss kind. Register before `pipeline.config` is imported: its choices are read once.
+
+    Worker processes (backends other than local) know only the entries of the modules they
+    import: a built-in entry belongs in this module's table.
+    """
+    if not name.isidentifier() or name != name.lower():
+        raise ValueError(f"a loss name is a lower-case identifier, got {name!r}")
+    if task not in TASKS:
+        raise ValueError(f"loss task must be one of {TASKS}, got {task!r}")
+    known = all_loss_params()
+    for p in params:
+        if p.name in known and known[p.name] != p:
+            raise ValueError(f"loss parameter {p.name!r} is already declared differently: {known[p.name]}")
+    kind = LossKind(name, task, title, factory, tuple(params))
+    LOSSES[name] = kind
+    return kind
+
+
+def loss_names(task: str | None = None) -> tuple[str, ...]:
+    """Registered loss names (of one task when given), in registration order."""
+    return tuple(n for n, k in LOSSES.items() if task is None or k.task == task)
+
+
+def all_loss_params() -> dict[str, LossParam]:
+    """Every parameter any loss kind takes, by name (a shared name means one shared setting)."""
+    return {p.name: p for kind in LOSSES.values() for p in kind.params}
+
+
+register_loss("squared", REGRESSION, "Squared error", SquaredLoss)
+register_loss("absolute", REGRESSION, "Absolute error", AbsoluteLoss)
+register_loss("huber", REGRESSION, "Huber", HuberLoss, (
+    LossParam("delta", 1.0, "Huber threshold (on standardised target).", gt=0.0),))
+register_loss("quantile", REGRESSION, "Quantile (pinball)", QuantileLoss, (
+    LossParam("tau", 0.5, "Quantile level.", gt=0.0, lt=1.0),))
+
+from . import losses_margin  # noqa: E402,F401  (registers the margin losses; it imports Loss from here)
+
+
+def __getattr__(name: str):
+    if name == "LOSS_NAMES":   # every registered loss name, read when asked
+        return loss_names()
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def get_loss(name: str, **params) -> Loss:
-    """Loss by name; `delta` for huber, `tau` for quantile."""
+    """Loss by name, with the parameters its kind takes (e.g. `delta` for huber, `tau` for quantile)."""
     if isinstance(name, Loss):
         return name
     key = str(name).strip().lower().replace("-", "_").replace(" ", "_")
-    if key not in _FACTORIES:
-        close = difflib.get_close_matches(key, LOSS_NAMES, n=1, cutoff=0.0)
+    if key not in LOSSES:
+        names = loss_names()
+        close = difflib.get_close_matches(key, names, n=1, cutoff=0.0)
         hint = f"; did you mean '{close[0]}'?" if close else ""
-        raise ValueError(f"unknown loss '{name}': valid names are {', '.join(LOSS_NAMES)}{hint}")
+        raise ValueError(f"unknown loss '{name}': valid names are {', '.join(names)}{hint}")
     try:
-        return _FACTORIES[key](**params)
+        return LOSSES[key].factory(**params)
     except TypeError as exc:
         raise ValueError(f"loss '{key}' got parameters it does not take: {sorted(params)}") from exc

@@ -211,7 +211,7 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     train_rows, test_rows = split_rows(spec, dataset)
     check_feature_budget(spec, dataset, len(train_rows))
     shared = Shared(X=dataset.X, y=dataset.y, task=dataset.task, feature_maps=spec.features.maps,
-                    feature_seed=seeds.int_seed(spec.seed, "features"), input_names=dataset.feature_names,
+                    feature_seed=spec.seed, input_names=dataset.feature_names,
                     family_options={f.key: f.options(getattr(spec.families, f.key),
                                                      seeds.int_seed(spec.seed, "landmarks"))
                                     for f in FAMILIES})

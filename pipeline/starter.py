@@ -11,9 +11,18 @@ import yaml
 
 from .config import ConfigError, parse_config
 from .data import DataError
-from .data.loaders import _read_table, frame_to_dataset
+from .data.loaders import read_table, frame_to_dataset
+from .losses import CLASSIFICATION, LOSSES, REGRESSION
 
 KINDS = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
+# The losses a starter config runs, per task; the comment beside them lists the other registered ones.
+STARTER_LOSSES = {REGRESSION: ("squared", "huber", "absolute"), CLASSIFICATION: ("logistic", "hinge")}
+
+
+def other_losses(task: str) -> str:
+    """The registered losses of `task` a starter config leaves out, each with the parameters to set."""
+    rest = [kind for kind in LOSSES.values() if kind.task == task and kind.name not in STARTER_LOSSES[task]]
+    return ", ".join(kind.name + (f" (set {', '.join(kind.param_names)})" if kind.params else "") for kind in rest)
 
 
 def guess_task(target: pd.Series) -> str:
@@ -47,7 +56,7 @@ def starter_text(data: pathlib.Path, target: str, config_dir: pathlib.Path) -> s
     kind = KINDS.get(data.suffix.lower())
     if kind is None:
         raise DataError(f"--data: '{data}' should end in .csv or .parquet (found '{data.suffix or 'no suffix'}').")
-    frame = _read_table(data, kind)
+    frame = read_table(data, kind)
     frame.columns = [str(c) for c in frame.columns]
     if target not in frame.columns:
         frame_to_dataset(frame, target, "regression", str(data))     # raises with a "did you mean" hint
@@ -56,11 +65,9 @@ def starter_text(data: pathlib.Path, target: str, config_dir: pathlib.Path) -> s
     n_train = ds.n_samples - max(1, round(0.25 * ds.n_samples))
     folds = cv_folds(ds.y, task, n_train)
     rel = os.path.relpath(data.resolve(), config_dir.resolve())
-    if task == "regression":
-        losses = ("losses: [squared, huber, absolute]   # also: quantile (set tau), or fewer to run faster\n")
-    else:
-        losses = ("losses: [logistic, hinge]   # also: squared_hinge\n"
-                  f"# classes: {_q(ds.class_labels[0])} is coded -1, {_q(ds.class_labels[1])} is +1\n")
+    losses = f"losses: [{', '.join(STARTER_LOSSES[task])}]   # also: {other_losses(task)}, or fewer to run faster\n"
+    if ds.class_labels is not None:
+        losses += f"# classes: {_q(ds.class_labels[0])} is coded -1, {_q(ds.class_labels[1])} is +1\n"
     text = (
         f"# Starter experiment for {_q(data.name)}: {ds.n_samples} rows, {ds.n_features} feature column(s) after\n"
         f"# encoding, target {target!r} ({task}). Written by `penduel init`; it runs as is:\n"

@@ -18,7 +18,11 @@ def test_loss_strings_and_mappings_both_accepted():
 
 
 @pytest.mark.parametrize("patch, culprit", [
-    ({"losses": ["squard"]}, "losses.0.name"),
+    ({"losses": ["squard"]}, "losses[1].name"),
+    ({"features": {"maps": [{"kind": "identity"}, {"kind": "spline", "n_knots": 1}]}}, "field 'features.maps[2].n_knots'"),
+    ({"data": {"kind": "scenario", "name": "spectral_bands", "n_samples": 3}}, "field 'data.n_samples'"),
+    ({"families": {"l2": {"bandwidth": -1}}}, "field 'families.l2.bandwidth'"),
+    ({"features": {"maps": [{"kind": "random_fourier", "bandwidth": 0}]}}, "field 'features.maps[1].bandwidth'"),
     ({"selection": {"cv_folds": 1}}, "selection.cv_folds"),
     ({"families": {"l1": {"lambda_ratio": -0.5}}}, "families.l1.lambda_ratio"),
     ({"families": {"l1": {"n_lambdas": 0}}}, "families.l1.n_lambdas"),

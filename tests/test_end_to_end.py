@@ -80,4 +80,4 @@ def test_validate_broken_config_exits_2_without_traceback(cli, tmp_path):
     done = cli(["validate", bad], tmp_path)
     assert done.returncode == 2
     assert "Traceback" not in done.stderr
-    assert "losses.0.name" in done.stderr and "'squard'" in done.stderr and "squared" in done.stderr
+    assert "losses[1].name" in done.stderr and "'squard'" in done.stderr and "squared" in done.stderr

@@ -50,9 +50,9 @@ def test_random_relu_is_seeded_and_nonnegative():
 
 
 def test_registered_with_feature_builder():
-    from pipeline.features import _MAPS, FeatureBuilder
+    from pipeline.features import MAPS, FeatureBuilder
 
-    assert {"spline", "random_relu", "kernel_dictionary"} <= set(_MAPS)
+    assert {"spline", "random_relu", "kernel_dictionary"} <= set(MAPS)
     maps = (SimpleNamespace(kind="spline", n_knots=4, degree=2),
             SimpleNamespace(kind="random_relu", n_components=20))
     Z = FeatureBuilder(maps=maps, seed=1).fit(X).transform(X_new)

@@ -8,8 +8,10 @@ from scipy.spatial.distance import cdist
 from sklearn.gaussian_process.kernels import Matern
 from sklearn.metrics.pairwise import laplacian_kernel, linear_kernel, polynomial_kernel, rbf_kernel
 
-from pipeline.kernels import (KERNEL_NAMES, KernelNotPSDError, feature_gram, gram, median_bandwidth,
-                              psd_check, random_fourier_blocks, resolve_params)
+from pipeline.features import FeatureBuilder
+from pipeline.features.basic import RandomFourier, RandomFourierMap, random_fourier_blocks
+from pipeline.kernels import (KERNEL_NAMES, KERNELS, KernelNotPSDError, feature_gram, gram, median_bandwidth,
+                              psd_check, resolve_params)
 
 RNG = np.random.default_rng(0)
 X = RNG.normal(size=(37, 4))
@@ -113,6 +115,23 @@ def test_random_fourier_blocks_do_not_depend_on_evaluation_order():
     first = blocks[1](X)
     blocks[0](X)
     np.testing.assert_array_equal(blocks[1](X), first)
+
+
+def test_random_fourier_map_is_the_blockwise_features():
+    # one implementation: the feature map's columns are exactly the seeded blocks, and its
+    # default bandwidth is the same median distance the distance kernels use
+    Xs = np.random.default_rng(5).normal(size=(30, 4))
+    t = RandomFourier(n_components=12, seed=3).fit(Xs)
+    assert t.bandwidth_ == median_bandwidth(Xs)
+    blocks = random_fourier_blocks(4, 12, median_bandwidth(Xs), seed=3)
+    np.testing.assert_array_equal(t.transform(Xs), np.hstack([b(Xs) for b in blocks]))
+    builder = FeatureBuilder((RandomFourierMap(kind="random_fourier", n_components=12),), seed=3).fit(Xs)
+    assert builder.transform(Xs).shape == (30, 12)
+
+
+def test_only_the_linear_kernel_has_feature_weights():
+    assert [name for name, k in KERNELS.items() if k.has_feature_weights] == ["linear"]
+    assert KERNELS["polynomial"].params == ("degree", "coef0", "scale") and KERNELS["linear"].params == ()
 
 
 @settings(max_examples=30, deadline=None)

@@ -26,6 +26,16 @@ def test_names_and_tasks():
     assert {n for n in LOSS_NAMES if not get_loss(n).smooth} == {"absolute", "quantile", "hinge"}
 
 
+def test_table_entries_agree_with_their_loss_objects():
+    from pipeline.losses import LOSSES
+    for name, kind in LOSSES.items():
+        loss = kind.factory(**{p.name: p.default for p in kind.params})
+        assert loss.name == name and loss.task == kind.task and kind.title
+        for p in kind.params:   # each declared parameter reaches the object
+            assert getattr(loss, p.name) == p.default
+    assert LOSSES["huber"].param_names == ("delta",) and LOSSES["quantile"].param_names == ("tau",)
+
+
 def test_unknown_name_lists_valid_and_closest():
     with pytest.raises(ValueError, match="did you mean 'huber'") as info:
         get_loss("hubr")

@@ -7,6 +7,8 @@ import pathlib
 import numpy as np
 import pandas as pd
 
+from ..losses import CLASSIFICATION, loss_names
+from .bundled import BUNDLED
 from .dataset import DataError, Dataset
 from .scenarios import make_scenario
 
@@ -26,11 +28,11 @@ def load_dataset(source, base_dir: pathlib.Path, task: str) -> Dataset:
     path = pathlib.Path(source.path)
     if not path.is_absolute():
         path = base_dir / path
-    frame = _read_table(path, source.kind)
+    frame = read_table(path, source.kind)
     return frame_to_dataset(frame, source.target, task, source=str(path))
 
 
-def _read_table(path: pathlib.Path, kind: str) -> pd.DataFrame:
+def read_table(path: pathlib.Path, kind: str) -> pd.DataFrame:
     if path.is_dir():
         raise DataError(f"data.path: '{path}' is a folder; give the path of a {kind.upper()} file.")
     if not path.is_file():
@@ -92,7 +94,7 @@ def _target(y_raw: pd.Series, target: str, task: str, source: str):
         row = int(np.flatnonzero(bad)[0])
         raise DataError(f"data.target: regression losses need a numeric target, but column '{target}' has "
                         f"non-numeric value {y_raw.iloc[row]!r} at data row {row}. Use a classification "
-                        f"loss (logistic, hinge, squared_hinge) for labels.")
+                        f"loss ({', '.join(loss_names(CLASSIFICATION))}) for labels.")
     y = values.to_numpy(dtype=float)
     if not np.isfinite(y).all():
         row = int(np.flatnonzero(~np.isfinite(y))[0])
@@ -159,24 +161,8 @@ def _features(frame: pd.DataFrame, source: str, notes: list[str]):
 
 
 def _bundled(name: str, task: str) -> Dataset:
-    from sklearn import datasets
-
-    if name == "diabetes":
-        if task != "regression":
-            raise DataError("data.name: 'diabetes' is a regression dataset; use regression losses "
-                            "(squared, absolute, huber, quantile).")
-        raw = datasets.load_diabetes(scaled=False)
-        return Dataset(X=np.asarray(raw.data, float), y=np.asarray(raw.target, float),
-                       feature_names=tuple(raw.feature_names), target_name="disease_progression",
-                       task="regression",
-                       source="diabetes (Efron, Hastie, Johnstone & Tibshirani 2004; scikit-learn load_diabetes)")
-    raw = datasets.load_breast_cancer()
-    if task != "classification":
-        raise DataError("data.name: 'breast_cancer' is a classification dataset; use classification losses "
-                        "(logistic, hinge, squared_hinge).")
-    # scikit-learn codes malignant as 0 and benign as 1.
-    y = np.where(raw.target == 1, 1.0, -1.0)
-    return Dataset(X=np.asarray(raw.data, float), y=y, feature_names=tuple(raw.feature_names),
-                   target_name="diagnosis", task="classification",
-                   source="Wisconsin diagnostic breast cancer (UCI; scikit-learn load_breast_cancer)",
-                   class_labels=("malignant", "benign"))
+    entry = BUNDLED[name]
+    if entry.task != task:
+        raise DataError(f"data.name: '{name}' is a {entry.task} dataset; use {entry.task} losses "
+                        f"({', '.join(loss_names(entry.task))}).")
+    return entry.load()

@@ -1,5 +1,12 @@
-"""Synthetic scenarios with recorded ground truth (invented data, for demos and tests)."""
+"""Synthetic scenarios with recorded ground truth (invented data, for demos and tests).
+
+`SCENARIOS` is the one table of scenarios (name, description, task, maker); the config's
+choices and `penduel scenarios` read it. A new scenario is one `register_scenario` call.
+"""
 from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 
@@ -7,11 +14,25 @@ from .. import seeds
 from .dataset import Dataset, Truth
 
 
+@dataclass(frozen=True)
+class Scenario:
+    name: str
+    description: str
+    task: str                                      # the task of the rows it draws
+    make: Callable[..., Dataset]                   # (scenario settings, numpy Generator) → Dataset
+
+
+SCENARIOS: dict[str, Scenario] = {}
+
+
+def register_scenario(scenario: Scenario) -> Scenario:
+    SCENARIOS[scenario.name] = scenario
+    return scenario
+
+
 def make_scenario(src) -> Dataset:
     rng = seeds.generator(src.seed, "scenario")  # its own stream: the nested-CV stream drew the same numbers
-    maker = {"spectral_bands": _spectral_bands, "binary_blobs": _binary_blobs,
-             "dense_effects": _dense_effects}[src.name]
-    return maker(src, rng)
+    return SCENARIOS[src.name].make(src, rng)
 
 
 def _ar1_columns(rng, n, p, rho):
@@ -75,3 +96,9 @@ def _dense_effects(src, rng) -> Dataset:
     return Dataset(X=X, y=y, feature_names=names, target_name="response", task="regression",
                    source=f"synthetic scenario dense_effects (seed {src.seed})",
                    truth=Truth(support=tuple(range(p)), coefficients=beta))
+
+
+register_scenario(Scenario("spectral_bands", "correlated bands, sparse signal", "regression", _spectral_bands))
+register_scenario(Scenario("binary_blobs", "two-class, few informative features", "classification",
+                           _binary_blobs))
+register_scenario(Scenario("dense_effects", "many small effects", "regression", _dense_effects))

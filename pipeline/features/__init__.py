@@ -6,52 +6,27 @@ receive the same standardised matrix Z; coefficients on Z are mapped back to the
 scale of the map outputs (for the identity map: the original columns) with
 `to_output_scale`.
 
-Other modules add maps by calling `register_map(kind, factory)`; a factory takes
-(map spec, seed) and returns a scikit-learn transformer that acts on standardised
-inputs and has `get_feature_names_out(input_names)`.
+`MAPS` (pipeline.features.registry) is the one table of maps; a new map is one
+`register_map(MapKind(...))` call beside its transformer (see basic.py, extra.py).
 """
 from __future__ import annotations
-
-from typing import Callable
 
 import numpy as np
 from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.preprocessing import StandardScaler
 
-from .basic import IdentityColumns, PolynomialTerms, RandomFourier
+from .. import seeds
+from . import basic, extra  # noqa: F401  (importing them registers their maps)
+from .registry import MAPS, MapKind, get_map, output_width, register_map
 
-_MAPS: dict[str, Callable] = {}
-
-
-def register_map(kind: str, factory: Callable) -> None:
-    _MAPS[kind] = factory
-
-
-register_map("identity", lambda spec, seed: IdentityColumns())
-register_map("polynomial", lambda spec, seed: PolynomialTerms(spec.degree, spec.interaction_only))
-register_map("random_fourier", lambda spec, seed: RandomFourier(spec.n_components, spec.bandwidth, seed))
-
-
-def output_width(spec, n_inputs: int, n_rows: int | None = None) -> int:
-    """Columns a map will produce, known before building it (for the memory estimate)."""
-    if spec.kind == "identity":
-        return n_inputs
-    if spec.kind == "polynomial":
-        from math import comb
-        if spec.interaction_only:
-            return sum(comb(n_inputs, d) for d in range(2, spec.degree + 1))
-        return sum(comb(n_inputs + d - 1, d) for d in range(2, spec.degree + 1))
-    if spec.kind == "random_fourier":
-        return spec.n_components
-    if spec.kind == "spline":
-        return n_inputs * (spec.n_knots + spec.degree - 1)
-    if spec.kind == "kernel_dictionary":
-        return spec.n_centres or n_rows or n_inputs
-    return getattr(spec, "n_components", n_inputs)
+__all__ = ["FeatureBuilder", "MAPS", "MapKind", "get_map", "output_width", "register_map"]
 
 
 class FeatureBuilder(TransformerMixin, BaseEstimator):
-    """Standardise inputs → feature maps → standardised outputs, fitted on the rows given to fit."""
+    """Standardise inputs → feature maps → standardised outputs, fitted on the rows given to fit.
+
+    `seed` is the experiment seed: map i draws from child i of its "features" stream.
+    """
 
     def __init__(self, maps=(), seed: int = 0, input_names=None):
         self.maps = maps
@@ -64,11 +39,11 @@ class FeatureBuilder(TransformerMixin, BaseEstimator):
         self.input_scaler_ = StandardScaler().fit(X)
         Xs = self.input_scaler_.transform(X)
         self.transformers_, out_names = [], []
-        for i, spec in enumerate(self.maps):
-            if spec.kind not in _MAPS:
-                raise ValueError(f"unknown feature map '{spec.kind}'; known: {sorted(_MAPS)}")
-            t = _MAPS[spec.kind](spec, int(self.seed) * 1000 + i)
-            t.fit(X if spec.kind == "identity" else Xs)
+        map_seeds = seeds.child_int_seeds(int(self.seed), "features", len(self.maps))
+        for spec, seed in zip(self.maps, map_seeds):
+            entry = get_map(spec.kind)
+            t = entry.build(spec, seed)
+            t.fit(Xs if entry.standardised_input else X)
             self.transformers_.append(t)
             out_names.extend(t.get_feature_names_out(names))
         self.feature_names_out_ = np.asarray(out_names, dtype=object)
@@ -76,7 +51,8 @@ class FeatureBuilder(TransformerMixin, BaseEstimator):
         return self
 
     def _raw_outputs(self, X, Xs):
-        blocks = [t.transform(X if spec.kind == "identity" else Xs) for spec, t in zip(self.maps, self.transformers_)]
+        blocks = [t.transform(Xs if get_map(spec.kind).standardised_input else X)
+                  for spec, t in zip(self.maps, self.transformers_)]
         return np.hstack(blocks) if len(blocks) > 1 else blocks[0]
 
     def transform(self, X):
@@ -94,5 +70,3 @@ class FeatureBuilder(TransformerMixin, BaseEstimator):
         coef = np.asarray(coef, dtype=float)
         w = coef / scale
         return w, np.asarray(intercept, dtype=float) - w @ mean
-
-from . import extra  # noqa: E402,F401  (registers spline, random_relu, kernel_dictionary)

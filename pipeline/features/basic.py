@@ -1,10 +1,44 @@
-"""The basic maps: identity, polynomial terms, random Fourier features."""
+"""The basic maps: identity, polynomial terms, random Fourier features; importing registers them."""
 from __future__ import annotations
 
+from dataclasses import dataclass
+from math import comb
+from typing import Literal, Union
+
 import numpy as np
+from pydantic import Field, field_validator
 from sklearn.base import BaseEstimator, TransformerMixin
-from sklearn.kernel_approximation import RBFSampler
 from sklearn.preprocessing import PolynomialFeatures
+
+from ..kernels import median_bandwidth
+from ..settings import Settings
+from .registry import MapKind, register_map
+
+
+class IdentityMap(Settings):
+    kind: Literal["identity"] = Field(description="The input columns themselves.")
+
+
+class PolynomialMap(Settings):
+    kind: Literal["polynomial"] = Field(description="Products of standardised inputs up to a degree.")
+    degree: int = Field(2, ge=2, le=5, description="Highest total degree.")
+    interaction_only: bool = Field(False, description="Only products of distinct columns.")
+
+
+class RandomFourierMap(Settings):
+    kind: Literal["random_fourier"] = Field(
+        description="Random Fourier features approximating a Gaussian kernel (Rahimi & Recht 2007).")
+    n_components: int = Field(300, ge=1, le=5_000_000, description="Number of random features.")
+    bandwidth: Union[float, Literal["median"]] = Field(
+        "median", description="Gaussian bandwidth σ on standardised inputs, or 'median' for the "
+                              "median pairwise distance of training rows.")
+
+    @field_validator("bandwidth")
+    @classmethod
+    def _positive(cls, v):
+        if not isinstance(v, str) and v <= 0:
+            raise ValueError("bandwidth must be positive or 'median'")
+        return v
 
 
 class IdentityColumns(TransformerMixin, BaseEstimator):
@@ -40,15 +74,40 @@ class PolynomialTerms(TransformerMixin, BaseEstimator):
         return [n.replace(" ", "*") for n, k in zip(names, self.keep_) if k]
 
 
-def median_distance(X, rng, max_rows=1000) -> float:
-    """Median pairwise Euclidean distance of (up to max_rows sampled) rows: a common-practice bandwidth."""
-    if X.shape[0] > max_rows:
-        X = X[rng.choice(X.shape[0], max_rows, replace=False)]
-    sq = (X**2).sum(1)
-    d2 = np.maximum(sq[:, None] + sq[None, :] - 2 * X @ X.T, 0.0)
-    iu = np.triu_indices(X.shape[0], 1)
-    med = float(np.sqrt(np.median(d2[iu])))
-    return med if med > 0 else 1.0
+@dataclass(frozen=True)
+class FourierBlock:
+    """One seeded block of random Fourier columns; a plain value, so it pickles to any worker."""
+
+    seed: np.random.SeedSequence
+    n_features_in: int
+    width: int
+    bandwidth: float
+    scale: float
+
+    def __call__(self, X) -> np.ndarray:
+        rng = np.random.default_rng(self.seed)
+        W = rng.normal(scale=1.0 / self.bandwidth, size=(self.n_features_in, self.width))
+        u = rng.uniform(0.0, 2.0 * np.pi, size=self.width)
+        out = np.asarray(X, dtype=float) @ W
+        out += u
+        np.cos(out, out=out)
+        out *= self.scale
+        return out
+
+
+def random_fourier_blocks(n_features_in: int, n_components: int, bandwidth: float,
+                          seed=0, block_size: int = 10_000) -> list[FourierBlock]:
+    """Seeded blocks of random Fourier features for the rbf kernel (Rahimi & Recht 2007).
+
+    φ(x) = √(2/D) cos(Wᵀx + u), W ~ N(0, ℓ⁻² I), u ~ U[0, 2π); E φ(x)ᵀφ(z) = rbf(x, z).
+    Each block draws from its own child of one SeedSequence, so a block is the
+    same whichever pass or worker evaluates it; `pipeline.kernels.feature_gram` sums
+    their Gram matrices without holding all columns.
+    """
+    children = np.random.SeedSequence(seed).spawn((n_components + block_size - 1) // block_size)
+    scale = np.sqrt(2.0 / n_components)
+    widths = [min(block_size, n_components - i * block_size) for i in range(len(children))]
+    return [FourierBlock(c, n_features_in, w, float(bandwidth), scale) for c, w in zip(children, widths)]
 
 
 class RandomFourier(TransformerMixin, BaseEstimator):
@@ -60,15 +119,29 @@ class RandomFourier(TransformerMixin, BaseEstimator):
         self.seed = seed
 
     def fit(self, X, y=None):
-        rng = np.random.default_rng(self.seed)
-        sigma = median_distance(X, rng) if self.bandwidth == "median" else float(self.bandwidth)
-        self.bandwidth_ = sigma
-        self.sampler_ = RBFSampler(gamma=1.0 / (2 * sigma**2), n_components=self.n_components,
-                                   random_state=int(rng.integers(2**31 - 1))).fit(X)
+        X = np.asarray(X, dtype=float)
+        self.bandwidth_ = median_bandwidth(X) if self.bandwidth == "median" else float(self.bandwidth)
+        self.blocks_ = random_fourier_blocks(X.shape[1], self.n_components, self.bandwidth_, self.seed)
         return self
 
     def transform(self, X):
-        return self.sampler_.transform(X)
+        blocks = [phi(X) for phi in self.blocks_]
+        return np.hstack(blocks) if len(blocks) > 1 else blocks[0]
 
     def get_feature_names_out(self, input_features):
         return [f"rff_{j:05d}" for j in range(self.n_components)]
+
+
+def _polynomial_width(spec, n_inputs: int, n_rows=None) -> int:
+    if spec.interaction_only:
+        return sum(comb(n_inputs, d) for d in range(2, spec.degree + 1))
+    return sum(comb(n_inputs + d - 1, d) for d in range(2, spec.degree + 1))
+
+
+register_map(MapKind("identity", IdentityMap, lambda spec, seed: IdentityColumns(),
+                     lambda spec, n_inputs, n_rows=None: n_inputs, standardised_input=False))
+register_map(MapKind("polynomial", PolynomialMap,
+                     lambda spec, seed: PolynomialTerms(spec.degree, spec.interaction_only), _polynomial_width))
+register_map(MapKind("random_fourier", RandomFourierMap,
+                     lambda spec, seed: RandomFourier(spec.n_components, spec.bandwidth, seed),
+                     lambda spec, n_inputs, n_rows=None: spec.n_components))

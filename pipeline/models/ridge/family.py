@@ -10,15 +10,13 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from pipeline.kernels import gram
+from pipeline.kernels import KERNELS, gram
 from pipeline.models.interface import Family, PathFit
 from pipeline.models.ridge.nystrom import fit_nystrom_path, nystrom_spectrum
 from pipeline.models.ridge.path import L2Path, fit_l2_path, l2_lambda_grid, predict_path, spectrum_lambda_grid
 
 EXACT_MAX_ROWS = 8000      # training rows above which the low-rank route is used
 N_LANDMARKS = 1000         # landmarks of the low-rank route
-# kernels whose feature space is the fitted columns themselves, so f = b + Zw has a weight per column
-FEATURE_SPACE_KERNELS = frozenset({"linear"})
 
 
 @dataclass(frozen=True)
@@ -62,7 +60,8 @@ class RidgeFamily(Family):
                 "n_lambdas": section.n_lambdas, "landmark_seed": int(seed)}
 
     def has_coefficients(self, options: dict) -> bool:
-        return options["kernel"] in FEATURE_SPACE_KERNELS
+        # a kernel whose feature space is the fitted columns themselves gives f = b + Zw a weight per column
+        return KERNELS[options["kernel"]].has_feature_weights
 
     def _kernel(self, options):
         return options["kernel"], dict(options.get("kernel_params", ()))

@@ -1,0 +1,77 @@
+"""The whole experiment file: every section with its default, and the rules across sections."""
+from __future__ import annotations
+
+import hashlib
+import json
+from typing import Any
+
+from pydantic import Field, field_validator, model_validator
+
+from ..losses import TASKS, loss_names
+from ..settings import Settings
+from .loss_spec import LossSpec
+from .sections import (CacheSpec, ExecutionSpec, FamiliesSpec, FeaturesSpec, ReportSpec, SelectionSpec, SplitSpec,
+                       StabilitySpec, TrackingSpec)
+from .sources import DataSource
+
+
+class ExperimentSpec(Settings):
+    name: str = Field(description="Experiment name, used for the tracking experiment and report folder.",
+                      min_length=1, max_length=120, pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
+    description: str = Field("", description="Free text shown in the report.")
+    seed: int = Field(0, ge=0, description="Root of every random choice.")
+    data: DataSource = Field(description="Where the rows come from: a file, a bundled open dataset or a "
+                                         "synthetic scenario (chosen by data.kind).")
+    split: SplitSpec = SplitSpec()
+    features: FeaturesSpec = FeaturesSpec()
+    losses: tuple[LossSpec, ...] = Field((LossSpec(name="squared"),), description="Losses to compare on.")
+    families: FamiliesSpec = FamiliesSpec()
+    selection: SelectionSpec = SelectionSpec()
+    tracking: TrackingSpec = TrackingSpec()
+    report: ReportSpec = ReportSpec()
+    execution: ExecutionSpec = ExecutionSpec()
+    stability: StabilitySpec = StabilitySpec()
+    cache: CacheSpec = CacheSpec()
+
+    @field_validator("losses", mode="before")
+    @classmethod
+    def _loss_strings(cls, v):
+        if isinstance(v, (list, tuple)):
+            return [{"name": x} if isinstance(x, str) else x for x in v]
+        return v
+
+    @field_validator("losses")
+    @classmethod
+    def _losses_not_empty(cls, v):
+        if len(v) == 0:
+            raise ValueError("at least one loss is needed")
+        labels = [loss.label for loss in v]
+        if len(set(labels)) != len(labels):
+            raise ValueError(f"a loss is listed twice: {labels}")
+        return v
+
+    @model_validator(mode="after")
+    def _consistent(self) -> "ExperimentSpec":
+        if not (self.families.l1.enabled or self.families.l2.enabled):
+            raise ValueError("both families are disabled; enable families.l1 or families.l2")
+        if len({loss.task for loss in self.losses}) > 1:
+            kinds = " with ".join(f"{t} losses ({', '.join(loss_names(t))})" for t in TASKS if loss_names(t))
+            raise ValueError(f"losses mix {kinds}; list one kind")
+        if self.data.kind == "scenario":   # checked before the rows are drawn
+            mib = self.data.n_samples * self.data.n_features * 8 / 2**20
+            if mib > self.features.memory_budget_mib:
+                raise ValueError(f"data: a scenario of {self.data.n_samples} rows × {self.data.n_features} "
+                                 f"columns needs about {mib:,.0f} MiB, over features.memory_budget_mib = "
+                                 f"{self.features.memory_budget_mib}; use fewer rows or columns")
+        return self
+
+    @property
+    def task(self) -> str:
+        return self.losses[0].task
+
+    def resolved(self) -> dict[str, Any]:
+        return self.model_dump(mode="json")
+
+    def config_hash(self) -> str:
+        text = json.dumps(self.resolved(), sort_keys=True)
+        return hashlib.sha256(text.encode()).hexdigest()[:16]

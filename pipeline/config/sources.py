@@ -1,0 +1,46 @@
+"""Where the rows come from: a file, a bundled open dataset or a synthetic scenario."""
+from __future__ import annotations
+
+from typing import Annotated, Literal, Union
+
+from pydantic import Field, model_validator
+
+from ..data import BUNDLED, SCENARIOS
+from ..settings import Settings
+
+SCENARIO_CHOICES: tuple[str, ...] = tuple(SCENARIOS)
+BUNDLED_CHOICES: tuple[str, ...] = tuple(BUNDLED)
+
+
+class FileSource(Settings):
+    kind: Literal["csv", "parquet"] = Field(description="Read a CSV or Parquet file.")
+    path: str = Field(description="File path, relative to the config file's folder.")
+    target: str = Field(description="Name of the column to predict.")
+
+
+class BundledSource(Settings):
+    kind: Literal["bundled"] = Field(description="An open dataset shipped with scikit-learn.")
+    name: Literal[BUNDLED_CHOICES] = Field(
+        description=" or ".join(b.description for b in BUNDLED.values()) + ".")
+
+
+class ScenarioSource(Settings):
+    kind: Literal["scenario"] = Field(description="A synthetic scenario that records its ground truth.")
+    name: Literal[SCENARIO_CHOICES] = Field(
+        description="; ".join(f"{s.name}: {s.description}" for s in SCENARIOS.values()) + ".")
+    n_samples: int = Field(160, ge=10, le=1_000_000, description="Number of rows.")
+    n_features: int = Field(400, ge=2, le=1_000_000, description="Number of columns.")
+    n_informative: int = Field(6, ge=1, description="Columns that carry the signal.")
+    correlation: float = Field(0.95, ge=0.0, lt=1.0,
+                               description="Correlation between neighbouring columns (spectral_bands).")
+    noise: float = Field(1.0, gt=0.0, description="Noise standard deviation (regression) or label-flip scale.")
+    seed: int = Field(0, ge=0, description="Seed of the data draw (separate from the experiment seed).")
+
+    @model_validator(mode="after")
+    def _informative_fits(self) -> "ScenarioSource":
+        if self.n_informative > self.n_features:
+            raise ValueError(f"n_informative ({self.n_informative}) exceeds n_features ({self.n_features})")
+        return self
+
+
+DataSource = Annotated[Union[FileSource, BundledSource, ScenarioSource], Field(discriminator="kind")]
