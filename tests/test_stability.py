@@ -10,7 +10,7 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
 from pipeline.stability import (
-    compare_families, correlated_groups_sharing, stability_summary, held_out_matrix, lambda_range_for_error_bound, mb_error_bound,
+    compare_families, correlated_groups_sharing, held_out_matrix, lambda_range_for_error_bound, mb_error_bound,
     nogueira_stability, prediction_instability, selection_probabilities, sign_consistency, stable_set,
     top_k_sets, union_sizes)
 
@@ -270,15 +270,15 @@ def test_compare_families_by_hand():
     nan = np.nan
     preds = np.array([[1.0, nan], [3.0, 4.0], [nan, 6.0]])
     out = compare_families(l1, l2, preds, preds)
-    for family in ("l1", "l2"):
+    for family in ("support", "top_k"):
         assert out[family]["index"]["stability"] == pytest.approx(1 / 3)
         assert out[family]["mean_set_size"] == 2.0
         assert out[family]["prediction_instability"] == pytest.approx(2.0)   # var(1,3) = var(4,6) = 2
     # L1 signs: feature 0 +++ , feature 1 +, feature 2 +− : (3 + 1 + 1) / 6 agree with the majority
-    assert out["l1"]["sign_agreement"] == pytest.approx(5 / 6)
+    assert out["support"]["sign_agreement"] == pytest.approx(5 / 6)
     # L2 top-2 signs: feature 0 ++−, feature 1 +, feature 2 ++ : (2 + 1 + 2) / 6
-    assert out["l2"]["sign_agreement"] == pytest.approx(5 / 6)
-    np.testing.assert_allclose(out["l2"]["selection_frequency"], [1, 1 / 3, 2 / 3, 0])
+    assert out["top_k"]["sign_agreement"] == pytest.approx(5 / 6)
+    np.testing.assert_allclose(out["top_k"]["selection_frequency"], [1, 1 / 3, 2 / 3, 0])
 
 
 def _lasso_and_ridge(X, y):
@@ -303,13 +303,13 @@ def test_stability_summary_on_a_sparse_problem():
     fits = resample_fits(_lasso_and_ridge, X, y, resample_indices(100, "complementary_pairs", 40, rng=0))
     lambdas = np.geomspace(1.0, 0.02, 12)
     l1_index = 6
-    out = stability_summary(fits.coefs[:, :12], lambdas, l1_index, fits.coefs[:, 12], X,
-                            l1_preds=fits.predictions[:, l1_index], l2_preds=fits.predictions[:, 12],
-                            threshold=0.9, target_ev=1.0)
-    assert out["selection_probabilities"].shape == (12, 30)
-    control = out["error_control"]
+    paths = fits.coefs[:, :12]
+    assert selection_probabilities(paths).shape == (12, 30)
+    control = lambda_range_for_error_bound(paths, lambdas, 0.9, 1.0)
     assert control["bound"] <= 1.0 and {0, 1, 2} <= set(control["stable_set"].tolist())
-    l1, l2 = out["families"]["l1"], out["families"]["l2"]
+    both = compare_families(paths[:, l1_index], fits.coefs[:, 12], fits.predictions[:, l1_index],
+                            fits.predictions[:, 12])
+    l1, l2 = both["support"], both["top_k"]
     assert l2["mean_set_size"] == l1["mean_set_size"]          # ridge top-k uses the lasso's k
     for family in (l1, l2):
         assert -1.0 <= family["index"]["lower"] <= family["index"]["stability"] <= family["index"]["upper"]

@@ -3,7 +3,7 @@
 Meinshausen–Bühlmann bound, correlated groups) and the stage summary."""
 from .measures import (compare_families, correlated_groups, correlated_groups_sharing, family_stability,
                        held_out_matrix, lambda_range_for_error_bound, mb_error_bound, nogueira_stability,
-                       prediction_instability, selected, selection_probabilities, sign_consistency, stability_summary,
+                       prediction_instability, selected, selection_probabilities, sign_consistency,
                        stable_set, top_k_sets, union_sizes)
 from .schemes import SCHEME_TABLE, SCHEMES, Scheme, held_out_rows, in_fit_mask, resample_indices
 from .stage import StabilityResult, resample_splits, stability_losses, stability_stage, summarise_families
@@ -13,6 +13,6 @@ __all__ = [
     "correlated_groups_sharing", "family_stability", "held_out_matrix", "held_out_rows", "in_fit_mask",
     "lambda_range_for_error_bound", "mb_error_bound", "nogueira_stability", "prediction_instability",
     "resample_indices", "resample_splits", "selected", "selection_probabilities", "sign_consistency",
-    "stability_losses", "stability_stage", "stability_summary", "stable_set", "summarise_families",
+    "stability_losses", "stability_stage", "stable_set", "summarise_families",
     "top_k_sets", "union_sizes",
 ]

@@ -245,34 +245,12 @@ def family_stability(coefs: np.ndarray, held_out_preds: np.ndarray | None = None
     }
 
 
-def compare_families(l1_coefs: np.ndarray, l2_coefs: np.ndarray, l1_preds=None, l2_preds=None,
+def compare_families(support_coefs: np.ndarray, dense_coefs: np.ndarray, support_preds=None, dense_preds=None,
                      level: float = 0.95, tol: float = 0.0) -> dict:
-    """Both families on identical resamples: L1 support sets against, resample by resample, the
-    same number of largest |w| of the ridge fit (its top-k set, k = that resample's L1 support size)."""
-    l1 = family_stability(l1_coefs, l1_preds, None, level, tol)
-    k = selected(l1_coefs, tol).sum(axis=1)
-    return {"l1": l1, "l2": family_stability(l2_coefs, l2_preds, k, level, tol)}
+    """Both families on identical resamples: the support sets of the family with exact zeros against,
+    resample by resample, the same number of largest |w| of the dense fit (its top-k set, k = that
+    resample's support size). Keys: "support" and "top_k"."""
+    support = family_stability(support_coefs, support_preds, None, level, tol)
+    k = selected(support_coefs, tol).sum(axis=1)
+    return {"support": support, "top_k": family_stability(dense_coefs, dense_preds, k, level, tol)}
 
-
-def stability_summary(l1_coef_paths: np.ndarray, lambdas: np.ndarray, l1_index: int, l2_coefs: np.ndarray,
-                      X: np.ndarray, *, l1_preds=None, l2_preds=None, threshold: float = 0.9,
-                      target_ev: float = 1.0, level: float = 0.95, min_abs_corr: float = 0.7,
-                      min_frequency: float = 0.1, tol: float = 0.0) -> dict:
-    """Everything the report shows about stability, from fits on identical resamples.
-
-    l1_coef_paths: (M, L, p) sparse-family paths over `lambdas`; l1_index: the λ the sparse
-    model uses (e.g. chosen by CV); l2_coefs: (M, p) ridge-family weights at its chosen λ;
-    *_preds: (M, n) held-out predictions at those λ (NaN on fitted rows); X: (n, p) features
-    for the correlation groups. The error bound assumes subsamples of n/2 (subsampling or
-    complementary pairs), not the bootstrap.
-    """
-    l1_coef_paths = np.asarray(l1_coef_paths, dtype=float)
-    at_lambda = l1_coef_paths[:, l1_index]
-    return {
-        "lambdas": np.asarray(lambdas, dtype=float),
-        "selection_probabilities": selection_probabilities(l1_coef_paths, tol),
-        "error_control": lambda_range_for_error_bound(l1_coef_paths, lambdas, threshold, target_ev, tol),
-        "families": compare_families(at_lambda, l2_coefs, l1_preds, l2_preds, level, tol),
-        "correlated_groups": correlated_groups_sharing(selected(at_lambda, tol), X, min_abs_corr, min_frequency),
-        "threshold": threshold, "target_ev": target_ev, "l1_index": int(l1_index),
-    }

@@ -116,9 +116,9 @@ def summarise_families(spec, outcomes_by_family: dict, lambdas_by_family: dict, 
         l1_pred = np.stack([o.eval_pred[chosen[SUPPORT_FAMILY]] for o in l1])
         l2_pred = np.stack([o.eval_pred[chosen[TOP_K_FAMILY]] for o in l2])
         both = compare_families(l1_coefs, l2_coefs, l1_pred, l2_pred)
-        out["families"] = {SUPPORT_FAMILY: _family_row(both["l1"]), TOP_K_FAMILY: _family_row(both["l2"])}
+        out["families"] = {SUPPORT_FAMILY: _family_row(both["support"]), TOP_K_FAMILY: _family_row(both["top_k"])}
         if "frequency" in out:
-            l2_freq = both["l2"]["selection_frequency"]
+            l2_freq = both["top_k"]["selection_frequency"]
             names = out["frequency"]["names"]
             lookup = {str(n): j for j, n in enumerate(feature_names)}
             out["frequency"][TOP_K_FAMILY] = [float(l2_freq[lookup[n]]) for n in names]
