@@ -47,9 +47,11 @@ def _dead_pid() -> int:
     return int(done.stdout)
 
 
-def test_abandoned_running_runs_are_marked_killed_live_ones_kept():
+def test_abandoned_running_runs_are_marked_killed_live_ones_kept(monkeypatch):
     spec, _ = load_config(CONFIGS / "tiny.yaml")
-    uri = f"sqlite:///{scratch_dir('penduel-abandoned-') / 'store.db'}"
+    folder = scratch_dir("penduel-abandoned-")
+    monkeypatch.chdir(folder)             # the store's artifacts (./mlruns) land here, not in the checkout
+    uri = f"sqlite:///{folder / 'store.db'}"
     with ExecutionLog(spec, uri) as live:
         client = MlflowClient(tracking_uri=uri)
         # A run left RUNNING by a process that no longer exists (as after SIGKILL), with one child.
