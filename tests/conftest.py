@@ -116,9 +116,11 @@ class _Server:
     def __init__(self, uri: str, cwd: pathlib.Path):
         self.port = free_port()
         self.base = f"http://127.0.0.1:{self.port}"
-        self.proc = subprocess.Popen([sys.executable, "-m", "pipeline.cli", "ui", "--tracking-uri", uri,
-                                      "--port", str(self.port)], cwd=cwd, stdout=subprocess.PIPE,
-                                     stderr=subprocess.STDOUT, start_new_session=True)
+        self.log = cwd / "server.log"        # a file, not a pipe: an unread pipe could fill and stall it
+        with open(self.log, "wb") as out:
+            self.proc = subprocess.Popen([sys.executable, "-m", "pipeline.cli", "ui", "--tracking-uri", uri,
+                                          "--port", str(self.port)], cwd=cwd, stdout=out,
+                                         stderr=subprocess.STDOUT, start_new_session=True)
 
     def wait_until_up(self, timeout: float = 120) -> str:
         deadline = time.monotonic() + timeout
@@ -131,7 +133,7 @@ class _Server:
                 pass
             if self.proc.poll() is not None or time.monotonic() > deadline:
                 self.stop()
-                raise AssertionError(f"tracking server did not come up: {self.proc.stdout.read().decode()[-2000:]}")
+                raise AssertionError(f"tracking server did not come up: {self.log.read_text()[-2000:]}")
             time.sleep(0.3)
 
     def stop(self) -> None:
@@ -146,7 +148,8 @@ class _Server:
 
 @pytest.fixture(scope="session")
 def store():
-    """Two executions in one store: {"cwd", "uri", "runs": [{run_id, report, html, stdout, stderr}, ...]}."""
+    """Two executions in one store (see store_configs):
+    {"cwd", "uri", "runs": [{run_id, report, html, stdout, stderr}, ...], "server"}."""
     cwd = scratch_dir("penduel-store-")
     runs = []
     for name, config in store_configs().items():
@@ -164,7 +167,6 @@ def store():
     finally:
         if found["server"] is not None:
             found["server"].stop()
-            found["server"].proc.stdout.close()
 
 
 @pytest.fixture(scope="session")
