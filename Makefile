@@ -19,11 +19,11 @@ $(STAMP): pyproject.toml
 run: $(STAMP)  ## run the demo experiment (or CONFIG=...)
 	$(BIN)/penduel run $(CONFIG)
 
-test: $(STAMP)  ## the test suite (slow checks excluded)
-	$(BIN)/python -m pytest -q
+test: $(STAMP)  ## the test suite (slow checks excluded; prints the 10 slowest)
+	$(BIN)/python -m pytest -q --durations=10
 
 test-all: $(STAMP)  ## every test, slow ones included
-	$(BIN)/python -m pytest -q -m ""
+	$(BIN)/python -m pytest -q -m "" --durations=10
 
 test-browser: $(STAMP)  ## the demo report loaded in headless Chromium (about a minute)
 	$(BIN)/python -m pytest -q -m slow tests/test_browser.py

@@ -130,8 +130,7 @@ import re  # noqa: E402
 import pandas as pd  # noqa: E402
 import pytest  # noqa: E402
 
-from .conftest import ROOT  # noqa: E402
-from .test_tracking_store import penduel, scratch_dir, store  # noqa: E402,F401
+from .conftest import ROOT, penduel, scratch_dir  # noqa: E402
 
 SCREENSHOTS = ROOT / "reports" / "screenshots"
 HOSTILE = "<script>window.__pwned = 1</script>"
@@ -179,7 +178,7 @@ def assert_clean(found: dict) -> None:
 
 
 @needs_chromium
-def test_execution_and_comparison_reports_load_clean(store):  # noqa: F811
+def test_execution_and_comparison_reports_load_clean(store):
     report = store["runs"][0]["report"]
     if not report.is_file():     # another test re-rendered into a fresh folder
         penduel(["report", store["runs"][0]["run_id"], "--tracking-uri", store["uri"]], store["cwd"])

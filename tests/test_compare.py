@@ -12,7 +12,7 @@ from hypothesis import strategies as st
 from pipeline.compare import MISSING, config_differences, flatten, loss_tables
 from pipeline.tracking import open_store
 
-from .test_tracking_store import penduel, store  # noqa: F401  (shared two-execution store)
+from .conftest import penduel
 
 # ------------------------------------------------------------------ config differences (pure)
 leaves = st.one_of(st.integers(-3, 3), st.booleans(), st.none(), st.text(max_size=3), st.floats(allow_nan=False))
@@ -77,7 +77,7 @@ def test_best_row_follows_the_direction_of_the_metric():
 
 
 # ------------------------------------------------------------------ from the store
-def test_compare_last_two_shows_both_executions_and_their_config_difference(store):  # noqa: F811
+def test_compare_last_two_shows_both_executions_and_their_config_difference(store):
     cwd = store["cwd"]
     shutil.rmtree(cwd / "reports", ignore_errors=True)         # compare reads the store, not local reports
     code, out, err = penduel(["compare", "--last", "2", "--tracking-uri", store["uri"]], cwd)
@@ -107,14 +107,14 @@ def test_compare_last_two_shows_both_executions_and_their_config_difference(stor
             assert f"{child.data.metrics['test_rmse']:.4g} [{child.data.metrics['test_rmse_low']:.4g}, " in page
 
 
-def test_compare_selected_runs_keeps_their_order(store):  # noqa: F811
+def test_compare_selected_runs_keeps_their_order(store):
     first, second = (r["run_id"] for r in store["runs"])
     code, out, err = penduel(["compare", "--runs", first, second, "--tracking-uri", store["uri"]], store["cwd"])
     assert code == 0, err
     assert out.splitlines()[:2] == [f"E1: {first}  tiny-bands", f"E2: {second}  tiny-bands"]
 
 
-def test_compare_mistakes_exit_2(store):  # noqa: F811
+def test_compare_mistakes_exit_2(store):
     client = open_store(store["uri"])
     parent = client.get_run(store["runs"][0]["run_id"])
     child = client.search_runs([parent.info.experiment_id],

@@ -11,7 +11,7 @@ from mlflow.tracking import MlflowClient
 from pipeline.config import load_config
 from pipeline.tracking import ExecutionLog, LockRetrying, mark_abandoned_runs
 
-from .conftest import CONFIGS
+from .conftest import CONFIGS, scratch_dir
 
 
 class _Flaky:
@@ -47,9 +47,11 @@ def _dead_pid() -> int:
     return int(done.stdout)
 
 
-def test_abandoned_running_runs_are_marked_killed_live_ones_kept(tmp_path):
+def test_abandoned_running_runs_are_marked_killed_live_ones_kept(monkeypatch):
     spec, _ = load_config(CONFIGS / "tiny.yaml")
-    uri = f"sqlite:///{tmp_path / 'store.db'}"
+    folder = scratch_dir("penduel-abandoned-")
+    monkeypatch.chdir(folder)             # the store's artifacts (./mlruns) land here, not in the checkout
+    uri = f"sqlite:///{folder / 'store.db'}"
     with ExecutionLog(spec, uri) as live:
         client = MlflowClient(tracking_uri=uri)
         # A run left RUNNING by a process that no longer exists (as after SIGKILL), with one child.
@@ -67,14 +69,18 @@ def test_abandoned_running_runs_are_marked_killed_live_ones_kept(tmp_path):
 
 
 @pytest.mark.parametrize("n_runs", [2])
-def test_concurrent_executions_share_one_new_store(tmp_path, n_runs):
+def test_concurrent_executions_share_one_new_store(n_runs):
+    tmp_path = scratch_dir("penduel-concurrent-")       # tmpfs: the store's fsyncs do not decide the time
     store = tmp_path / "shared.db"
+    # tiny.yaml with 4 resamples: the stability logging stays, fewer fits keep the writers' phases close.
+    config = tmp_path / "tiny.yaml"
+    config.write_text((CONFIGS / "tiny.yaml").read_text() + "stability: {n_resamples: 4}\n")
     env = dict(os.environ, PYTHONWARNINGS="ignore")
     procs = []
     for i in range(n_runs):
         cwd = tmp_path / f"w{i}"
         cwd.mkdir()
-        procs.append(subprocess.Popen([sys.executable, "-m", "pipeline.cli", "run", str(CONFIGS / "tiny.yaml"),
+        procs.append(subprocess.Popen([sys.executable, "-m", "pipeline.cli", "run", str(config),
                                        "--quiet", "--tracking-uri", f"sqlite:///{store}"], cwd=cwd, env=env,
                                       stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True))
     outputs = [p.communicate(timeout=600) for p in procs]
@@ -94,5 +100,5 @@ def test_concurrent_executions_share_one_new_store(tmp_path, n_runs):
 
 
 @pytest.mark.slow
-def test_four_concurrent_executions(tmp_path):
-    test_concurrent_executions_share_one_new_store(tmp_path, 4)
+def test_four_concurrent_executions():
+    test_concurrent_executions_share_one_new_store(4)

@@ -40,18 +40,23 @@ def spec_with(path, tmp_path, **sections):
     return spec.model_copy(update=update), base
 
 
-def test_rerun_gives_identical_numbers(tmp_path):
-    spec, base = spec_with(CONFIGS / "tiny.yaml", tmp_path)
-    first = result_numbers(run_experiment(spec, base, progress=False))
+@pytest.fixture(scope="module")
+def tiny_reference(tmp_path_factory):
+    """One uncached run of tiny.yaml, the reference of both tests below."""
+    spec, base = spec_with(CONFIGS / "tiny.yaml", tmp_path_factory.mktemp("determinism"))
+    return spec, base, result_numbers(run_experiment(spec, base, progress=False))
+
+
+def test_rerun_gives_identical_numbers(tiny_reference):
+    spec, base, first = tiny_reference
     second = result_numbers(run_experiment(spec, base, progress=False))
     assert len(first) > 20
     assert differing(first, second) == []
 
 
-def test_a_different_seed_changes_the_numbers(tmp_path):
+def test_a_different_seed_changes_the_numbers(tiny_reference):
     # Guards the comparison itself: it must be able to see a difference.
-    spec, base = spec_with(CONFIGS / "tiny.yaml", tmp_path)
-    first = result_numbers(run_experiment(spec, base, progress=False))
+    spec, base, first = tiny_reference
     other = result_numbers(run_experiment(spec.model_copy(update={"seed": spec.seed + 1}), base, progress=False))
     assert len(differing(first, other)) > 10
 

@@ -16,8 +16,7 @@ import pytest
 
 from pipeline.tracking import open_store
 
-from .test_tracking_store import _without_written_time, penduel, scratch_dir
-from .test_ui import free_port
+from .conftest import CONFIGS, free_port, penduel, scratch_dir, without_written_time
 
 pytest.importorskip("psycopg", reason="psycopg (psycopg[binary]) is not installed; postgresql:// stores need it")
 
@@ -59,8 +58,6 @@ def postgres_uri():
 
 
 def test_execution_logged_to_postgres_reads_back(postgres_uri):
-    from .conftest import CONFIGS
-
     cwd = scratch_dir("penduel-pg-run-")
     (cwd / "tiny.yaml").write_text((CONFIGS / "tiny.yaml").read_text() + "stability: {n_resamples: 4}\n"
                                    "tracking: {experiment_name: team-store-check}\n")
@@ -83,4 +80,4 @@ def test_execution_logged_to_postgres_reads_back(postgres_uri):
                               postgres_uri], cwd)
     assert code == 0, err
     again = pathlib.Path(re.search(r"report: (\S+)", out).group(1)).read_text(encoding="utf-8")
-    assert _without_written_time(again) == _without_written_time(original)
+    assert without_written_time(again) == without_written_time(original)

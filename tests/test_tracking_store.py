@@ -1,86 +1,28 @@
 """What an execution leaves in the tracking store, and reports rendered again from the store alone.
 
-`two_executions()` (two runs of the tiny scenario with different configs in one store) is shared with
-test_compare.py, test_ui.py and test_browser.py, so the suite pays for the two runs once.
+The executions come from the session's `store` fixture (tests/conftest.py), shared with the end-to-end,
+compare, tracking-server and browser tests, so the suite pays for them once.
 """
 from __future__ import annotations
 
-import atexit
-import contextlib
-import functools
-import io
-import os
 import pathlib
 import re
 import shutil
-import tempfile
 
 import pandas as pd
 import pytest
-import yaml
 
-from pipeline.cli import main
 from pipeline.tracking import open_store, read_payload
 
-from .conftest import CONFIGS
+# Re-exported for modules that import the helpers from here.
+from .conftest import penduel, scratch_dir, without_written_time  # noqa: F401
 
-
-def scratch_dir(prefix: str) -> pathlib.Path:
-    """A folder on tmpfs when there is one: an mlflow SQLite store on disk pays for every fsync."""
-    base = "/dev/shm" if os.path.isdir("/dev/shm") and os.access("/dev/shm", os.W_OK) else None
-    path = pathlib.Path(tempfile.mkdtemp(prefix=prefix, dir=base))
-    atexit.register(shutil.rmtree, path, True)
-    return path
-
-
-def penduel(args, cwd) -> tuple[int, str, str]:
-    """The command line in this process (imports are paid once per test session). mlflow keeps one
-    store per URI string in a process, so a run gets its folder's store by absolute path."""
-    args = [str(a) for a in args]
-    if args[0] == "run" and "--tracking-uri" not in args:
-        args += ["--tracking-uri", f"sqlite:///{pathlib.Path(cwd).resolve() / 'mlflow.db'}"]
-    out, err = io.StringIO(), io.StringIO()
-    old = os.getcwd()
-    os.chdir(cwd)
-    try:
-        with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
-            code = main(args)
-    finally:
-        os.chdir(old)
-    return code, out.getvalue(), err.getvalue()
-
-
-@functools.lru_cache(maxsize=None)
-def two_executions() -> dict:
-    """E1: tests/configs/tiny.yaml; E2: the same data with 4 folds, the one-SE rule and a Huber loss."""
-    cwd = scratch_dir("penduel-store-")
-    base = yaml.safe_load((CONFIGS / "tiny.yaml").read_text())
-    base["stability"] = {"n_resamples": 10}
-    (cwd / "first.yaml").write_text(yaml.safe_dump(base))
-    second = dict(base, losses=["squared", "huber"], selection={"cv_folds": 4, "rule": "one_se"})
-    (cwd / "second.yaml").write_text(yaml.safe_dump(second))
-    runs = []
-    for name in ("first.yaml", "second.yaml"):
-        code, out, err = penduel(["run", name, "--quiet"], cwd)
-        assert code == 0, err
-        runs.append({"run_id": re.search(r"run id: ([0-9a-f]{32})", out).group(1),
-                     "report": pathlib.Path(re.search(r"report: (\S+)", out).group(1))})
-        runs[-1]["html"] = runs[-1]["report"].read_text(encoding="utf-8")
-    return {"cwd": cwd, "uri": f"sqlite:///{cwd / 'mlflow.db'}", "runs": runs}
-
-
-@pytest.fixture(scope="module")
-def store():
-    return two_executions()
-
-
-def _without_written_time(html: str) -> str:
-    return re.sub(r"<dt>Written</dt><dd>[^<]*</dd>", "", html)
+_without_written_time = without_written_time
 
 
 def test_report_latest_reproduces_the_original_report_from_the_store_alone(store):
     cwd, last = store["cwd"], store["runs"][-1]
-    shutil.rmtree(cwd / "reports")                      # nothing local is left to copy from
+    shutil.rmtree(cwd / "reports", ignore_errors=True)  # nothing local is left to copy from
     code, out, err = penduel(["report", "--latest", "--tracking-uri", store["uri"]], cwd)
     assert code == 0, err
     assert f"run id: {last['run_id']}" in out
