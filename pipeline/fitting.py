@@ -37,6 +37,7 @@ class FitTask:
     train_idx: np.ndarray
     eval_idx: np.ndarray
     lambdas: np.ndarray
+    selection_only: bool = False   # a resample fit read only for its support and signs (Family.fit_path option)
 
     @property
     def task_id(self) -> str:
@@ -92,7 +93,10 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
     t_tr, t_ev = (y_tr - center) / scale, (y_ev - center) / scale
     family = get_family(task.family)
     start = time.perf_counter()
-    fit = family.fit_path(Z_tr, t_tr, loss, task.lambdas, shared.family_options[task.family])
+    options = shared.family_options[task.family]
+    if task.selection_only:
+        options = {**options, "selection_only": True}
+    fit = family.fit_path(Z_tr, t_tr, loss, task.lambdas, options)
     f_ev = family.predict(fit, Z_ev)
     coef, intercept = fit.coef, fit.intercept
     seconds = time.perf_counter() - start

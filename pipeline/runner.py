@@ -18,7 +18,7 @@ from .features import output_width
 from .fitting import FitOutcome, FitTask, Shared, build_features, run_fit, target_scaling
 from .losses import get_loss
 from .models.families import FAMILIES, get_family
-from .selection import choose_lambda_index, cv_summary, make_folds, nested_estimate, nested_splits
+from .selection import L2_CRITERIA, choose_lambda_index, cv_summary, make_folds, nested_estimate, nested_splits
 from .stability import resample_splits, stability_losses, stability_stage
 
 
@@ -156,20 +156,21 @@ def plan_tasks(spec: ExperimentSpec, shared: Shared, train_rows, test_rows, spli
     resampled = stability_losses(spec)
     losses = [get_loss(ls.name, **ls.params()) for ls in spec.losses]
     for loss_spec, grids in zip(spec.losses, family_grids(spec, shared, train_rows, losses)):
-        these = splits + (resamples if loss_spec.label in resampled else [])
         for family, grid in grids.items():
             common = dict(family=family, loss_name=loss_spec.name, loss_params=tuple(sorted(loss_spec.params().items())),
                           loss_label=loss_spec.label, lambdas=grid)
-            tasks += [FitTask(split=name, train_idx=tr, eval_idx=ev, **common) for name, tr, ev in these]
+            tasks += [FitTask(split=name, train_idx=tr, eval_idx=ev, **common) for name, tr, ev in splits]
+            if loss_spec.label in resampled:   # read for selection: support and signs certified, not 1e-12 gaps
+                tasks += [FitTask(split=name, train_idx=tr, eval_idx=ev, selection_only=True, **common)
+                          for name, tr, ev in resamples]
     return tasks
 
 
-def _choose(spec, cv_errors, final) -> tuple[int, str]:
-    crit = spec.selection.l2_criterion
+def _choose(spec, cv_errors, final, n_rows: int) -> tuple[int, str]:
+    crit = L2_CRITERIA[spec.selection.l2_criterion]
     # only a path with exact leave-one-out values (ridge-type, squared loss) can use loo / gcv
-    if crit != "cv" and final.loo_error is not None:
-        values = final.loo_error if crit == "loo" else final.gcv
-        return int(np.nanargmin(values)), crit
+    if crit.values is not None and final.loo_error is not None:
+        return int(np.nanargmin(crit.values(final, n_rows))), crit.name
     return choose_lambda_index(cv_errors, spec.selection.rule), f"{spec.selection.cv_folds}-fold CV, {spec.selection.rule}"
 
 
@@ -185,7 +186,7 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng) -> list[FamilyResult
         final_task, final = splits["final"]
         cv_errors = np.vstack([o.eval_loss for o in folds])
         cv_mean, cv_se = cv_summary(cv_errors)
-        idx, how = _choose(spec, cv_errors, final)
+        idx, how = _choose(spec, cv_errors, final, len(final_task.train_idx))
         loss = get_loss(final_task.loss_name, **dict(final_task.loss_params))
         pred = final.eval_pred[idx]
         metrics, intervals = test_metrics(shared.task, y_test, pred, loss, rng)

@@ -98,12 +98,49 @@ RULE_TABLE: dict[str, Rule] = {r.name: r for r in (
 )}
 RULES = tuple(RULE_TABLE)
 
-# How the ridge-type family may pick λ for the squared loss (other losses always use K-fold CV).
-L2_CRITERIA: dict[str, str] = {
-    "cv": "K-fold CV with the selection rule",
-    "loo": "exact leave-one-out error of the closed form",
-    "gcv": "generalised cross-validation",
-}
+def _loo_values(final, n_rows: int):
+    return final.loo_error
+
+
+def _gcv_values(final, n_rows: int):
+    return final.gcv
+
+
+def _gcv_classical_values(final, n_rows: int):
+    # final.gcv = mean(r²)/(1 − (df + 1)/n)², the intercept counted in the trace; the classical
+    # mean(r²)/(1 − df/n)² is the same residual over the other denominator (the pipeline always fits
+    # the intercept of the ridge-type family)
+    from .models.ridge.closed_form import classical_gcv_from_intercept_gcv
+
+    return classical_gcv_from_intercept_gcv(final.gcv, final.effective_df, n_rows)
+
+
+@dataclass(frozen=True)
+class L2Criterion:
+    """How the ridge-type family may pick λ for the squared loss. `values(final outcome, n training rows)`
+    gives the (L,) values whose least is chosen; None means K-fold CV with the selection rule."""
+
+    name: str
+    description: str
+    values: Callable | None
+
+
+# Other losses always use K-fold CV. Both GCV choices have the same residual mean(r²) of the fit on all
+# training rows (r = y − ŷ, intercept fitted, never penalised) and differ in the trace counted:
+#   gcv           mean(r²)/(1 − (df + 1)/n)²: the trace of the whole hat matrix, intercept included
+#                 (Golub, Heath & Wahba 1979, Technometrics 21(2), eq. (1.4) with A(λ) the full
+#                 smoother of the centred problem plus the mean);
+#   gcv_classical mean(r²)/(1 − df/n)², df = tr of the ridge smoother of the centred columns, intercept
+#                 excluded: Golub, Heath & Wahba's V(λ) as the R package MASS computes it in lm.ridge
+#                 returns RSS/(n − df)², this divided by n: the same minimiser). On small n the two differ.
+L2_CRITERIA: dict[str, L2Criterion] = {c.name: c for c in (
+    L2Criterion("cv", "K-fold CV with the selection rule", None),
+    L2Criterion("loo", "exact leave-one-out error of the closed form", _loo_values),
+    L2Criterion("gcv", "generalised cross-validation, intercept counted in the trace: mean(r²)/(1 − (df+1)/n)²",
+                _gcv_values),
+    L2Criterion("gcv_classical", "generalised cross-validation as Golub, Heath & Wahba (1979) and MASS "
+                                 "lm.ridge: RSS/(n − df)², df without the intercept", _gcv_classical_values),
+)}
 
 
 def choose_lambda_index(cv_errors: np.ndarray, rule: str = "min") -> int:

@@ -138,7 +138,8 @@ def test_nested_cv_keeps_outer_test_rows_out_of_selection():
 def test_rule_and_criterion_tables_name_what_config_allows():
     assert RULES == ("min", "one_se") and set(RULE_TABLE) == set(RULES)
     assert all(rule.description for rule in RULE_TABLE.values())
-    assert tuple(L2_CRITERIA) == ("cv", "loo", "gcv")
+    assert tuple(L2_CRITERIA) == ("cv", "loo", "gcv", "gcv_classical")
+    assert all(c.description for c in L2_CRITERIA.values())
 
 
 @settings(max_examples=150, deadline=None)

@@ -87,7 +87,8 @@ class SelectionSpec(Settings):
                                                               "within one standard error of it.")
     l2_criterion: Literal[tuple(L2_CRITERIA)] = Field(
         "cv", description="How the ridge-type family picks λ for the squared loss: K-fold CV, exact "
-                          "leave-one-out or generalised CV (other losses always use K-fold CV).")
+                          "leave-one-out, generalised CV with the intercept in the trace (gcv) or as Golub, "
+                          "Heath & Wahba 1979 (gcv_classical); other losses always use K-fold CV.")
     nested: bool = Field(False, description="Also estimate the error of the whole select-then-fit procedure "
                                             "by nested CV (outer folds = cv_folds); costs cv_folds times more.")
 

@@ -181,7 +181,7 @@ class _SparseL1Base(BaseEstimator):
             gaps.append(fit.certificate[-1])
             lams.append(lam)
         self.lam_ = np.array(lams)
-        self.certificate_ = np.array(gaps)   # relative duality gap of each final fit
+        self.certificate_ = np.array(gaps)   # duality gap over max(|objective|, intercept-only objective)
         return np.array(coefs), np.array(intercepts)
 
 

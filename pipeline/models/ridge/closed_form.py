@@ -4,7 +4,9 @@ Objective (1/n) Σ ½(yᵢ − fᵢ)² + (λ/2) cᵀKc. With K̃ = UDUᵀ and a 
     c(λ) = U diag(1/(d + nλ)) a,   fitted = ȳ + U diag(d/(d + nλ)) a,
     residual = y − fitted = nλ c,  hat diagonal Sᵢᵢ = 1/n + Σⱼ Uᵢⱼ² dⱼ/(dⱼ + nλ).
 Leave-one-out residuals are rᵢ/(1 − Sᵢᵢ) and GCV = mean(r²)/(1 − tr S/n)²
-(Golub, Heath & Wahba 1979, Technometrics 21(2)), at O(n²) per λ.
+(Golub, Heath & Wahba 1979, Technometrics 21(2)), at O(n²) per λ. Here S includes the mean, so
+tr S = df + 1 with an intercept. The classical choice (`classical_gcv`: GHW's V(λ) on the centred
+problem, as MASS lm.ridge computes it; `classical_gcv_from_intercept_gcv`) counts df alone: mean(r²)/(1 − df/n)².
 """
 from __future__ import annotations
 
@@ -26,6 +28,16 @@ def loo_gcv_stats(resid: np.ndarray, hat_diag: np.ndarray, trace: np.ndarray, fi
     ok = np.isfinite(loo) & np.isfinite(gcv) & np.asarray(finite_coef)
     status = tuple("optimal" if good else "numerical trouble: 1 - S_ii = 0" for good in ok)
     return loo, gcv, ok, status
+
+
+def classical_gcv_from_intercept_gcv(gcv, df, n: int) -> np.ndarray:
+    """mean(r²)/(1 − df/n)² from the GCV with the intercept in the trace (both share mean(r²)).
+
+    MASS lm.ridge reports RSS/(n − df)², this divided by n (same minimiser).
+    """
+    df = np.asarray(df, float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.asarray(gcv, float) * ((1.0 - (df + 1.0) / n) / (1.0 - df / n)) ** 2
 
 
 def _finish(lambdas, C, intercept, df, resid, hat_diag, centred, start, psd_ratio=None):

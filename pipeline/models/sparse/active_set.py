@@ -157,3 +157,39 @@ def refine(X, y, coef, intercept, lam, alpha, loss: Loss, max_iter=300, add_per_
         signs = np.r_[signs, -np.sign(grad[add])]
     dual = loss.derivative(y, X @ coef + b0)
     return Refined(coef, b0, dual, X.T @ dual / n, False, it)
+
+
+def polish_zeros(X, y, ref: Refined, lam, alpha, loss: Loss, tol=1e-9, gram: GramCache | None = None,
+                 relative=1e-6) -> Refined:
+    """Exact zeros after refinement, decided by the optimality conditions.
+
+    At a knot of the path the entering (or leaving) coordinate is zero at the optimum, but the
+    orthant solve leaves it at rounding level (1e-13 .. 1e-11). Every coordinate at most `relative`
+    times the largest is dropped, the smooth problem is solved again on the remaining support, and
+    the result is kept only if no sign flips and every zero coordinate satisfies |grad_j| <= lam*alpha*(1 + tol)
+    (the KKT check); otherwise the refined fit is returned unchanged.
+    """
+    coef = ref.coef
+    nz = np.flatnonzero(coef)
+    if nz.size == 0 or not ref.ok:
+        return ref
+    tiny = np.abs(coef[nz]) <= relative * float(np.max(np.abs(coef[nz])))
+    if not tiny.any():
+        return ref
+    S = nz[~tiny]
+    signs = np.sign(coef[S])
+    if gram is not None:
+        target = gram.solve(S, signs, lam, alpha)
+    else:
+        target = orthant_newton(X[:, S], y, np.r_[ref.intercept, coef[S]], signs, lam, alpha, loss)
+    if np.any(np.sign(target[1:]) != signs):
+        return ref
+    out = np.zeros_like(coef)
+    out[S] = target[1:]
+    dual = loss.derivative(y, X @ out + target[0])
+    grad = X.T @ dual / X.shape[0]
+    off = np.ones(coef.size, bool)
+    off[S] = False
+    if np.any(np.abs(grad[off]) > lam * alpha * (1 + tol)):
+        return ref
+    return Refined(out, float(target[0]), dual, grad, True, ref.iterations + 1)

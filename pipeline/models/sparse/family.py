@@ -7,8 +7,9 @@ from pipeline.models.interface import Family, PathFit
 from pipeline.models.sparse.dual import lambda_max
 from pipeline.models.sparse.path import degrees_of_freedom, fit_l1_path, lambda_grid, predict_path
 
-# options the path fit takes; the config section's other fields shape the grid
-_FIT_OPTIONS = ("tol", "solver", "alpha")
+# options the path fit takes; the config section's other fields shape the grid. "selection_only" is set
+# by the fit task for fits read only for their support and signs (stability resamples)
+_FIT_OPTIONS = ("tol", "solver", "alpha", "selection_only")
 
 
 class SparseFamily(Family):
