@@ -5,10 +5,9 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from sklearn.linear_model import Lasso, lasso_path
+from sklearn.linear_model import Lasso
 
 from pipeline.stability import held_out_rows, in_fit_mask, resample_indices
-from pipeline.stability.engine import resample_fits
 
 
 @given(st.integers(4, 200), st.sampled_from([0.3, 0.5, 0.8]), st.integers(0, 1000))
@@ -75,12 +74,18 @@ def test_in_fit_mask_and_held_out_rows():
     np.testing.assert_array_equal(held_out_rows(4, np.array([1, 1, 3])), [0, 2])
 
 
-def _lasso_fit(X, y):
-    """Lasso path at two λ values; scikit-learn's alpha equals the project's λ (both (1/2n)‖·‖²)."""
-    Xc, yc = X - X.mean(axis=0), y - y.mean()
-    alphas, coefs, _ = lasso_path(Xc, yc, alphas=np.array([0.5, 0.05]))
-    coef = coefs.T
-    return coef, y.mean() - coef @ X.mean(axis=0)
+def _resample_tasks(X, y, resamples, lambdas, selection_only=True):
+    """The pipeline's resample fit tasks (as runner.plan_tasks makes them) on an identity feature map."""
+    from pipeline.features.basic import IdentityMap
+    from pipeline.fitting import FitTask, Shared
+
+    options = {"tol": 1e-7, "solver": "auto", "alpha": 1.0, "n_lambdas": len(lambdas), "lambda_ratio": 0.1}
+    shared = Shared(X=X, y=y, task="regression", feature_maps=(IdentityMap(kind="identity"),), feature_seed=0,
+                    input_names=tuple(f"x{j}" for j in range(X.shape[1])), family_options={"l1": options})
+    tasks = [FitTask(split=f"resample{m}", family="l1", loss_name="squared", loss_params=(), loss_label="squared",
+                     train_idx=rows, eval_idx=np.setdiff1d(np.arange(len(y)), rows), lambdas=np.asarray(lambdas),
+                     selection_only=selection_only) for m, rows in enumerate(resamples)]
+    return shared, tasks
 
 
 def _problem():
@@ -90,27 +95,57 @@ def _problem():
     return X, y
 
 
-def test_resample_fits_match_direct_fits_and_hide_in_fit_rows():
+def test_resample_fit_tasks_match_direct_fits():
+    from pipeline.execution import run_tasks
+    from pipeline.fitting import run_fit
+
     X, y = _problem()
     resamples = resample_indices(40, "subsample", 4, rng=3)
-    out = resample_fits(_lasso_fit, X, y, resamples)
-    assert out.coefs.shape == (4, 2, 6) and out.predictions.shape == (4, 2, 40)
-    for m, rows in enumerate(resamples):
-        # reference: scikit-learn Lasso(alpha=λ) with an unpenalised intercept, the project's objective
-        ref = Lasso(alpha=0.05, tol=1e-10, max_iter=100_000).fit(X[rows], y[rows])
-        np.testing.assert_allclose(out.coefs[m, 1], ref.coef_, atol=1e-4)
+    shared, tasks = _resample_tasks(X, y, resamples, [0.5, 0.05])
+    out = run_tasks(run_fit, tasks, shared=shared)
+    for o, rows in zip(out, resamples):
+        assert o.coef.shape == (2, 6) and o.certificate_kind == "kkt_violation" and o.converged.all()
+        # reference: scikit-learn Lasso(alpha=λ) on the task's scale (columns standardised on the resample's
+        # rows, target centred and divided by its sd; both minimise (1/2n)|t − Zw|² + λ|w|₁), mapped back
+        mean, sd = X[rows].mean(axis=0), X[rows].std(axis=0)
+        ybar, ysd = y[rows].mean(), y[rows].std()
+        ref = Lasso(alpha=0.05, tol=1e-12, max_iter=100_000).fit((X[rows] - mean) / sd, (y[rows] - ybar) / ysd)
+        np.testing.assert_allclose(o.coef[1], ref.coef_ * ysd / sd, atol=1e-6)
         held_out = np.setdiff1d(np.arange(40), rows)
-        np.testing.assert_allclose(out.predictions[m, 1, held_out], ref.predict(X[held_out]), atol=1e-3)
-        assert np.isnan(out.predictions[m, :, rows]).all()
+        np.testing.assert_allclose(o.eval_pred[1], ybar + ysd * ref.predict((X[held_out] - mean) / sd), atol=1e-5)
 
 
-def test_resample_fits_identical_across_backends():
+def test_resample_fit_tasks_identical_across_backends():
+    from pipeline.execution import run_tasks
+    from pipeline.fitting import run_fit
+
     X, y = _problem()
-    resamples = resample_indices(40, "complementary_pairs", 4, rng=4)
-    local = resample_fits(_lasso_fit, X, y, resamples)
-    processes = resample_fits(_lasso_fit, X, y, resamples, backend="processes", n_jobs=2)
-    for name in ("coefs", "intercepts", "predictions"):
-        assert getattr(local, name).tobytes() == getattr(processes, name).tobytes(), name
+    shared, tasks = _resample_tasks(X, y, resample_indices(40, "complementary_pairs", 4, rng=4), [0.5, 0.1, 0.05])
+    local = run_tasks(run_fit, tasks, shared=shared)
+    processes = run_tasks(run_fit, tasks, backend="processes", n_jobs=2, shared=shared)
+    for a, b in zip(local, processes):
+        for name in ("coef", "intercept", "eval_pred", "certificate"):
+            assert getattr(a, name).tobytes() == getattr(b, name).tobytes(), name
+
+
+def test_selection_only_probabilities_equal_exact_fits_on_the_benchmark_problem():
+    # the problem of benchmarks/bench_stability.py (n = 400, p = 4000, 30 λ down to 5 % of λ_max), 12 subsamples
+    from benchmarks.bench_stability import problem, stage_tasks
+    from pipeline.execution import run_tasks
+    from pipeline.fitting import run_fit
+    from pipeline.stability import selection_probabilities
+
+    X, y = problem()
+    shared, fast, _, _ = stage_tasks(X, y, seed=2, m=12)
+    _, exact, _, _ = stage_tasks(X, y, seed=2, m=12, selection_only=False)
+    a, b = run_tasks(run_fit, fast, shared=shared), run_tasks(run_fit, exact, shared=shared)
+    assert all(o.certificate_kind == "kkt_violation" and o.converged.all() for o in a)
+    assert all(o.certificate_kind == "duality_gap" and o.converged.all() for o in b)
+    for o, e in zip(a, b):
+        np.testing.assert_array_equal(np.sign(o.coef), np.sign(e.coef))     # supports and signs
+    pa = selection_probabilities(np.stack([o.coef for o in a]))
+    pb = selection_probabilities(np.stack([o.coef for o in b]))
+    np.testing.assert_array_equal(pa, pb)
 
 
 def test_scheme_table_properties_hold_for_the_draws():
@@ -127,3 +162,20 @@ def test_scheme_table_properties_hold_for_the_draws():
         if scheme.paired:
             for first, second in zip(draws[::2], draws[1::2]):
                 assert not np.isin(first, second).any()
+
+
+def test_a_run_fits_its_sparse_resamples_for_selection_only(store):
+    # the session's `penduel run` of tests/configs/tiny.yaml with 10 resamples: the runner gives resample fit
+    # tasks the sparse family's selection-only mode (certificate: the KKT violation on every column); the CV
+    # and final fits keep the duality gap. Read back from the run's cache of finished fit tasks.
+    from pipeline.cache import TaskCache
+    from pipeline.fitting import FitOutcome
+
+    cache_dir = store["cwd"] / ".penduel-cache"
+    cache = TaskCache(cache_dir, FitOutcome)
+    sparse = [o for o in (cache.get(p.stem) for p in cache_dir.rglob("*.npz")) if o.family == "l1"]
+    resampled = [o for o in sparse if o.split.startswith("resample")]
+    assert len(resampled) >= 10 and len(sparse) > len(resampled)
+    for o in sparse:
+        expected = "kkt_violation" if o.split.startswith("resample") else "duality_gap"
+        assert o.certificate_kind == expected and o.converged.all(), (o.split, o.certificate_kind)

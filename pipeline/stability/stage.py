@@ -1,6 +1,7 @@
 """The resampling stage: both families refitted on identical resamples of the training rows.
 
-Each resample is one more fit task per (loss, family), run and cached like the CV fits; its
+Each resample is one more fit task per (loss, family), run and cached like the CV fits, marked
+selection_only (the family may certify support and signs instead of a duality gap); its
 held-out rows are the test rows (never in any resample), so prediction instability is measured
 on rows no fit saw. The summary reads the fits at each family's chosen λ.
 """

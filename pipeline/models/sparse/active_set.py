@@ -114,10 +114,13 @@ class GramCache:
 
 
 def refine(X, y, coef, intercept, lam, alpha, loss: Loss, max_iter=300, add_per_round=10,
-           tol=1e-9, gram: GramCache | None = None) -> Refined:
+           tol=1e-9, gram: GramCache | None = None, candidates=None) -> Refined:
     """Active-set refinement over the columns of X, starting from (coef, intercept).
 
-    Needs a smooth loss. ok is False if the support did not settle within max_iter.
+    Needs a smooth loss. ok is False if the support did not settle within max_iter. With
+    `candidates` (e.g. the strong-rule set) violators are first sought among them only, and the
+    optimality conditions over every column are checked once they hold there; a violator found
+    outside joins the candidates: the same conditions are checked, with fewer products with all of X.
     """
     n, k = X.shape
     coef = np.asarray(coef, float).copy()
@@ -125,6 +128,7 @@ def refine(X, y, coef, intercept, lam, alpha, loss: Loss, max_iter=300, add_per_
     signs = np.sign(coef[S])
     b0 = float(intercept)
     l1 = lam * alpha
+    C = None if candidates is None else np.union1d(np.asarray(candidates, int), S)
     it = 0
     for it in range(1, max_iter + 1):
         theta0 = np.r_[b0, coef[S]]
@@ -145,13 +149,24 @@ def refine(X, y, coef, intercept, lam, alpha, loss: Loss, max_iter=300, add_per_
             S, signs = np.delete(S, leave), np.delete(signs, leave)
             continue
         coef[S], b0 = target[1:], float(target[0])
-        dual = loss.derivative(y, X @ coef + b0)
-        grad = X.T @ dual / n
-        excess = np.abs(grad) - l1 * (1 + tol)
-        excess[S] = -np.inf
+        dual = loss.derivative(y, X[:, S] @ coef[S] + b0)   # only the support: p can be far above |S|
+        full = C is None
+        if not full:
+            grad = np.zeros(k)
+            grad[C] = X[:, C].T @ dual / n
+            excess = np.full(k, -np.inf)
+            excess[C] = np.abs(grad[C]) - l1 * (1 + tol)
+            excess[S] = -np.inf
+            full = not np.any(excess > 0)    # settled on the candidates: check every column
+        if full:
+            grad = X.T @ dual / n
+            excess = np.abs(grad) - l1 * (1 + tol)
+            excess[S] = -np.inf
         bad = np.flatnonzero(excess > 0)
         if bad.size == 0:
             return Refined(coef, b0, dual, grad, True, it)
+        if C is not None:
+            C = np.union1d(C, bad)
         add = bad[np.argsort(-excess[bad])[:max(add_per_round, S.size // 4)]]
         S = np.r_[S, add]
         signs = np.r_[signs, -np.sign(grad[add])]

@@ -17,7 +17,7 @@ import time
 from dataclasses import dataclass, field
 
 import numpy as np
-from threadpoolctl import threadpool_limits
+from threadpoolctl import ThreadpoolController
 
 from pipeline.losses import get_loss
 from pipeline.models.sparse import certificate as cert
@@ -27,6 +27,7 @@ from pipeline.models.sparse.dual import intercept_only_dual, lambda_max
 from pipeline.models.sparse.routing import AUTOMATIC, route as choose_route
 
 SCREENING = ("strong", "active")
+_THREADPOOLS: list = []   # one controller per process: building one scans the loaded libraries (~6 ms)
 
 
 @dataclass(frozen=True)
@@ -133,7 +134,7 @@ class PathFitter:
     def _continue(self, lam):
         """Active-set continuation from the previous lambda over every column."""
         ref = refine(self.X, self.y, self.coef, self.intercept, lam, self.alpha, self.loss,
-                     tol=self.tol * 1e-3, gram=self.gram)
+                     tol=self.tol * 1e-3, gram=self.gram, candidates=self.seed(lam))
         if not ref.ok:
             return None
         ref = polish_zeros(self.X, self.y, ref, lam, self.alpha, self.loss, tol=self.tol * 1e-3, gram=self.gram)
@@ -185,7 +186,9 @@ def fit_l1_path(X, y, loss, lambdas, *, alpha=1.0, tol=1e-7, solver="auto",
     """
     # one BLAS thread: the small dense solves here lose to threading overhead, and
     # parallelism comes from running many fits side by side (pipeline.execution)
-    with threadpool_limits(limits=1, user_api="blas"):
+    if not _THREADPOOLS:
+        _THREADPOOLS.append(ThreadpoolController())
+    with _THREADPOOLS[0].limit(limits=1, user_api="blas"):
         return _fit_path(X, y, loss, lambdas, alpha, tol, solver, max_working_set_rounds, screening,
                          selection_only)
 
