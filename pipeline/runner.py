@@ -170,7 +170,7 @@ def _choose(spec, cv_errors, final, n_rows: int) -> tuple[int, str]:
     crit = L2_CRITERIA[spec.selection.l2_criterion]
     # only a path with exact leave-one-out values (ridge-type, squared loss) can use loo / gcv
     if crit.values is not None and final.loo_error is not None:
-        return int(np.nanargmin(crit.values(final, n_rows))), crit.name
+        return int(np.nanargmin(crit.values(final, n_rows))), f"{crit.name} ({crit.description})"
     return choose_lambda_index(cv_errors, spec.selection.rule), f"{spec.selection.cv_folds}-fold CV, {spec.selection.rule}"
 
 

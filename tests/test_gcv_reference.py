@@ -87,4 +87,4 @@ def test_gcv_classical_chooses_lambda_in_a_run(tmp_path):
     done = run_cli(["run", "run.yaml"], cwd=tmp_path)
     assert done.returncode == 0, done.stderr[-2000:]
     html = "".join(p.read_text() for p in (tmp_path / "out").rglob("*.html"))
-    assert "gcv_classical" in html
+    assert "gcv_classical" in html and "RSS/(n − df)²" in html     # the report states the definition
