@@ -11,7 +11,8 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
 from matplotlib.lines import Line2D  # noqa: E402
-from matplotlib.patches import Rectangle  # noqa: E402
+from matplotlib.colors import ListedColormap  # noqa: E402
+from matplotlib.patches import Patch, Rectangle  # noqa: E402
 
 from ..models.families import FAMILIES, get_family  # noqa: E402
 from ..selection import RULE_TABLE, rule_choices  # noqa: E402
@@ -26,6 +27,15 @@ INK = "#222222"          # marks and annotations that belong to no family
 # Signed coefficients: ColorBrewer's purple–orange diverging scheme, marked colour-blind safe by its
 # authors (Harrower & Brewer 2003, colorbrewer2.org); white at zero.
 COEF_CMAP = "PuOr"
+LEVEL_STYLE = (0, (1, 2))   # dotted: the least CV error plus one standard error
+
+
+def coefficient_colours() -> ListedColormap:
+    """PuOr without its pale middle fifth: the smallest nonzero coefficient is tinted, so exact zeros
+    (drawn white) stand apart from small values."""
+    base = matplotlib.colormaps[COEF_CMAP]
+    return ListedColormap(np.vstack([base(np.linspace(0.0, 0.4, 128)), base(np.linspace(0.6, 1.0, 128))]),
+                          name="penduel_coefficients").with_extremes(bad="white")
 
 
 def encode_png(fig) -> str:
@@ -76,34 +86,39 @@ def _mark_models(ax, f, col, annotate: bool) -> None:
 
 def _key_handles() -> list:
     """Legend entries for the marks, drawn in ink so they read for every family."""
-    handles = [Line2D([], [], ls="none", marker="o", ms=7, color="0.55", mec=INK, mew=1.2, label="chosen model")]
+    handles = [Line2D([], [], ls="none", marker="o", ms=7, color="0.55", mec=INK, mew=1.2,
+                      label="chosen model (filled, dark rim)")]
     handles += [Line2D([], [], ls="none", marker=r.marker, ms=9, mfc="none", mec=INK, mew=1.2,
                        label=f"pick of {r.phrase}") for r in RULE_TABLE.values()]
     return handles
 
 
 def cv_curves(families, loss_label: str) -> str:
+    return encode_png(cv_figure(families, loss_label))
+
+
+def cv_figure(families, loss_label: str):
     """Per family: CV error against effective degrees of freedom with a ±1 SE band, the level one standard
-    error above the least error, the chosen model and every rule's pick marked."""
-    fig, axes = plt.subplots(1, len(families), figsize=(5.2 * len(families), 3.7), squeeze=False)
+    error above the least error, the chosen model and every rule's pick marked; one key below the panels."""
+    fig, axes = plt.subplots(1, len(families), figsize=(5.2 * len(families), 3.9), squeeze=False)
     for ax, f in zip(axes[0], families):
         col, fam = COLOURS[f["family"]], get_family(f["family"])
         df, mean, se = _arr(f["path_df"]), _arr(f["cv_mean"]), _arr(f["cv_se"])
-        ax.fill_between(df, mean - se, mean + se, color=col, alpha=0.18, lw=0, label="± 1 standard error")
-        ax.plot(df, mean, color=col, marker=MARKERS[f["family"]], ms=3, lw=1.4, label="mean CV loss")
-        picks = _picks(f)
-        if picks:
+        ax.fill_between(df, mean - se, mean + se, color=col, alpha=0.18, lw=0)
+        ax.plot(df, mean, color=col, marker=MARKERS[f["family"]], ms=3, lw=1.4)
+        if _picks(f):
             best = int(np.nanargmin(np.where(np.isfinite(mean), mean, np.nan)))
-            ax.axhline(mean[best] + se[best], color=INK, ls=(0, (1, 2)), lw=0.9, label="least error + 1 SE")
+            ax.axhline(mean[best] + se[best], color=INK, ls=LEVEL_STYLE, lw=0.9)
         _mark_models(ax, f, col, annotate=True)
         ax.set_xlabel(f"effective degrees of freedom ({fam.df_description})", fontsize=8.5)
         ax.set_ylabel("CV held-out loss", fontsize=8.5)
         ax.set_title(f"{f['title']} — {loss_label}", fontsize=10, loc="left")
         style_axes(ax)
-        ax.legend(handles=ax.get_legend_handles_labels()[0] + _key_handles(), fontsize=7, frameon=False,
-                  loc="upper right")
-    fig.tight_layout()
-    return encode_png(fig)
+    key = [Patch(color="0.6", alpha=0.35, label="mean CV loss ± 1 standard error"),
+           Line2D([], [], color=INK, ls=LEVEL_STYLE, lw=0.9, label="least error + 1 standard error")]
+    fig.legend(handles=key + _key_handles(), fontsize=7.5, frameon=False, loc="lower center", ncol=3)
+    fig.tight_layout(rect=(0, 0.13, 1, 1))
+    return fig
 
 
 def error_vs_df(families, loss_label: str) -> str:
@@ -131,19 +146,26 @@ def _tick_positions(n: int, most: int = 7) -> np.ndarray:
 
 
 def coefficient_path(f, top: int = 20) -> str:
+    return encode_png(coefficient_figure(f, top))
+
+
+def coefficient_figure(f, top: int = 20):
     """Coefficient map of the sparse family: one row per feature in order of entry (named on the left),
-    one column per path step from the simplest model; colour is the signed coefficient (diverging,
-    white at zero). The bottom axis reads effective degrees of freedom, the top one λ; the chosen
-    model's column is framed solid, another rule's pick dashed."""
+    one column per path step from the simplest model; colour is the signed coefficient, white exactly
+    zero, hatched grey a failed fit. The bottom axis reads effective degrees of freedom, the top one λ;
+    the chosen model's column is framed solid, another rule's pick dashed."""
     names, values = f["coef_path"]["names"], f["coef_path"]["values"]
     shown = min(top, len(names))
-    grid = np.ma.masked_invalid(np.array([_arr(v) for v in values[:shown]]))
+    grid = np.array([_arr(v) for v in values[:shown]])
     lambdas, df = _arr(f["lambdas"]), _arr(f["path_df"])
-    reach = float(np.nanmax(np.abs(grid))) if grid.count() else 1.0
-    cmap = matplotlib.colormaps[COEF_CMAP].with_extremes(bad="0.85")   # grey: a failed fit
+    finite = np.abs(grid[np.isfinite(grid)])
+    reach = float(finite.max()) if finite.size and finite.max() > 0 else 1.0
     fig, ax = plt.subplots(figsize=(7.2, 0.24 * shown + 1.9))
-    image = ax.imshow(grid, aspect="auto", cmap=cmap, vmin=-(reach or 1.0), vmax=reach or 1.0,
-                      interpolation="nearest")
+    failed = ~np.isfinite(grid)
+    if failed.any():
+        ax.imshow(np.where(failed, 1.0, np.nan), aspect="auto", cmap=ListedColormap(["0.8"]), interpolation="nearest")
+    image = ax.imshow(np.ma.masked_where(~np.isfinite(grid) | (grid == 0), grid), aspect="auto",
+                      cmap=coefficient_colours(), vmin=-reach, vmax=reach, interpolation="nearest")
     ax.set_yticks(range(shown), [n[:36] for n in names[:shown]], fontsize=7)
     ticks = _tick_positions(len(df))
     ax.set_xticks(ticks, [f"{df[i]:.3g}" for i in ticks], fontsize=7.5)
@@ -152,20 +174,20 @@ def coefficient_path(f, top: int = 20) -> str:
     top_axis.set_xticks(ticks, [f"{lambdas[i]:.2g}" for i in ticks], fontsize=7)
     top_axis.set_xlabel("λ", fontsize=8.5)
     k = f["chosen_index"]
-    ax.add_patch(Rectangle((k - 0.5, -0.5), 1, shown, fill=False, ec=INK, lw=1.8, label="chosen model"))
+    ax.add_patch(Rectangle((k - 0.5, -0.5), 1, shown, fill=False, ec=INK, lw=2.0))
+    frames = "solid frame: chosen model"
     for name, i in _picks(f).items():
         if i != k:
-            ax.add_patch(Rectangle((i - 0.5, -0.5), 1, shown, fill=False, ec=INK, lw=1.2, ls="--",
-                                   label=f"pick of {RULE_TABLE[name].phrase}"))
+            ax.add_patch(Rectangle((i - 0.5, -0.5), 1, shown, fill=False, ec=INK, lw=1.3, ls="--"))
+            frames += f"; dashed: pick of {RULE_TABLE[name].phrase}"
     bar = fig.colorbar(image, ax=ax, pad=0.02, fraction=0.05)
-    bar.set_label("coefficient (feature-map output scale)", fontsize=7.5)
+    bar.set_label("coefficient (feature-map output scale; white = 0)", fontsize=7.5)
     bar.ax.tick_params(labelsize=7)
     more = len(names) - shown
-    ax.set_title(f"Sparse coefficient map — {f['loss_label']}"
-                 + (f" ({more} later-entering features not shown)" if more else ""), fontsize=10, loc="left")
-    ax.legend(fontsize=7, frameon=False, loc="upper left", bbox_to_anchor=(0, -0.2 - 1.2 / (shown + 4)), ncol=2)
+    ax.set_title(f"Sparse coefficient map — {f['loss_label']}\n{frames}"
+                 + (f"; {more} later-entering features not shown" if more else ""), fontsize=9, loc="left")
     fig.tight_layout()
-    return encode_png(fig)
+    return fig
 
 
 def stability_paths(stab: dict, top: int = 12) -> str:
