@@ -96,7 +96,7 @@ class Rule:
 
 RULE_TABLE: dict[str, Rule] = {r.name: r for r in (
     Rule("least_error", "the λ of least mean CV error (the simplest one on ties)", _rule_least_error,
-         "least CV error", "D"),
+         "the least-CV-error rule", "D"),
     Rule("one_standard_error", "the simplest λ whose mean CV error is within one standard error of the least, "
          "the error bar being that of the least-error λ (ESL 2nd ed. §7.10)", _rule_one_standard_error,
          "the one-standard-error rule", "^"),

@@ -54,7 +54,7 @@ def style_axes(ax, grid_axis: str = "y") -> None:
     for side in ("top", "right"):
         ax.spines[side].set_visible(False)
     ax.grid(alpha=0.25, axis=grid_axis, lw=0.6)
-    ax.tick_params(labelsize=8)
+    ax.tick_params(labelsize=8, which="both")
 
 
 def _picks(f) -> dict:
