@@ -2,8 +2,6 @@
 chosen model and every selection rule's pick; the tracking store and report carry the new names."""
 from __future__ import annotations
 
-import json
-
 import matplotlib.pyplot as plt
 import numpy as np
 import pytest
@@ -12,7 +10,7 @@ from matplotlib.patches import Rectangle
 from pipeline.report import plots
 from pipeline.selection import RULE_TABLE, choose_lambda_index, cv_summary, rule_choices
 
-from .conftest import children_of
+from .conftest import children_of, stored_payload
 
 
 def test_rule_choices_agree_with_choosing_from_the_table():
@@ -30,9 +28,12 @@ def test_rule_choices_agree_with_choosing_from_the_table():
 
 
 @pytest.fixture(scope="module")
-def payload(store):
-    second = store["runs"][1]       # 4 folds, the one-standard-error rule, squared and huber
-    return json.loads((second["report"].parent / "report_data.json").read_text(encoding="utf-8"))
+def payload(store, tmp_path_factory):
+    """The second execution's report data (4 folds, the one-standard-error rule, squared and huber), read
+    from the tracking store: other tests may rewrite the report folder."""
+    from mlflow.tracking import MlflowClient
+
+    return stored_payload(MlflowClient(store["uri"]), store["runs"][1]["run_id"], tmp_path_factory.mktemp("data"))
 
 
 def _marks(ax):
