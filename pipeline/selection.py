@@ -72,11 +72,11 @@ def cv_summary(cv_errors: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return mean, se
 
 
-def _rule_min(mean: np.ndarray, se: np.ndarray, valid: np.ndarray, best: int) -> int:
+def _rule_least_error(mean: np.ndarray, se: np.ndarray, valid: np.ndarray, best: int) -> int:
     return best
 
 
-def _rule_one_se(mean: np.ndarray, se: np.ndarray, valid: np.ndarray, best: int) -> int:
+def _rule_one_standard_error(mean: np.ndarray, se: np.ndarray, valid: np.ndarray, best: int) -> int:
     within = valid & (mean <= mean[best] + se[best])
     return int(np.flatnonzero(within)[0])
 
@@ -84,17 +84,22 @@ def _rule_one_se(mean: np.ndarray, se: np.ndarray, valid: np.ndarray, best: int)
 @dataclass(frozen=True)
 class Rule:
     """A λ selection rule: `choose(mean, se, valid, best)` -> column index, where `best` is the
-    valid column of least mean CV error (the simplest one on ties)."""
+    valid column of least mean CV error (the simplest one on ties). `phrase` completes "the λ
+    chosen by ..." in the report; `marker` is the matplotlib marker of its pick in the figures."""
 
     name: str
     description: str
     choose: Callable[[np.ndarray, np.ndarray, np.ndarray, int], int]
+    phrase: str
+    marker: str
 
 
 RULE_TABLE: dict[str, Rule] = {r.name: r for r in (
-    Rule("min", "the λ of least mean CV error (the simplest one on ties)", _rule_min),
-    Rule("one_se", "the simplest λ whose mean CV error is within one standard error of the minimum, "
-                   "the error bar being that of the minimising λ (ESL 2nd ed. §7.10)", _rule_one_se),
+    Rule("least_error", "the λ of least mean CV error (the simplest one on ties)", _rule_least_error,
+         "the least-CV-error rule", "D"),
+    Rule("one_standard_error", "the simplest λ whose mean CV error is within one standard error of the least, "
+         "the error bar being that of the least-error λ (ESL 2nd ed. §7.10)", _rule_one_standard_error,
+         "the one-standard-error rule", "^"),
 )}
 RULES = tuple(RULE_TABLE)
 
@@ -143,16 +148,27 @@ L2_CRITERIA: dict[str, L2Criterion] = {c.name: c for c in (
 )}
 
 
-def choose_lambda_index(cv_errors: np.ndarray, rule: str = "min") -> int:
+def _least_valid(mean: np.ndarray) -> tuple[np.ndarray, int]:
+    valid = np.isfinite(mean)
+    if not valid.any():
+        raise ValueError("every λ has a failed fit (NaN) in some split; nothing to choose")
+    return valid, int(np.argmin(np.where(valid, mean, np.inf)))
+
+
+def rule_choices(mean, se) -> dict[str, int]:
+    """The column every rule of RULE_TABLE picks from a CV summary (mean and standard error per λ,
+    NaN where a fit failed) — what the figures mark beside the chosen model."""
+    mean, se = np.asarray(mean, dtype=float), np.asarray(se, dtype=float)
+    valid, best = _least_valid(mean)
+    return {name: rule.choose(mean, se, valid, best) for name, rule in RULE_TABLE.items()}
+
+
+def choose_lambda_index(cv_errors: np.ndarray, rule: str = "least_error") -> int:
     """Column index chosen by `rule` (a name in RULE_TABLE)."""
     if rule not in RULE_TABLE:
         raise ValueError(f"unknown selection rule {rule!r}; allowed: {', '.join(RULES)}")
     mean, se = cv_summary(cv_errors)
-    valid = np.isfinite(mean)
-    if not valid.any():
-        raise ValueError("every λ has a failed fit (NaN) in some split; nothing to choose")
-    masked = np.where(valid, mean, np.inf)
-    best = int(np.argmin(masked))
+    valid, best = _least_valid(mean)
     return RULE_TABLE[rule].choose(mean, se, valid, best)
 
 

@@ -230,8 +230,9 @@ class ExecutionLog:
         rid = run.info.run_id
         self.child_ids[(r.family, r.loss_label)] = rid
         params = [Param("family", r.family), Param("loss", r.loss_name),
-                  Param("lambda_chosen", repr(r.lambda_chosen)), Param("n_lambdas", str(len(r.lambdas))),
-                  Param("lambda_max", repr(float(r.lambdas[0]))), Param("lambda_min", repr(float(r.lambdas[-1]))),
+                  Param("lambda_chosen", repr(r.lambda_chosen)), Param("path_points", str(len(r.lambdas))),
+                  Param("lambda_largest", repr(float(r.lambdas[0]))),
+                  Param("lambda_smallest", repr(float(r.lambdas[-1]))),
                   Param("solver", r.path.solver)]
         params += [Param(f"loss_{k}", repr(v)) for k, v in r.loss_params.items()]
         family = get_family(r.family)

@@ -92,7 +92,7 @@ def store_configs() -> dict[str, dict]:
     base = yaml.safe_load((CONFIGS / "tiny.yaml").read_text())
     base["stability"] = {"n_resamples": 10}
     first = dict(base, selection=dict(base["selection"], nested=True))
-    second = dict(base, losses=["squared", "huber"], selection={"cv_folds": 4, "rule": "one_se"})
+    second = dict(base, losses=["squared", "huber"], selection={"cv_folds": 4, "rule": "one_standard_error"})
     return {"first.yaml": first, "second.yaml": second}
 
 

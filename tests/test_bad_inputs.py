@@ -17,7 +17,7 @@ import pytest
 from pipeline.cli import main
 from pipeline.models.sparse import SOLVERS
 
-SMALL = ("stability: {enabled: false}\nfamilies: {l1: {n_lambdas: 4}, l2: {n_lambdas: 4}}\n"
+SMALL = ("stability: {enabled: false}\nfamilies: {l1: {path: {points: 4}}, l2: {path: {points: 4}}}\n"
          "selection: {cv_folds: 3}\n")
 SCENARIO = "data: {kind: scenario, name: spectral_bands, n_samples: 40, n_features: 8, n_informative: 2}\n"
 
@@ -86,13 +86,13 @@ CASES = {
                       ["exactly two classes", "has 3"]),
     "regression loss on string labels": ({"data.csv": _csv(_frame(y=["cat", "dog"] * 15))}, _file_config(),
                                          ["numeric target", "'cat' at data row 0", "classification loss"]),
-    "zero lambda ratio": ({}, "name: bad\n" + SCENARIO + SMALL.replace("l1: {n_lambdas: 4}", "l1: {lambda_ratio: 0}"),
-                          ["families.l1.lambda_ratio", "value 0", "greater than 0"]),
-    "negative lambda ratio": ({}, "name: bad\n" + SCENARIO + SMALL.replace("l1: {n_lambdas: 4}",
-                                                                            "l1: {lambda_ratio: -0.1}"),
-                              ["families.l1.lambda_ratio", "-0.1", "greater than 0"]),
-    "grid of one lambda": ({}, "name: bad\n" + SCENARIO + SMALL.replace("l2: {n_lambdas: 4}", "l2: {n_lambdas: 1}"),
-                           ["families.l2.n_lambdas", "value 1", "greater than or equal to 2"]),
+    "zero lambda ratio": ({}, "name: bad\n" + SCENARIO + SMALL.replace("l1: {path: {points: 4}}", "l1: {path: {smallest_share: 0}}"),
+                          ["families.l1.path.smallest_share", "value 0", "greater than 0"]),
+    "negative lambda ratio": ({}, "name: bad\n" + SCENARIO + SMALL.replace("l1: {path: {points: 4}}",
+                                                                            "l1: {path: {smallest_share: -0.1}}"),
+                              ["families.l1.path.smallest_share", "-0.1", "greater than 0"]),
+    "grid of one lambda": ({}, "name: bad\n" + SCENARIO + SMALL.replace("l2: {path: {points: 4}}", "l2: {path: {points: 1}}"),
+                           ["families.l2.path.points", "value 1", "greater than or equal to 2"]),
     "unknown loss": ({}, "name: bad\n" + SCENARIO + "losses: [hubber]\n", ["losses[1].name", "'hubber'",
                                                                           "Did you mean 'huber'?"]),
     "unknown kernel": ({}, "name: bad\n" + SCENARIO + "families: {l2: {kernel: gausian}}\n",

@@ -203,7 +203,7 @@ def test_markup_in_column_names_runs_no_script():
     (cwd / "hostile.yaml").write_text(
         "name: hostile\ndescription: '<script>window.__pwned = 3</script> described'\n"
         "data: {kind: csv, path: hostile.csv, target: '<b>target</b>'}\n"
-        "families: {l1: {n_lambdas: 6}, l2: {n_lambdas: 6}}\nselection: {cv_folds: 3}\n"
+        "families: {l1: {path: {points: 6}}, l2: {path: {points: 6}}}\nselection: {cv_folds: 3}\n"
         "stability: {n_resamples: 4}\n")
     code, out, err = penduel(["run", "hostile.yaml", "--quiet"], cwd)
     assert code == 0, err

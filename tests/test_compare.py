@@ -28,8 +28,8 @@ def test_flatten_names_nested_settings_and_list_items():
 
 
 def test_differences_list_only_changed_settings_with_every_value():
-    a = {"seed": 1, "selection": {"cv_folds": 3, "rule": "min"}, "losses": [{"name": "squared"}]}
-    b = {"seed": 1, "selection": {"cv_folds": 4, "rule": "min"}, "losses": [{"name": "squared"}, {"name": "huber"}]}
+    a = {"seed": 1, "selection": {"cv_folds": 3, "rule": "least_error"}, "losses": [{"name": "squared"}]}
+    b = {"seed": 1, "selection": {"cv_folds": 4, "rule": "least_error"}, "losses": [{"name": "squared"}, {"name": "huber"}]}
     assert config_differences([a, b]) == [
         {"setting": "losses[1].name", "values": [MISSING, '"huber"']},
         {"setting": "selection.cv_folds", "values": ["3", "4"]}]
@@ -86,7 +86,7 @@ def test_compare_last_two_shows_both_executions_and_their_config_difference(stor
     assert out.splitlines()[:2] == [f"E1: {second}  tiny-bands", f"E2: {first}  tiny-bands"]  # newest first
     page = htmllib.unescape(open(re.search(r"comparison: (\S+)", out).group(1), encoding="utf-8").read())
     assert first in page and second in page
-    for setting, newest, oldest in [("selection.cv_folds", "4", "3"), ("selection.rule", '"one_se"', '"min"'),
+    for setting, newest, oldest in [("selection.cv_folds", "4", "3"), ("selection.rule", '"one_standard_error"', '"least_error"'),
                                     ("losses[1].name", '"huber"', MISSING)]:
         row = re.search(rf"<code>{re.escape(setting)}</code></th>(.*?)</tr>", page, re.S).group(1)
         assert re.findall(r"<td><code>(.*?)</code></td>", row) == [newest, oldest]

@@ -329,7 +329,7 @@ def test_loss_metric_bootstraps_the_losses_own_objective():
 
 
 def _duel_on_linear_truth(beta, n_train, n_test, n_lambdas, seed):
-    """Both project families, squared loss, linear features; λ by 5-fold CV (min rule) on
+    """Both project families, squared loss, linear features; λ by 5-fold CV (least-error rule) on
     identical folds, refit on all training rows, paired bootstrap on the test rows."""
     from pipeline.kernels import gram
     from pipeline.losses import get_loss
@@ -357,7 +357,7 @@ def _duel_on_linear_truth(beta, n_train, n_test, n_lambdas, seed):
     for tr, va in make_folds(n_train, 5, rng):
         for table, f in zip(errors, predictions(x_tr[tr], y_tr[tr], x_tr[va], grids)):
             table.append(np.mean((f - y_tr[va]) ** 2, axis=1))
-    chosen = [choose_lambda_index(np.array(t), "min") for t in errors]
+    chosen = [choose_lambda_index(np.array(t), "least_error") for t in errors]
     f1, f2 = predictions(x_tr, y_tr, x_te, grids)
     return compare_pair(y_te, f1[chosen[0]], f2[chosen[1]], "mse", name_a="sparse", name_b="ridge", rng=rng)
 

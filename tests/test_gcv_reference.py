@@ -81,7 +81,7 @@ def test_gcv_classical_chooses_lambda_in_a_run(tmp_path):
     d.data.to_csv(tmp_path / "longley.csv", index=False)
     (tmp_path / "run.yaml").write_text(
         "name: longley-gcv\nseed: 1\ndata: {kind: csv, path: longley.csv, target: TOTEMP}\n"
-        "losses: [squared]\nfamilies:\n  l1: {n_lambdas: 6}\n  l2: {n_lambdas: 8}\n"
+        "losses: [squared]\nfamilies:\n  l1: {path: {points: 6}}\n  l2: {path: {points: 8}}\n"
         "selection: {cv_folds: 3, l2_criterion: gcv_classical}\nstability: {enabled: false}\n"
         f"tracking: {{uri: sqlite:///{tmp_path / 'store.db'}}}\nreport: {{directory: {tmp_path / 'out'}}}\n")
     done = run_cli(["run", "run.yaml"], cwd=tmp_path)

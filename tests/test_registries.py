@@ -109,8 +109,8 @@ seed: 1
 data: {{kind: scenario, name: dense_effects, n_samples: 40, n_features: 5, n_informative: 2}}
 losses: [{losses}]
 families:
-  l1: {{n_lambdas: 3, lambda_ratio: 0.1}}
-  l2: {{n_lambdas: 3, kernel: {kernel}}}
+  l1: {{path: {{points: 3, smallest_share: 0.1}}}}
+  l2: {{path: {{points: 3}}, kernel: {kernel}}}
 selection: {{cv_folds: 2}}
 stability: {{enabled: false}}
 cache: {{enabled: false}}

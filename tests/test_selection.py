@@ -26,17 +26,17 @@ def test_cv_summary_hand_values():
     assert se[3] == pytest.approx(0.1290994, abs=1e-7)
 
 
-def test_min_and_one_se_rules_hand_table():
-    assert choose_lambda_index(HAND_TABLE, "min") == 3
-    assert choose_lambda_index(HAND_TABLE, "one_se") == 2
+def test_least_error_and_one_standard_error_rules_hand_table():
+    assert choose_lambda_index(HAND_TABLE, "least_error") == 3
+    assert choose_lambda_index(HAND_TABLE, "one_standard_error") == 2
 
 
 def test_nan_columns_are_skipped():
     table = HAND_TABLE.copy()
-    table[1, 2] = np.nan  # failed fit at column 2: col1 is outside the band, so one_se falls to col3
-    assert choose_lambda_index(table, "one_se") == 3
+    table[1, 2] = np.nan  # failed fit at column 2: col1 is outside the band, so one_standard_error falls to col3
+    assert choose_lambda_index(table, "one_standard_error") == 3
     table[0, 3] = np.nan  # the best column failed too: col4 (mean 2.4) is the least valid mean left
-    assert choose_lambda_index(table, "min") == 4
+    assert choose_lambda_index(table, "least_error") == 4
 
 
 def test_all_nan_and_unknown_rule_raise():
@@ -52,9 +52,9 @@ tables = arrays(np.float64, st.tuples(st.integers(2, 6), st.integers(1, 8)),
 
 @settings(max_examples=200, deadline=None)
 @given(tables)
-def test_one_se_is_never_more_complex_than_min(table):
-    i_min = choose_lambda_index(table, "min")
-    i_se = choose_lambda_index(table, "one_se")
+def test_one_standard_error_is_never_more_complex_than_least_error(table):
+    i_min = choose_lambda_index(table, "least_error")
+    i_se = choose_lambda_index(table, "one_standard_error")
     mean, se = cv_summary(table)
     assert i_se <= i_min
     assert mean[i_se] <= mean[i_min] + se[i_min]
@@ -128,7 +128,7 @@ def test_nested_cv_keeps_outer_test_rows_out_of_selection():
             assert not np.isin(np.concatenate([tr, va]), outer_test).any()
     np.testing.assert_array_equal(np.sort(np.concatenate(outer_tests)), train_rows)
     losses = {name: path_errors(tr - 100, ev - 100) for name, tr, ev in splits}
-    result = nested_estimate(losses, 4, "min")
+    result = nested_estimate(losses, 4, "least_error")
     # mean 3, noise 1: no shrinkage wins clearly, so the full-mean column is chosen in every outer fold
     np.testing.assert_allclose(result["outer"], [losses[f"outer{o}.final"][-1] for o in range(4)])
     assert result["mean"] == pytest.approx(np.mean(result["outer"]))
@@ -136,7 +136,7 @@ def test_nested_cv_keeps_outer_test_rows_out_of_selection():
 
 
 def test_rule_and_criterion_tables_name_what_config_allows():
-    assert RULES == ("min", "one_se") and set(RULE_TABLE) == set(RULES)
+    assert RULES == ("least_error", "one_standard_error") and set(RULE_TABLE) == set(RULES)
     assert all(rule.description for rule in RULE_TABLE.values())
     assert tuple(L2_CRITERIA) == ("cv", "loo", "gcv", "gcv_classical")
     assert all(c.description for c in L2_CRITERIA.values())
@@ -152,7 +152,7 @@ def test_failed_columns_are_never_chosen(table, data):
     for j, bad in enumerate(failed):
         if bad:
             table[data.draw(st.integers(0, table.shape[0] - 1)), j] = np.nan
-    for rule in ("min", "one_se"):
+    for rule in ("least_error", "one_standard_error"):
         assert not failed[choose_lambda_index(table, rule)]
 
 
@@ -161,8 +161,8 @@ def test_leave_one_out_table_works_as_n_folds():
     # Hand: column means 9.667, 1.167, 1.110; se of column 2 = sqrt(0.8175/3) = 0.522, so
     # the band is 1.632 and column 1 is the simplest inside it.
     residuals = np.array([[3.0, 1.0, 1.1], [2.0, 0.5, 0.4], [4.0, 1.5, 1.4]])
-    assert choose_lambda_index(residuals**2, "min") == 2
-    assert choose_lambda_index(residuals**2, "one_se") == 1
+    assert choose_lambda_index(residuals**2, "least_error") == 2
+    assert choose_lambda_index(residuals**2, "one_standard_error") == 1
 
 
 def test_nested_cv_through_the_runner():

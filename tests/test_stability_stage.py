@@ -16,7 +16,7 @@ SPEC = {
     "data": {"kind": "scenario", "name": "spectral_bands", "n_samples": 90, "n_features": 40,
              "n_informative": 2, "correlation": 0.97, "noise": 0.5, "seed": 4},
     "losses": ["squared"],
-    "families": {"l1": {"n_lambdas": 10, "lambda_ratio": 0.05}, "l2": {"n_lambdas": 10}},
+    "families": {"l1": {"path": {"points": 10, "smallest_share": 0.05}}, "l2": {"path": {"points": 10}}},
     "selection": {"cv_folds": 3},
     "stability": {"n_resamples": 24},
     "cache": {"enabled": False},

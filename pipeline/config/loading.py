@@ -10,6 +10,7 @@ from pydantic import BaseModel, ValidationError
 
 from .experiment import ExperimentSpec
 from .reference import kind_tags, variants
+from .retired import retired_message
 
 
 class ConfigError(ValueError):
@@ -92,6 +93,9 @@ def parse_config(mapping: Any, source: str = "config") -> ExperimentSpec:
     if not isinstance(mapping, dict):
         raise ConfigError(f"{source}: the file must hold a mapping of settings (name:, data:, ...), "
                           f"found {type(mapping).__name__}.")
+    retired = retired_message(mapping, source)
+    if retired:
+        raise ConfigError(retired)
     try:
         return ExperimentSpec.model_validate(mapping)
     except ValidationError as err:

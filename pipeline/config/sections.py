@@ -9,7 +9,7 @@ from ..execution import BACKENDS
 from ..features import MAPS
 from ..kernels import KERNELS
 from ..models.sparse.routing import SOLVERS
-from ..selection import L2_CRITERIA, RULES
+from ..selection import L2_CRITERIA, RULE_TABLE, RULES
 from ..stability.schemes import SCHEMES
 from ..settings import Settings
 
@@ -30,23 +30,37 @@ class FeaturesSpec(Settings):
         return v
 
 
+class L1PathSpec(Settings):
+    points: int = Field(30, ge=2, le=500, description="How many λ values the path has, geometric from the largest "
+                                                      "(λ_max: the smallest λ whose solution is all zero) down.")
+    smallest_share: float = Field(0.01, gt=0.0, lt=1.0, description="Smallest λ of the path as a share of the "
+                                                                    "largest (λ_max).")
+
+
 class L1Spec(Settings):
     enabled: bool = Field(True, description="Fit the sparse family.")
-    n_lambdas: int = Field(30, ge=2, le=500, description="Points on the λ path.")
-    lambda_ratio: float = Field(0.01, gt=0.0, lt=1.0, description="Smallest λ as a fraction of λ_max.")
+    path: L1PathSpec = L1PathSpec()
     tol: float = Field(1e-7, gt=0.0, lt=1.0, description="Optimality tolerance of each fit.")
     solver: Literal[SOLVERS] = Field(
         "auto", description="Solver back-end ('auto' picks per loss).")
-    alpha: float = Field(1.0, gt=0.0, le=1.0, description="Elastic-net mixing: penalty α‖w‖₁ + (1−α)/2‖w‖²₂; "
-                                                          "1 is the lasso.")
+    l1_share: float = Field(1.0, gt=0.0, le=1.0, description="Share of the penalty that is L1 (elastic net): "
+                                                             "Ω = s‖w‖₁ + (1−s)/2‖w‖²₂ with s this share; 1 is "
+                                                             "the lasso.")
 
 
 # Settings of L2Spec that are kernel parameters; "median" means: let the kernel choose.
 KERNEL_SETTINGS = ("bandwidth", "degree")
 
 
+class L2PathSpec(Settings):
+    points: int = Field(30, ge=2, le=500, description="How many λ values the path has, geometric in λ between "
+                                                      "effective degrees of freedom 1 and 0.95·(n − 1) (capped by "
+                                                      "the kernel's rank), so the range is scale-free.")
+
+
 class L2Spec(Settings):
     enabled: bool = Field(True, description="Fit the ridge-type family.")
+    path: L2PathSpec = L2PathSpec()
     kernel: Literal[tuple(KERNELS)] = Field(
         "linear", description="Kernel on the standardised features; 'linear' is K = ΦΦᵀ of the feature map "
                               "(the only one with coefficients per feature).")
@@ -67,7 +81,6 @@ class L2Spec(Settings):
         takes = KERNELS[self.kernel].params
         return {name: getattr(self, name) for name in KERNEL_SETTINGS
                 if name in takes and getattr(self, name) != "median"}
-    n_lambdas: int = Field(30, ge=2, le=500, description="Points on the λ path.")
 
 
 class FamiliesSpec(Settings):
@@ -83,8 +96,8 @@ class SelectionSpec(Settings):
     cv_folds: int = Field(5, ge=2, le=50, description="Folds of K-fold cross-validation.")
     repeats: int = Field(1, ge=1, le=50, description="Repeats of K-fold CV, each with fresh folds (same for "
                                                      "both families).")
-    rule: Literal[RULES] = Field("min", description="Pick the λ of least CV error, or the simplest "
-                                                              "within one standard error of it.")
+    rule: Literal[RULES] = Field("least_error", description="How λ is chosen from the CV errors: " + "; ".join(
+        f"{r.name}: {r.description}" for r in RULE_TABLE.values()) + ".")
     l2_criterion: Literal[tuple(L2_CRITERIA)] = Field(
         "cv", description="How the ridge-type family picks λ for the squared loss: K-fold CV, exact "
                           "leave-one-out, generalised CV with the intercept in the trace (gcv) or as Golub, "

@@ -10,10 +10,9 @@ import jinja2
 import yaml
 
 from ..models.families import FAMILIES, compared_pair, get_family
+from ..selection import RULE_TABLE
 from . import plots
 from .payload import build_payload
-
-RULE_TEXT = {"min": "least CV error", "one_se": "the one-standard-error rule"}
 
 
 def template_env() -> jinja2.Environment:
@@ -117,6 +116,12 @@ def _fold_test(t) -> str:
             f"({t['dof'] + 1} folds)")
 
 
+def _rule_phrase(name: str) -> str:
+    """How the rule reads in a sentence; a payload stored under a rule name since retired shows that name."""
+    rule = RULE_TABLE.get(name)
+    return rule.phrase if rule else f"the rule '{name}'"
+
+
 def render(p: dict, run_id: str) -> str:
     primary = p["primary"]
     stab_index = {}
@@ -152,7 +157,7 @@ def render(p: dict, run_id: str) -> str:
         config_hash=p["config_hash"], data_hash=p["data_hash"], seconds=p["seconds"],
         n_test=p["n_test"], n_rows=p["n_rows"], n_boot=p["n_boot"],
         primary_label=primary.replace("_", " ") + ("" if p["primary_lower_is_better"] else " (higher is better)"),
-        rule_text=RULE_TEXT[p["rule"]], verdicts=verdicts, difference=difference_label(),
+        rule_text=_rule_phrase(p["rule"]), verdicts=verdicts, difference=difference_label(),
         family_titles=[f.title[:1].upper() + f.title[1:] for f in FAMILIES], summary=summary, loss_blocks=_loss_blocks(p),
         n_folds=p["n_folds"], data_rows=data_rows, notes=p["notes"],
         config_yaml=yaml.safe_dump(p["config"], sort_keys=False, allow_unicode=True),

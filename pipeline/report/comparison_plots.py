@@ -8,7 +8,7 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
 from ..models.families import FAMILIES  # noqa: E402
-from .plots import encode_png  # noqa: E402
+from .plots import encode_png, style_axes  # noqa: E402
 
 # families side by side around each execution's tick
 OFFSET = {f.key: 0.24 * (i - (len(FAMILIES) - 1) / 2) for i, f in enumerate(FAMILIES)}
@@ -41,13 +41,13 @@ def across_executions(block: dict, labels: list[str], primary: str) -> str:
     for a in (ax, bx):
         a.set_xticks(range(len(labels)), labels)
         a.set_xlim(-0.5, len(labels) - 0.5)
-        a.grid(alpha=0.3)
-        a.legend(fontsize=8)
+        style_axes(a)
+        a.legend(fontsize=8, frameon=False)
     ax.set_ylabel(f"held-out {primary.replace('_', ' ')} [90 % interval]")
-    ax.set_title(f"Held-out error — {block['loss']}", fontsize=10)
+    ax.set_title(f"Held-out error — {block['loss']}", fontsize=10, loc="left")
     if any_time:        # a log axis needs at least one positive time
         bx.set_yscale("log")
     bx.set_ylabel("path fit + CV fits (s, log scale)" if any_time else "path fit + CV fits (s)")
-    bx.set_title(f"Time — {block['loss']}", fontsize=10)
+    bx.set_title(f"Time — {block['loss']}", fontsize=10, loc="left")
     fig.tight_layout()
     return encode_png(fig)

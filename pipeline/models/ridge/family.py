@@ -57,7 +57,7 @@ class RidgeFamily(Family):
 
     def options(self, section, seed: int = 0) -> dict:
         return {"kernel": section.kernel, "kernel_params": tuple(sorted(section.kernel_params().items())),
-                "n_lambdas": section.n_lambdas, "landmark_seed": int(seed)}
+                "n_lambdas": section.path.points, "landmark_seed": int(seed)}
 
     def has_coefficients(self, options: dict) -> bool:
         # a kernel whose feature space is the fitted columns themselves gives f = b + Zw a weight per column

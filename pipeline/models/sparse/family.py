@@ -22,13 +22,14 @@ class SparseFamily(Family):
     selected_set = "support"
     selected_phrase = "in the support"
     df_description = "nonzeros"
-    tracked_settings = ()
+    tracked_settings = ("l1_share",)
     grid_reads_loss = True
     gives_certificate = True
 
     def options(self, section, seed: int = 0) -> dict:
-        return {"tol": section.tol, "solver": section.solver, "alpha": section.alpha,
-                "n_lambdas": section.n_lambdas, "lambda_ratio": section.lambda_ratio}
+        # the option keys are the fitting code's own; the config names are section.path.* and l1_share
+        return {"tol": section.tol, "solver": section.solver, "alpha": section.l1_share,
+                "n_lambdas": section.path.points, "lambda_ratio": section.path.smallest_share}
 
     def has_coefficients(self, options: dict) -> bool:
         return True
