@@ -89,7 +89,7 @@ def check_feature_budget(spec: ExperimentSpec, dataset: Dataset, n_train: int) -
         if gram_mib > spec.features.memory_budget_mib:
             hint = fam.memory_hint(n_train, options)
             raise DataError(
-                f"families.{fam.key}: the kernel matrices of {n_train:,} training rows would take about "
+                f"families.{fam.key}: the Gram matrix of {n_train:,} training rows would take about "
                 f"{gram_mib:,.0f} MiB, over features.memory_budget_mib = {spec.features.memory_budget_mib}. "
                 + (f"{hint}, " if hint else "Use fewer rows, ") +
                 f"disable families.{fam.key} (the sparse family needs no Gram matrix) or raise the budget.")

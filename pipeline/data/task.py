@@ -20,6 +20,8 @@ def infer_task(target: pd.Series) -> tuple[str, str]:
     name = target.name
     if pd.api.types.is_bool_dtype(values) or not pd.api.types.is_numeric_dtype(values):
         return CLASSIFICATION, f"column '{name}' holds text or true/false values ({len(levels)} distinct)"
+    if len(levels) < 2:
+        return REGRESSION, f"column '{name}' holds one value"
     if len(levels) == 2:
         return CLASSIFICATION, f"column '{name}' holds two distinct values ({_shown(levels)})"
     numbers = values.to_numpy(dtype=float)

@@ -70,8 +70,8 @@ class RidgeFamily(Family):
     def memory_hint(self, n_rows: int, options: dict | None = None) -> str:
         options = options or {}
         if _low_rank(options, n_rows):
-            return (f"That is already the low-rank route (families.l2.n_landmarks = "
-                    f"{low_rank_setting(options, 'n_landmarks')} landmarks, exact check on "
+            return (f"That is already the low-rank route's memory (an n × m factor with families.l2.n_landmarks = "
+                    f"{low_rank_setting(options, 'n_landmarks')} landmarks, the exact check on "
                     f"families.l2.gap_rows = {low_rank_setting(options, 'gap_rows')} rows); lower those")
         return (f"The exact route holds the n × n Gram; lower families.l2.exact_max_rows (now "
                 f"{low_rank_setting(options, 'max_exact_rows')}) to take the low-rank route")
