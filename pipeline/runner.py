@@ -258,8 +258,9 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     check_feature_budget(spec, dataset, len(train_rows))
     shared = Shared(X=dataset.X, y=dataset.y, task=dataset.task, feature_maps=spec.features.maps,
                     feature_seed=spec.seed, input_names=dataset.feature_names,
-                    family_options={f.key: f.options(getattr(spec.families, f.key),
-                                                     seeds.int_seed(spec.seed, "landmarks"))
+                    family_options={f.key: f.for_training_rows(f.options(getattr(spec.families, f.key),
+                                                                         seeds.int_seed(spec.seed, "landmarks")),
+                                                               len(train_rows))
                                     for f in FAMILIES})
     splits = plan_splits(spec, dataset, train_rows, test_rows)
     resamples = plan_resamples(spec, dataset, train_rows, test_rows) if stability_losses(spec) else []

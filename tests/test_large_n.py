@@ -73,3 +73,16 @@ def test_twenty_thousand_rows_run_end_to_end_through_the_cli(tmp_path):
     assert done.returncode == 0, done.stderr
     assert "fitted by Nyström with m = 1000 seeded landmarks" in done.stdout
     assert "low-rank (Nyström) route on 15000 training rows with 1000 landmarks" in done.stdout
+
+
+def test_one_route_for_every_split_of_an_experiment():
+    # a resample or CV fold smaller than the row limit still takes the route the whole training set took
+    from pipeline.losses import get_loss
+    from pipeline.models.ridge import RIDGE
+    rng = np.random.default_rng(0)
+    X, y = rng.normal(size=(100, 3)), rng.normal(size=100)
+    options = {"kernel": "rbf", "kernel_params": (), "n_lambdas": 4, "max_exact_rows": 150, "n_landmarks": 30}
+    lambdas = RIDGE.grid(X, y, get_loss("squared"), options)
+    assert RIDGE.fit_path(X, y, get_loss("squared"), lambdas, options).solver == "representer"
+    planned = RIDGE.for_training_rows(options, 225)
+    assert RIDGE.fit_path(X, y, get_loss("squared"), lambdas, planned).solver == "nystrom"

@@ -55,6 +55,11 @@ class Family:
         """Memory (MiB) of the kernel matrices a fit on n_rows training rows holds; 0 without any."""
         return 0.0
 
+    def for_training_rows(self, options: dict, n_train: int) -> dict:
+        """The options every split of one experiment uses, fixed from the whole training set's size (so CV
+        folds, resamples and the final fit take the same route). Default: unchanged."""
+        return options
+
     def memory_hint(self, n_rows: int, options: dict | None = None) -> str:
         """What to change when gram_mib is over the budget (a sentence naming the settings)."""
         return ""

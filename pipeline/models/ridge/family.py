@@ -41,6 +41,8 @@ class RidgeModel:
 
 
 def _low_rank(options: dict, n: int) -> bool:
+    if "low_rank" in options:          # fixed for a whole experiment by for_training_rows
+        return bool(options["low_rank"])
     return n > low_rank_setting(options, "max_exact_rows")
 
 
@@ -66,6 +68,10 @@ class RidgeFamily(Family):
             m, sub = low_rank_setting(options, "n_landmarks"), min(n_rows, low_rank_setting(options, "gap_rows"))
             return (n_rows * m + 3 * m ** 2 + 3 * sub ** 2) * 8 / 2**20
         return n_rows ** 2 * 8 * 3 / 2**20   # K, its eigenvectors and one work copy
+
+    def for_training_rows(self, options: dict, n_train: int) -> dict:
+        # one route for the final fit, every CV fold and every resample, chosen on the whole training set
+        return {**options, "low_rank": _low_rank(options, n_train)}
 
     def memory_hint(self, n_rows: int, options: dict | None = None) -> str:
         options = options or {}
@@ -106,7 +112,8 @@ class RidgeFamily(Family):
                                   options.get("landmark_seed", 0), loss=loss, **kp)
             model = RidgeModel(ny.path, ny.landmarks, kernel, ny.kernel_params)
             solver = "nystrom"
-            note = (f"{Z.shape[0]} training rows exceed {low_rank_setting(options, 'max_exact_rows')}: "
+            note = (f"the experiment's training rows exceed {low_rank_setting(options, 'max_exact_rows')} "
+                    f"(families.l2.exact_max_rows): "
                     f"fitted by Nyström with m = {len(ny.landmarks)} seeded landmarks "
                     f"(Williams & Seeger 2001), O(n m²) instead of O(n³)")
         else:
