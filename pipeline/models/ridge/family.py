@@ -146,8 +146,9 @@ class RidgeFamily(Family):
         gap = nystrom_gap(Z, t, kernel, lambdas, m, sub, options.get("landmark_seed", 0), **kp)
         return (f"low-rank (Nyström) route on {n_rows} training rows with {m} landmarks; on a seeded subsample "
                 f"of {gap['subsample']} rows with {gap['n_landmarks']} landmarks its best leave-one-out squared "
-                f"error is {gap['relative_gap']:+.2%} from the exact route's ({gap['nystrom_best_loo']:.4g} against "
-                f"{gap['exact_best_loo']:.4g}; largest gap over the λ grid {gap['max_relative_gap_on_grid']:.2%})")
+                f"error is {gap['relative_gap'] * 100:+.2g} % from the exact route's "
+                f"({gap['nystrom_best_loo']:.4g} against {gap['exact_best_loo']:.4g}; largest gap over the λ grid "
+                f"{gap['max_relative_gap_on_grid'] * 100:.2g} %)")
 
 
 RIDGE = RidgeFamily()
