@@ -6,11 +6,10 @@ import time
 from dataclasses import dataclass, field
 
 import numpy as np
-from sklearn.model_selection import train_test_split
 
 from . import seeds
 from .config import ExperimentSpec
-from .data import DataError, Dataset, load_dataset
+from .data import DataError, Dataset, RowDesign, load_dataset
 from .evaluate import Evaluation, evaluate_results, test_metrics
 from .cache import cache_for, run_cached, task_keys
 from .execution import run_tasks
@@ -18,8 +17,10 @@ from .features import output_width
 from .fitting import FitOutcome, FitTask, Shared, build_features, run_fit, target_scaling
 from .losses import get_loss
 from .models.families import FAMILIES, get_family
-from .selection import L2_CRITERIA, choose_lambda_index, cv_summary, make_folds, nested_estimate, nested_splits
+from .selection import (L2_CRITERIA, choose_lambda_index, cv_summary, design_line, make_folds, nested_estimate,
+                        nested_splits, test_split)
 from .stability import resample_splits, stability_losses, stability_stage
+from .stability.schemes import order_blocks
 
 
 @dataclass(frozen=True)
@@ -70,6 +71,7 @@ class ExperimentResult:
     evaluation: Evaluation | None = None              # fold tests, paired verdicts, ground-truth scores
     stability: dict = field(default_factory=dict)     # loss label -> resampling summary
     selection_paths: dict = field(default_factory=dict)  # (loss label, family) -> (L, p) selection probabilities
+    design: str = ""                                  # one line: how test rows and CV folds were formed
 
 
 def check_feature_budget(spec: ExperimentSpec, dataset: Dataset, n_train: int) -> int:
@@ -82,34 +84,34 @@ def check_feature_budget(spec: ExperimentSpec, dataset: Dataset, n_train: int) -
             f"Use fewer features (lower degree or n_components) or the representer route (families.l2.kernel) "
             f"instead of an explicit map, or raise the budget.")
     for fam in enabled_families(spec):
-        gram_mib = fam.gram_mib(n_train)
+        options = fam.options(getattr(spec.families, fam.key))
+        gram_mib = fam.gram_mib(n_train, options)
         if gram_mib > spec.features.memory_budget_mib:
+            hint = fam.memory_hint(n_train, options)
             raise DataError(
                 f"families.{fam.key}: the Gram matrix of {n_train:,} training rows would take about "
                 f"{gram_mib:,.0f} MiB, over features.memory_budget_mib = {spec.features.memory_budget_mib}. "
-                f"Use fewer rows, disable families.{fam.key} (the sparse family needs no Gram matrix) or "
-                f"raise the budget.")
+                + (f"{hint}, " if hint else "Use fewer rows, ") +
+                f"disable families.{fam.key} (the sparse family needs no Gram matrix) or raise the budget.")
     return width
 
 
 def split_rows(spec: ExperimentSpec, dataset: Dataset):
     n = dataset.n_samples
-    stratify = dataset.y if dataset.task == "classification" else None
-    rows = np.arange(n)
-    n_test = max(1, int(round(spec.split.test_fraction * n)))
+    classify = dataset.task == "classification"
+    d = dataset.design or RowDesign()
     try:
-        tr, te = train_test_split(rows, test_size=n_test, random_state=seeds.int_seed(spec.seed, "split"),
-                                  stratify=stratify)
+        tr, te = test_split(n, spec.split.test_fraction, seeds.int_seed(spec.seed, "split"), y=dataset.y,
+                            stratify=classify, groups=d.groups, order=d.order, holdout=d.holdout, gap=spec.split.gap)
     except ValueError as exc:
-        raise DataError(f"split.test_fraction: cannot hold out {n_test} of {n} rows ({exc}).") from None
+        raise DataError(f"split: cannot form the test set from {n} rows ({exc}).") from None
     if len(tr) < spec.selection.cv_folds:
         raise DataError(f"selection.cv_folds: {spec.selection.cv_folds} folds need at least that many training "
                         f"rows, but only {len(tr)} remain after holding out {len(te)} test rows of {n}.")
-    if dataset.task == "classification" and np.min([np.sum(dataset.y[tr] > 0), np.sum(dataset.y[tr] < 0)]) < \
-            spec.selection.cv_folds:
+    if classify and np.min([np.sum(dataset.y[tr] > 0), np.sum(dataset.y[tr] < 0)]) < spec.selection.cv_folds:
         raise DataError(f"selection.cv_folds: the smaller class has fewer training rows than the "
                         f"{spec.selection.cv_folds} folds; use fewer folds or more data.")
-    return np.sort(tr), np.sort(te)
+    return tr, te
 
 
 def family_grids(spec, shared, train_rows, losses) -> list[dict]:
@@ -142,13 +144,45 @@ def plan_splits(spec: ExperimentSpec, dataset: Dataset, train_rows, test_rows) -
     """(name, fit rows, evaluation rows) for every split any task uses; both families share them all."""
     classify = dataset.task == "classification"
     K = spec.selection.cv_folds
-    folds = make_folds(len(train_rows), K, seeds.generator(spec.seed, "folds"), y=dataset.y[train_rows],
-                       stratify=classify, repeats=spec.selection.repeats)
-    splits = [(f"fold{k}", train_rows[tr], train_rows[va]) for k, (tr, va) in enumerate(folds)]
-    splits.append(("final", train_rows, test_rows))
-    if spec.selection.nested:
-        splits += nested_splits(train_rows, dataset.y[train_rows], K, seeds.generator(spec.seed, "nested"), classify)
+    design = row_design(spec, dataset, train_rows)
+    try:
+        folds = make_folds(len(train_rows), K, seeds.generator(spec.seed, "folds"), y=dataset.y[train_rows],
+                           stratify=classify, repeats=spec.selection.repeats, **design)
+        splits = [(f"fold{k}", train_rows[tr], train_rows[va]) for k, (tr, va) in enumerate(folds)]
+        splits.append(("final", train_rows, test_rows))
+        if spec.selection.nested:
+            splits += nested_splits(train_rows, dataset.y[train_rows], K, seeds.generator(spec.seed, "nested"),
+                                    classify, **design)
+    except ValueError as exc:
+        raise DataError(f"selection.cv_folds: cannot form {K} CV folds of the {len(train_rows)} training rows "
+                        f"({exc}).") from None
     return splits
+
+
+def row_design(spec: ExperimentSpec, dataset: Dataset, rows) -> dict:
+    """The groups / order / gap of `rows` that folds respect (empty for rows split at random)."""
+    d = dataset.design or RowDesign()
+    return dict(groups=None if d.groups is None else d.groups[rows],
+                order=None if d.order is None else d.order[rows], gap=spec.split.gap)
+
+
+def plan_resamples(spec: ExperimentSpec, dataset: Dataset, train_rows, test_rows) -> list[tuple]:
+    """Stability resamples of the training rows: whole groups, or contiguous blocks of time, when the
+    design has them."""
+    units = row_design(spec, dataset, train_rows)
+    units = units["groups"] if units["order"] is None else order_blocks(units["order"])
+    try:
+        return resample_splits(spec, train_rows, test_rows, dataset.y[train_rows], dataset.task, groups=units)
+    except ValueError as exc:
+        raise DataError(f"stability.scheme: cannot draw {spec.stability.scheme} resamples of the training rows "
+                        f"({exc}).") from None
+
+
+def describe_design(spec: ExperimentSpec, dataset: Dataset, train_rows, test_rows, splits) -> str:
+    d = dataset.design or RowDesign()
+    folds = [(tr, va) for name, tr, va in splits if name.startswith("fold")]
+    return design_line(d.names, len(train_rows), len(test_rows), folds, gap=spec.split.gap,
+                       forward=d.order is not None, grouped=d.groups is not None)
 
 
 def plan_tasks(spec: ExperimentSpec, shared: Shared, train_rows, test_rows, splits, resamples) -> list[FitTask]:
@@ -206,19 +240,31 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng) -> list[FamilyResult
     return results
 
 
+def route_notes(shared: Shared, train_rows, tasks) -> tuple[str, ...]:
+    """For a family that took an approximate route: how far it is from the exact one (Family.route_check)."""
+    def training():
+        center, scale = target_scaling(shared, shared.y[train_rows])
+        return build_features(shared, train_rows).transform(shared.X[train_rows]), \
+            (shared.y[train_rows] - center) / scale
+    grids = {t.family: t.lambdas for t in tasks if t.split == "final"}
+    checks = {k: get_family(k).route_check(len(train_rows), training, grid, shared.family_options[k])
+              for k, grid in grids.items()}
+    return tuple(f"{get_family(k).title}: {text}" for k, text in checks.items() if text)
+
+
 def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool = True) -> ExperimentResult:
     start = time.perf_counter()
-    dataset = load_dataset(spec.data, base_dir, spec.task)
+    dataset = load_dataset(spec.data, base_dir, spec.task, spec.split)
     train_rows, test_rows = split_rows(spec, dataset)
     check_feature_budget(spec, dataset, len(train_rows))
     shared = Shared(X=dataset.X, y=dataset.y, task=dataset.task, feature_maps=spec.features.maps,
                     feature_seed=spec.seed, input_names=dataset.feature_names,
-                    family_options={f.key: f.options(getattr(spec.families, f.key),
-                                                     seeds.int_seed(spec.seed, "landmarks"))
+                    family_options={f.key: f.for_training_rows(f.options(getattr(spec.families, f.key),
+                                                                         seeds.int_seed(spec.seed, "landmarks")),
+                                                               len(train_rows))
                                     for f in FAMILIES})
     splits = plan_splits(spec, dataset, train_rows, test_rows)
-    resamples = resample_splits(spec, train_rows, test_rows, dataset.y[train_rows], dataset.task) \
-        if stability_losses(spec) else []
+    resamples = plan_resamples(spec, dataset, train_rows, test_rows) if stability_losses(spec) else []
     tasks = plan_tasks(spec, shared, train_rows, test_rows, splits, resamples)
     data_hash = dataset.content_hash()
     outcomes, reused = run_cached(run_tasks, run_fit, tasks, task_keys(spec, data_hash, tasks),
@@ -229,6 +275,7 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
                               f"'{spec.cache.directory}' (refits avoided)",) if reused else ())
     notes += tuple(dict.fromkeys(f"{get_family(o.family).title}: {o.note}" for o in outcomes
                                  if o.note and o.split == "final"))   # e.g. the low-rank route was taken
+    notes += route_notes(shared, train_rows, tasks)
     results = assemble(spec, shared, tasks, outcomes, test_rows, seeds.generator(spec.seed, "test_intervals"))
     feature_names = next(o.feature_names for o in outcomes)
     fold0 = splits[0]
@@ -242,4 +289,5 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
                             results=tuple(results), seconds=time.perf_counter() - start,
                             notes=notes, tasks_reused=reused, tasks_total=len(tasks),
                             evaluation=evaluation, stability=stability.summaries,
+                            design=describe_design(spec, dataset, train_rows, test_rows, splits),
                             selection_paths=stability.selection_paths)

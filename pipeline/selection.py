@@ -27,11 +27,17 @@ def make_folds(
     y: np.ndarray | None = None,
     stratify: bool = False,
     repeats: int = 1,
+    groups: np.ndarray | None = None,
+    order: np.ndarray | None = None,
+    gap: int = 0,
 ) -> list[tuple[np.ndarray, np.ndarray]]:
     """(train_idx, val_idx) pairs of shuffled K-fold CV, repeated `repeats` times.
 
-    With `stratify` the class proportions of `y` are kept in every fold. The
-    result depends only on (n, n_folds, y, stratify, repeats) and the state of `rng`.
+    With `stratify` the class proportions of `y` are kept in every fold (as far as the groups allow).
+    With `groups` (n,) rows sharing a label are never on both sides of a fold. With `order` (n,) the
+    folds are forward-chaining: the rows sorted by order are cut into n_folds + 1 blocks and fold k
+    trains on blocks 0..k and validates on block k + 1, with the `gap` rows just before the
+    validation block left out of training. The result depends only on the arguments and the state of `rng`.
     """
     if not 2 <= n_folds <= n:
         raise ValueError(f"n_folds must be between 2 and n={n}; got {n_folds}")
@@ -39,9 +45,28 @@ def make_folds(
         raise ValueError(f"repeats must be at least 1; got {repeats}")
     if stratify and y is None:
         raise ValueError("stratify=True needs the labels y")
+    labels = np.zeros(n) if y is None else np.asarray(y)
+    if len(labels) != n:
+        raise ValueError(f"y has {len(labels)} rows but n={n}")
+    if order is not None:
+        return _forward_chaining(np.asarray(order), n_folds, gap)
     # imported here so that config can read this module's tables without loading scikit-learn
-    from sklearn.model_selection import KFold, RepeatedKFold, RepeatedStratifiedKFold, StratifiedKFold
+    from sklearn.model_selection import KFold, RepeatedKFold, RepeatedStratifiedKFold, StratifiedGroupKFold, \
+        StratifiedKFold
 
+    if groups is not None:
+        groups = np.asarray(groups)
+        n_groups = len(np.unique(groups))
+        if n_groups < n_folds:
+            raise ValueError(f"{n_groups} groups cannot fill {n_folds} folds; every fold needs a group of its own")
+        out = []
+        for _ in range(repeats):
+            if stratify:
+                splitter = StratifiedGroupKFold(n_folds, shuffle=True, random_state=_sklearn_seed(rng))
+                out += [(tr, va) for tr, va in splitter.split(np.zeros((n, 1)), labels, groups)]
+            else:
+                out += _group_folds(groups, n_folds, rng)
+        return out
     seed = _sklearn_seed(rng)
     if stratify:
         if repeats == 1:
@@ -52,10 +77,35 @@ def make_folds(
         splitter = KFold(n_folds, shuffle=True, random_state=seed)
     else:
         splitter = RepeatedKFold(n_splits=n_folds, n_repeats=repeats, random_state=seed)
-    labels = np.zeros(n) if y is None else np.asarray(y)
-    if len(labels) != n:
-        raise ValueError(f"y has {len(labels)} rows but n={n}")
     return [(tr, va) for tr, va in splitter.split(np.zeros((n, 1)), labels)]
+
+
+def _group_folds(groups: np.ndarray, n_folds: int, rng: np.random.Generator) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Whole groups dealt to folds: in a random order, largest first, each to the fold with fewest rows."""
+    codes, inverse, counts = np.unique(groups, return_inverse=True, return_counts=True)
+    shuffled = rng.permutation(len(codes))
+    dealt = shuffled[np.argsort(-counts[shuffled], kind="stable")]
+    fold_of, sizes = np.empty(len(codes), int), np.zeros(n_folds, int)
+    for g in dealt:
+        k = int(np.argmin(sizes))
+        fold_of[g], sizes[k] = k, sizes[k] + counts[g]
+    row_fold = fold_of[inverse]
+    return [(np.flatnonzero(row_fold != k), np.flatnonzero(row_fold == k)) for k in range(n_folds)]
+
+
+def _forward_chaining(order: np.ndarray, n_folds: int, gap: int) -> list[tuple[np.ndarray, np.ndarray]]:
+    positions = np.argsort(order, kind="stable")
+    n = len(positions)
+    edges = np.linspace(0, n, n_folds + 2).round().astype(int)
+    folds = []
+    for k in range(n_folds):
+        start, stop = edges[k + 1], edges[k + 2]
+        train_end = start - gap
+        if train_end < 1:
+            raise ValueError(f"split.gap = {gap} leaves no training rows before validation block {k + 1} "
+                             f"(it starts at row {start} of {n} in time order); use a smaller gap or fewer folds")
+        folds.append((np.sort(positions[:train_end]), np.sort(positions[start:stop])))
+    return folds
 
 
 def cv_summary(cv_errors: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -179,13 +229,21 @@ def choose_lambda_index(cv_errors: np.ndarray, rule: str = "least_error") -> int
 
 
 def nested_splits(train_rows: np.ndarray, y_train, n_folds: int, rng: np.random.Generator,
-                  stratify: bool) -> list[tuple[str, np.ndarray, np.ndarray]]:
-    """(name, fit rows, evaluation rows) of every nested-CV split; `rng` is the `nested` stream."""
+                  stratify: bool, groups=None, order=None, gap: int = 0) -> list[tuple[str, np.ndarray, np.ndarray]]:
+    """(name, fit rows, evaluation rows) of every nested-CV split; `rng` is the `nested` stream.
+    `groups` / `order` (aligned with train_rows) make both levels grouped / forward-chaining."""
     splits = []
     y_train = np.asarray(y_train)
-    for o, (otr, ote) in enumerate(make_folds(len(train_rows), n_folds, rng, y=y_train, stratify=stratify)):
+
+    def design(rows):
+        return dict(groups=None if groups is None else np.asarray(groups)[rows],
+                    order=None if order is None else np.asarray(order)[rows], gap=gap)
+
+    everything = np.arange(len(train_rows))
+    for o, (otr, ote) in enumerate(make_folds(len(train_rows), n_folds, rng, y=y_train, stratify=stratify,
+                                              **design(everything))):
         outer_train = train_rows[otr]
-        inner = make_folds(len(outer_train), n_folds, rng, y=y_train[otr], stratify=stratify)
+        inner = make_folds(len(outer_train), n_folds, rng, y=y_train[otr], stratify=stratify, **design(otr))
         splits += [(f"outer{o}.fold{k}", outer_train[tr], outer_train[va]) for k, (tr, va) in enumerate(inner)]
         splits.append((f"outer{o}.final", outer_train, train_rows[ote]))
     return splits
@@ -201,3 +259,49 @@ def nested_estimate(eval_loss_by_split: dict, n_folds: int, rule: str) -> dict:
         values.append(float(eval_loss_by_split[f"outer{o}.final"][idx]))
     v = np.array(values)
     return {"mean": float(v.mean()), "se": float(v.std(ddof=1) / np.sqrt(len(v))), "outer": values}
+
+
+# ---------------------------------------------------------------- the test split and its one-line statement
+
+
+def test_split(n: int, test_fraction: float, seed: int, y=None, stratify: bool = False, groups=None, order=None,
+               holdout=None, gap: int = 0) -> tuple[np.ndarray, np.ndarray]:
+    """(training rows, test rows), sorted. `holdout` (bool mask) fixes the test rows; `order` makes them the
+    last rows in time (the `gap` rows before them are left out); `groups` keeps each group on one side
+    (stratified by class where possible); otherwise a seeded random split, stratified for classification."""
+    from sklearn.model_selection import StratifiedGroupKFold, train_test_split
+
+    rows = np.arange(n)
+    n_test = max(1, int(round(test_fraction * n)))
+    if holdout is not None:
+        tr, te = rows[~holdout], rows[holdout]
+        if order is not None and gap:
+            tr = tr[np.argsort(order[tr], kind="stable")][:max(0, len(tr) - gap)]
+    elif order is not None:
+        by_time = np.argsort(order, kind="stable")
+        te, tr = by_time[n - n_test:], by_time[:max(0, n - n_test - gap)]
+    elif groups is not None:
+        n_parts = max(2, int(round(1 / test_fraction)))
+        if len(np.unique(groups)) < n_parts:
+            raise ValueError(f"{len(np.unique(groups))} groups are too few to hold out about {test_fraction:g} of "
+                             f"the rows as whole groups (at least {n_parts} are needed)")
+        if stratify:
+            splitter = StratifiedGroupKFold(n_parts, shuffle=True, random_state=seed)
+            tr, te = next(splitter.split(np.zeros((n, 1)), y, groups))
+        else:
+            tr, te = _group_folds(np.asarray(groups), n_parts, np.random.default_rng(seed))[0]
+    else:
+        tr, te = train_test_split(rows, test_size=n_test, random_state=seed, stratify=y if stratify else None)
+    return np.sort(tr), np.sort(te)
+
+
+def design_line(kinds: tuple[str, ...], n_train: int, n_test: int, folds, gap: int = 0,
+                forward: bool = False, grouped: bool = False) -> str:
+    """One sentence: how the test rows and the CV folds were formed, with their sizes."""
+    sizes = [(len(tr), len(va)) for tr, va in folds]
+    span = (lambda v: f"{min(v)}" if min(v) == max(v) else f"{min(v)}–{max(v)}")
+    how = ("forward-chaining" if forward else "grouped" if grouped else "shuffled") + " folds"
+    fold_text = (f"{len(sizes)} {how} of {span([a for a, _ in sizes])} training / {span([b for _, b in sizes])} "
+                 f"validation rows" + (f", {gap} row(s) left out between them" if gap else ""))
+    design = "; ".join(kinds) if kinds else "rows split at random"
+    return f"Design: {design}. Test set: {n_test} rows, training set: {n_train} rows; CV: {fold_text}."

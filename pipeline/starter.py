@@ -12,6 +12,7 @@ import yaml
 from .config import ConfigError, parse_config
 from .data import DataError
 from .data.loaders import read_table, frame_to_dataset
+from .data.task import infer_task
 from .losses import CLASSIFICATION, LOSSES, REGRESSION
 
 KINDS = {".csv": "csv", ".parquet": "parquet", ".pq": "parquet"}
@@ -26,15 +27,8 @@ def other_losses(task: str) -> str:
 
 
 def guess_task(target: pd.Series) -> str:
-    """Two distinct values: classification; a numeric column with more: regression."""
-    levels = target.dropna().unique()
-    if len(levels) == 2:
-        return "classification"
-    if pd.api.types.is_numeric_dtype(target) and len(levels) > 2:
-        return "regression"
-    raise DataError(f"--target: column '{target.name}' has {len(levels)} distinct value(s) and is "
-                    f"{'numeric' if pd.api.types.is_numeric_dtype(target) else 'not numeric'}; penduel needs a "
-                    f"numeric target (regression) or exactly two classes (classification).")
+    """The task `data.task: auto` would infer (pipeline.data.task.infer_task)."""
+    return infer_task(target)[0]
 
 
 def experiment_name(path: pathlib.Path) -> str:
@@ -46,6 +40,10 @@ def cv_folds(y, task: str, n_train: int) -> int:
     """Five folds unless the training rows (or the smaller class) are too few for them."""
     smallest = n_train if task == "regression" else int(min((y > 0).sum(), (y < 0).sum()) * 0.75)
     return max(2, min(5, smallest // 2))
+
+
+def _comment(text: str) -> str:
+    return " ".join(text.split()).replace("#", "")
 
 
 def _q(text: str) -> str:
@@ -60,7 +58,7 @@ def starter_text(data: pathlib.Path, target: str, config_dir: pathlib.Path) -> s
     frame.columns = [str(c) for c in frame.columns]
     if target not in frame.columns:
         frame_to_dataset(frame, target, "regression", str(data))     # raises with a "did you mean" hint
-    task = guess_task(frame[target])
+    task, reason = infer_task(frame[target])
     ds = frame_to_dataset(frame, target, task, str(data))
     n_train = ds.n_samples - max(1, round(0.25 * ds.n_samples))
     folds = cv_folds(ds.y, task, n_train)
@@ -80,8 +78,12 @@ def starter_text(data: pathlib.Path, target: str, config_dir: pathlib.Path) -> s
         f"  kind: {kind}\n"
         f"  path: {_q(rel)}   # relative to this file's folder\n"
         f"  target: {_q(target)}\n"
+        f"  task: {task}   # {_comment(reason)}; say regression or classification to decide otherwise\n"
         f"split:\n"
         f"  test_fraction: 0.25        # rows held out, never used for fitting or choosing λ\n"
+        f"  # groups: COLUMN           # rows sharing a value (replicates, visits of one patient) stay together\n"
+        f"  # order: COLUMN            # times: test on the last rows, CV trains on the past (gap: rows between)\n"
+        f"  # holdout: COLUMN          # or test_file: PATH — a fixed test set instead of a random one\n"
         f"features:\n"
         f"  maps:\n"
         f"    - kind: identity         # the columns themselves; add polynomial or random_fourier maps\n"

@@ -57,6 +57,16 @@ class ExperimentSpec(Settings):
         if len({loss.task for loss in self.losses}) > 1:
             kinds = " with ".join(f"{t} losses ({', '.join(loss_names(t))})" for t in TASKS if loss_names(t))
             raise ValueError(f"losses mix {kinds}; list one kind")
+        task = getattr(self.data, "task", "auto")
+        if task != "auto" and task != self.task:
+            raise ValueError(f"data.task is {task} but the losses listed are {self.task} losses; list "
+                             f"{task} losses ({', '.join(loss_names(task))}) or change data.task")
+        if self.data.kind not in ("csv", "parquet") and (self.split.columns or self.split.test_file):
+            raise ValueError("split.groups, split.order, split.holdout and split.test_file name columns or files "
+                             "of your own table; they need data.kind csv or parquet")
+        if self.split.order is not None and self.selection.repeats > 1:
+            raise ValueError("with split.order the forward-chaining folds are the same at every repeat; set "
+                             "selection.repeats to 1")
         if self.data.kind == "scenario":   # checked before the rows are drawn
             mib = self.data.n_samples * self.data.n_features * 8 / 2**20
             if mib > self.features.memory_budget_mib:

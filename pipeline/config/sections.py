@@ -81,6 +81,11 @@ class L2Spec(Settings):
         takes = KERNELS[self.kernel].params
         return {name: getattr(self, name) for name in KERNEL_SETTINGS
                 if name in takes and getattr(self, name) != "median"}
+    exact_max_rows: int = Field(8000, ge=2, description="Training rows up to which the path is exact (n × n "
+                                                         "Gram); past it the low-rank (Nyström) route is used.")
+    n_landmarks: int = Field(1000, ge=2, description="Seeded landmark rows of the low-rank route.")
+    gap_rows: int = Field(2000, ge=10, description="On the low-rank route, the report compares it with the exact "
+                                                   "route on a seeded subsample of this many training rows.")
 
 
 class FamiliesSpec(Settings):
@@ -89,7 +94,33 @@ class FamiliesSpec(Settings):
 
 
 class SplitSpec(Settings):
-    test_fraction: float = Field(0.25, gt=0.0, lt=0.9, description="Share of rows held out for testing.")
+    test_fraction: float = Field(0.25, gt=0.0, lt=0.9, description="Share of rows held out for testing (unless "
+                                                                   "holdout or test_file fixes the test rows).")
+    groups: str | None = Field(None, description="Column of group labels: rows sharing a value stay together in "
+                                                 "the test split, every CV fold and every resample.")
+    order: str | None = Field(None, description="Column of times (numbers or dates): the test rows are the last in "
+                                                "this order, CV folds train on the past and validate on the next "
+                                                "block, resamples draw contiguous blocks.")
+    gap: int = Field(0, ge=0, description="Rows (in split.order) left out between the training rows and the rows "
+                                          "they are validated or tested on.")
+    holdout: str | None = Field(None, description="Column marking fixed test rows (1/true/yes/test; training rows "
+                                                  "0/false/no/train); they are never used to fit or choose λ.")
+    test_file: str | None = Field(None, description="A CSV or Parquet file with the same columns whose rows are the "
+                                                    "fixed test set (path relative to the config file's folder).")
+
+    @model_validator(mode="after")
+    def _one_design(self) -> "SplitSpec":
+        if self.holdout is not None and self.test_file is not None:
+            raise ValueError("give split.holdout or split.test_file, not both")
+        if self.groups is not None and self.order is not None:
+            raise ValueError("split.groups and split.order together are not supported; give one")
+        if self.gap and self.order is None:
+            raise ValueError("split.gap counts rows in time order; it needs split.order")
+        return self
+
+    @property
+    def columns(self) -> tuple[str, ...]:
+        return tuple(c for c in (self.groups, self.order, self.holdout) if c is not None)
 
 
 class SelectionSpec(Settings):

@@ -16,6 +16,11 @@ class FileSource(Settings):
     kind: Literal["csv", "parquet"] = Field(description="Read a CSV or Parquet file.")
     path: str = Field(description="File path, relative to the config file's folder.")
     target: str = Field(description="Name of the column to predict.")
+    task: Literal["auto", "regression", "classification"] = Field(
+        "auto", description="What the target is. 'auto': text or true/false values, two distinct values, or at "
+                            "most 10 integer codes each in at least 5 rows are class labels (classification), "
+                            "other numbers a quantity (regression); a note says what was decided. The losses "
+                            "must be of this kind.")
 
 
 class BundledSource(Settings):

@@ -20,6 +20,19 @@ class Truth:
 
 
 @dataclass(frozen=True)
+class RowDesign:
+    """Per-row design columns (taken out of the features): groups that stay together, an order that is
+    never reversed, the rows of a fixed test set. Each is (n,) or None; `names` says which columns."""
+    groups: np.ndarray | None = None     # (n,) integer group codes
+    order: np.ndarray | None = None      # (n,) float sort keys
+    holdout: np.ndarray | None = None    # (n,) bool, True for fixed test rows
+    names: tuple[str, ...] = ()           # human description of each design column used
+
+    def arrays(self):
+        return [a for a in (self.groups, self.order, self.holdout) if a is not None]
+
+
+@dataclass(frozen=True)
 class Dataset:
     X: np.ndarray                       # (n, p) float64
     y: np.ndarray                       # (n,) float64; classification targets are −1/+1
@@ -30,6 +43,7 @@ class Dataset:
     class_labels: tuple[str, str] | None = None   # original labels for −1 and +1
     truth: Truth | None = None
     notes: tuple[str, ...] = field(default_factory=tuple)  # what loading changed (dropped columns, encodings)
+    design: RowDesign | None = None     # groups / order / fixed test rows named in the split section
 
     @property
     def n_samples(self) -> int:
@@ -45,6 +59,9 @@ class Dataset:
         h.update(np.ascontiguousarray(self.y, dtype=np.float64).tobytes())
         h.update("\x1f".join(self.feature_names).encode())
         h.update(self.target_name.encode())
+        if self.design is not None:
+            for a in self.design.arrays():
+                h.update(np.ascontiguousarray(a, dtype=np.float64).tobytes())
         return h.hexdigest()[:16]
 
     def summary(self) -> dict:

@@ -1,6 +1,7 @@
 """Turn a data section of the config into a checked `Dataset`."""
 from __future__ import annotations
 
+import dataclasses
 import difflib
 import pathlib
 
@@ -10,13 +11,16 @@ import pandas as pd
 from ..losses import CLASSIFICATION, loss_names
 from .bundled import BUNDLED
 from .dataset import DataError, Dataset
+from .design import attach_test_file, take_design
 from .scenarios import make_scenario
+from .task import infer_task
 
 MAX_CATEGORY_LEVELS = 50
 
 
-def load_dataset(source, base_dir: pathlib.Path, task: str) -> Dataset:
-    """`source` is a data section of an ExperimentSpec; `task` follows from the losses."""
+def load_dataset(source, base_dir: pathlib.Path, task: str, split=None) -> Dataset:
+    """`source` is a data section of an ExperimentSpec; `task` follows from the losses; `split` (the split
+    section) names the design columns of a file source, which are taken out of the features."""
     if source.kind == "scenario":
         ds = make_scenario(source)
         if ds.task != task:
@@ -29,7 +33,22 @@ def load_dataset(source, base_dir: pathlib.Path, task: str) -> Dataset:
     if not path.is_absolute():
         path = base_dir / path
     frame = read_table(path, source.kind)
-    return frame_to_dataset(frame, source.target, task, source=str(path))
+    frame.columns = [str(c) for c in frame.columns]
+    frame, holdout = attach_test_file(frame, split, base_dir, read_table, str(path))
+    notes = []
+    if getattr(source, "task", "auto") == "auto" and source.target in frame.columns:
+        inferred, reason = infer_task(frame[source.target])
+        if inferred != task and pd.api.types.is_numeric_dtype(frame[source.target]):
+            raise DataError(
+                f"data.task: with data.task auto, {reason}, so it reads as a {inferred} target, but the losses "
+                f"listed are {task} losses. Set data.task: {task} in the config to treat it as {task}, or list "
+                f"{inferred} losses ({', '.join(loss_names(inferred))}).")
+        if inferred == CLASSIFICATION and inferred == task:
+            notes.append(f"data.task auto: {reason}, so it is treated as class labels (classification); set "
+                         f"data.task: regression to treat a numeric code as a quantity")
+    frame, design = take_design(frame, split, source.target, str(path), holdout)
+    ds = frame_to_dataset(frame, source.target, task, source=str(path))
+    return dataclasses.replace(ds, design=design, notes=tuple(notes) + ds.notes)
 
 
 def read_table(path: pathlib.Path, kind: str) -> pd.DataFrame:
@@ -84,8 +103,12 @@ def _target(y_raw: pd.Series, target: str, task: str, source: str):
         classes = sorted(pd.unique(y_raw).tolist(), key=str)
         if len(classes) != 2:
             shown = ", ".join(repr(c) for c in classes[:6]) + (" ..." if len(classes) > 6 else "")
-            raise DataError(f"data.target: classification losses need exactly two classes, but column "
-                            f"'{target}' has {len(classes)} ({shown}).")
+            more = ("Multi-class classification is not supported yet: " if len(classes) > 2 else "")
+            raise DataError(f"data.target: {more}classification losses need exactly two classes, but column "
+                            f"'{target}' has {len(classes)} ({shown}). "
+                            + ("Merge classes into two (e.g. one class against the rest) in the file, or, if "
+                               "the values are a quantity, set data.task: regression and list regression losses."
+                               if len(classes) > 2 else "Both classes must be present."))
         y = np.where(y_raw.to_numpy() == classes[1], 1.0, -1.0)
         return y, (str(classes[0]), str(classes[1]))
     values = pd.to_numeric(y_raw, errors="coerce")

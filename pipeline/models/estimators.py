@@ -55,7 +55,7 @@ class _KernelL2Base(BaseEstimator):
             coefs.append(fit.model.path.dual_coef[best])
             intercepts.append(fit.intercept[best])
             dfs.append(fit.effective_df[best])
-            self.basis_ = fit.model.basis            # training rows, or landmarks past EXACT_MAX_ROWS
+            self.basis_ = fit.model.basis            # training rows, or landmarks past the exact-route row limit
         self.dual_coef_ = np.array(coefs)          # (k, n_basis)
         self.intercept_ = np.array(intercepts)     # (k,)
         self.effective_df_ = np.array(dfs)

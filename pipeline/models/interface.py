@@ -51,9 +51,23 @@ class Family:
     tracked_settings: tuple   # config fields of its section logged as parameters of every fit
     grid_reads_loss: bool     # the λ grid depends on the loss (else one grid serves every loss)
 
-    def gram_mib(self, n_rows: int) -> float:
+    def gram_mib(self, n_rows: int, options: dict | None = None) -> float:
         """Memory (MiB) of the kernel matrices a fit on n_rows training rows holds; 0 without any."""
         return 0.0
+
+    def for_training_rows(self, options: dict, n_train: int) -> dict:
+        """The options every split of one experiment uses, fixed from the whole training set's size (so CV
+        folds, resamples and the final fit take the same route). Default: unchanged."""
+        return options
+
+    def memory_hint(self, n_rows: int, options: dict | None = None) -> str:
+        """What to change when gram_mib is over the budget (a sentence naming the settings)."""
+        return ""
+
+    def route_check(self, n_rows: int, training, lambdas, options: dict) -> str:
+        """A sentence for the report when the fit takes an approximate route (how far from the exact one);
+        `training()` gives the training rows' features and scaled targets. Empty when exact."""
+        return ""
 
     def options(self, section, seed: int = 0) -> dict:
         """The picklable fit options from its config section; `seed` for any random choice it makes."""

@@ -87,13 +87,15 @@ SCHEMES = tuple(SCHEME_TABLE)
 
 
 def resample_indices(n: int, scheme: str = "subsample", n_resamples: int = 100, fraction: float = 0.5,
-                     rng: Any = None, y=None) -> list[np.ndarray]:
+                     rng: Any = None, y=None, groups=None) -> list[np.ndarray]:
     """Sorted row-index arrays, one per resample.
 
     subsample: floor(fraction * n) rows without replacement; bootstrap: n rows with replacement;
     complementary_pairs: n_resamples / 2 random splits into two disjoint halves, returned as
     [A1, A1', A2, A2', ...] (fraction must be 1/2). When y is given every draw is made within
-    each class separately, so class proportions are kept. rng: Generator, SeedSequence or int.
+    each class separately, so class proportions are kept. With `groups` (n,) the scheme draws whole
+    groups instead of rows (classes are then not stratified): a row is in a resample exactly when its
+    group is, as often as its group was drawn. rng: Generator, SeedSequence or int.
     """
     if scheme not in SCHEMES:
         raise ValueError(f"scheme must be one of {SCHEMES}, got {scheme!r}")
@@ -104,7 +106,29 @@ def resample_indices(n: int, scheme: str = "subsample", n_resamples: int = 100, 
     if not 0 < fraction <= 1:
         raise ValueError(f"fraction must be in (0, 1], got {fraction}")
     rng = np.random.default_rng(rng)
-    return SCHEME_TABLE[scheme].draw(rng, _by_class(n, y), n_resamples, fraction)
+    if groups is None:
+        return SCHEME_TABLE[scheme].draw(rng, _by_class(n, y), n_resamples, fraction)
+    groups = np.asarray(groups)
+    if groups.shape != (n,):
+        raise ValueError(f"groups must have shape ({n},), got {groups.shape}")
+    codes, inverse = np.unique(groups, return_inverse=True)
+    if len(codes) < 2:
+        raise ValueError(f"resampling whole groups needs at least 2 groups, found {len(codes)}")
+    members = [np.flatnonzero(inverse == g) for g in range(len(codes))]
+    drawn = SCHEME_TABLE[scheme].draw(rng, [np.arange(len(codes))], n_resamples, fraction)
+    return [np.sort(np.concatenate([members[g] for g in units])) for units in drawn]
+
+
+def order_blocks(order) -> np.ndarray:
+    """Block labels for time-ordered rows: the rows sorted by `order` cut into contiguous blocks of
+    ceil(n^(1/3)) rows (the usual rate of block length for block resampling, Hall, Horowitz & Jing 1995;
+    non-overlapping blocks as in Carlstein 1986). Resampling these blocks as groups keeps neighbours together."""
+    order = np.asarray(order)
+    n = len(order)
+    length = max(1, int(np.ceil(n ** (1 / 3))))
+    labels = np.empty(n, dtype=np.int64)
+    labels[np.argsort(order, kind="stable")] = np.arange(n) // length
+    return labels
 
 
 def in_fit_mask(n: int, resamples: list[np.ndarray]) -> np.ndarray:

@@ -35,11 +35,11 @@ def stability_losses(spec) -> tuple[str, ...]:
     return tuple(wanted)
 
 
-def resample_splits(spec, train_rows: np.ndarray, test_rows: np.ndarray, y_train, task: str) -> list:
+def resample_splits(spec, train_rows: np.ndarray, test_rows: np.ndarray, y_train, task: str, groups=None) -> list:
     st = spec.stability
     strata = y_train if task == "classification" else None
     rows = resample_indices(len(train_rows), st.scheme, st.n_resamples, st.fraction,
-                            rng=seeds.generator(spec.seed, "resampling"), y=strata)
+                            rng=seeds.generator(spec.seed, "resampling"), y=strata, groups=groups)
     return [(f"resample{m}", train_rows[r], test_rows) for m, r in enumerate(rows)]
 
 

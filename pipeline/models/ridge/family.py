@@ -1,8 +1,9 @@
 """The ridge-type family behind the common interface (pipeline.models.interface).
 
-Up to EXACT_MAX_ROWS training rows the path is exact (one eigendecomposition of the
-n × n Gram); past it the family fits the Nyström low-rank route with N_LANDMARKS seeded
-landmarks (O(n m²) instead of O(n³)) and says so in the fit's note.
+Up to `families.l2.exact_max_rows` training rows the path is exact (one eigendecomposition
+of the n × n Gram); past it the family fits the Nyström low-rank route with
+`families.l2.n_landmarks` seeded landmarks (O(n m²) instead of O(n³)), says so in the fit's
+note, and `route_check` measures how far that route is from the exact one on a subsample.
 """
 from __future__ import annotations
 
@@ -12,11 +13,18 @@ import numpy as np
 
 from pipeline.kernels import KERNELS, gram
 from pipeline.models.interface import Family, PathFit
-from pipeline.models.ridge.nystrom import fit_nystrom_path, nystrom_spectrum
+from pipeline.models.ridge.nystrom import fit_nystrom_path, nystrom_gap, nystrom_spectrum
 from pipeline.models.ridge.path import L2Path, fit_l2_path, l2_lambda_grid, predict_path, spectrum_lambda_grid
 
-EXACT_MAX_ROWS = 8000      # training rows above which the low-rank route is used
-N_LANDMARKS = 1000         # landmarks of the low-rank route
+LOW_RANK_SETTINGS = {"max_exact_rows": "exact_max_rows", "n_landmarks": "n_landmarks", "gap_rows": "gap_rows"}
+
+
+def low_rank_setting(options: dict, key: str) -> int:
+    """A low-rank setting from the fit options, else its default in the config (families.l2)."""
+    if key in options:
+        return int(options[key])
+    from pipeline.config.sections import L2Spec   # defaults live in the config only
+    return int(L2Spec.model_fields[LOW_RANK_SETTINGS[key]].default)
 
 
 @dataclass(frozen=True)
@@ -33,7 +41,9 @@ class RidgeModel:
 
 
 def _low_rank(options: dict, n: int) -> bool:
-    return n > options.get("max_exact_rows", EXACT_MAX_ROWS)
+    if "low_rank" in options:          # fixed for a whole experiment by for_training_rows
+        return bool(options["low_rank"])
+    return n > low_rank_setting(options, "max_exact_rows")
 
 
 class RidgeFamily(Family):
@@ -50,14 +60,32 @@ class RidgeFamily(Family):
     grid_reads_loss = False
     gives_certificate = False
 
-    def gram_mib(self, n_rows: int) -> float:
-        if n_rows > EXACT_MAX_ROWS:   # low rank: Φ blocks and the m × m matrices only
-            return (n_rows * N_LANDMARKS + 3 * N_LANDMARKS ** 2) * 8 / 2**20
+    def gram_mib(self, n_rows: int, options: dict | None = None) -> float:
+        options = options or {}
+        if _low_rank(options, n_rows):
+            # Φ (n × m, held whole by the non-squared losses), the m × m matrices, and the exact fit
+            # on the gap-check subsample (its K, eigenvectors and one work copy)
+            m, sub = low_rank_setting(options, "n_landmarks"), min(n_rows, low_rank_setting(options, "gap_rows"))
+            return (n_rows * m + 3 * m ** 2 + 3 * sub ** 2) * 8 / 2**20
         return n_rows ** 2 * 8 * 3 / 2**20   # K, its eigenvectors and one work copy
+
+    def for_training_rows(self, options: dict, n_train: int) -> dict:
+        # one route for the final fit, every CV fold and every resample, chosen on the whole training set
+        return {**options, "low_rank": _low_rank(options, n_train)}
+
+    def memory_hint(self, n_rows: int, options: dict | None = None) -> str:
+        options = options or {}
+        if _low_rank(options, n_rows):
+            return (f"That is already the low-rank route's memory (an n × m factor with families.l2.n_landmarks = "
+                    f"{low_rank_setting(options, 'n_landmarks')} landmarks, the exact check on "
+                    f"families.l2.gap_rows = {low_rank_setting(options, 'gap_rows')} rows); lower those")
+        return (f"The exact route holds the n × n Gram; lower families.l2.exact_max_rows (now "
+                f"{low_rank_setting(options, 'max_exact_rows')}) to take the low-rank route")
 
     def options(self, section, seed: int = 0) -> dict:
         return {"kernel": section.kernel, "kernel_params": tuple(sorted(section.kernel_params().items())),
-                "n_lambdas": section.path.points, "landmark_seed": int(seed)}
+                "n_lambdas": section.path.points, "landmark_seed": int(seed),
+                **{key: int(getattr(section, name)) for key, name in LOW_RANK_SETTINGS.items()}}
 
     def has_coefficients(self, options: dict) -> bool:
         # a kernel whose feature space is the fitted columns themselves gives f = b + Zw a weight per column
@@ -69,7 +97,7 @@ class RidgeFamily(Family):
     def grid(self, Z, t, loss, options: dict) -> np.ndarray:
         kernel, kp = self._kernel(options)
         if _low_rank(options, Z.shape[0]):
-            d = nystrom_spectrum(Z, kernel, options.get("n_landmarks", N_LANDMARKS),
+            d = nystrom_spectrum(Z, kernel, low_rank_setting(options, "n_landmarks"),
                                  options.get("landmark_seed", 0), **kp)
             return spectrum_lambda_grid(d, Z.shape[0], options["n_lambdas"])
         return l2_lambda_grid(gram(Z, kernel=kernel, **kp), options["n_lambdas"],
@@ -80,11 +108,12 @@ class RidgeFamily(Family):
         Z = np.asarray(Z, dtype=float)
         note, solver = "", "representer"
         if _low_rank(options, Z.shape[0]):
-            ny = fit_nystrom_path(Z, t, kernel, lambdas, options.get("n_landmarks", N_LANDMARKS),
+            ny = fit_nystrom_path(Z, t, kernel, lambdas, low_rank_setting(options, "n_landmarks"),
                                   options.get("landmark_seed", 0), loss=loss, **kp)
             model = RidgeModel(ny.path, ny.landmarks, kernel, ny.kernel_params)
             solver = "nystrom"
-            note = (f"{Z.shape[0]} training rows exceed {options.get('max_exact_rows', EXACT_MAX_ROWS)}: "
+            note = (f"the experiment's training rows exceed {low_rank_setting(options, 'max_exact_rows')} "
+                    f"(families.l2.exact_max_rows): "
                     f"fitted by Nyström with m = {len(ny.landmarks)} seeded landmarks "
                     f"(Williams & Seeger 2001), O(n m²) instead of O(n³)")
         else:
@@ -103,6 +132,23 @@ class RidgeFamily(Family):
 
     def predict(self, fit: PathFit, Z) -> np.ndarray:
         return fit.model.predict(Z)
+
+    def route_check(self, n_rows: int, training, lambdas, options: dict) -> str:
+        """On the low-rank route: how far it is from the exact route, measured on a seeded subsample
+        of the training rows (`training()` gives their features and scaled targets). Measured with the
+        squared loss's leave-one-out error, whatever loss was fitted (the closed form gives both routes
+        exactly). Empty on the exact route."""
+        if not _low_rank(options, n_rows):
+            return ""
+        kernel, kp = self._kernel(options)
+        Z, t = training()
+        m, sub = low_rank_setting(options, "n_landmarks"), low_rank_setting(options, "gap_rows")
+        gap = nystrom_gap(Z, t, kernel, lambdas, m, sub, options.get("landmark_seed", 0), **kp)
+        return (f"low-rank (Nyström) route on {n_rows} training rows with {m} landmarks; on a seeded subsample "
+                f"of {gap['subsample']} rows with {gap['n_landmarks']} landmarks its best leave-one-out squared "
+                f"error is {gap['relative_gap'] * 100:+.2g} % from the exact route's "
+                f"({gap['nystrom_best_loo']:.4g} against {gap['exact_best_loo']:.4g}; largest gap over the λ grid "
+                f"{gap['max_relative_gap_on_grid'] * 100:.2g} %)")
 
 
 RIDGE = RidgeFamily()
