@@ -10,10 +10,10 @@ import math
 
 import numpy as np
 
-from ..evaluate import N_BOOT
+from ..evaluate import INTERVAL_SOURCES, N_BOOT
 from ..models.families import get_family
 
-PAYLOAD_VERSION = 1
+PAYLOAD_VERSION = 2     # 2: differences are the sparse family's advantage; per-loss decision metrics
 PATH_COLUMNS = 300          # coefficient-path columns kept for the plot (in order of entry)
 
 
@@ -68,6 +68,8 @@ def _family(result, r) -> dict:
         "certificate_kind": r.path.certificate_kind, "n_features": len(result.feature_names),
         "coef_path": None, "top_features": [], "truth": None, "selected_by": r.selected_by,
         "nested": _clean(r.nested), "df_kind": r.path.df_kind,
+        "cv_chosen": _num(r.cv_mean[r.chosen_index]), "cv_chosen_se": _num(r.cv_se[r.chosen_index]),
+        "grid_end": getattr(r, "grid_end", None),   # "largest" / "smallest" when λ sits at a grid end
     }
     if get_family(r.family).has_support and r.path.coef is not None:
         out["coef_path"] = _path_columns(r.path.coef, result.feature_names)
@@ -88,7 +90,13 @@ def build_payload(result) -> dict:
     return {
         "payload_version": PAYLOAD_VERSION,
         "name": spec.name, "description": spec.description, "config": spec.resolved(),
-        "config_hash": spec.config_hash(), "data_hash": result.data_hash, "seconds": result.seconds,
+        "config_hash": spec.config_hash(), "data_hash": result.data_hash,
+        "seconds": None,   # the wall time, start to report written: filled in when the report is written
+        "fit_seconds_total": result.fit_seconds_total, "tasks_reused": result.tasks_reused,
+        "tasks_total": result.tasks_total, "level": evaluation.level,
+        "unit": getattr(spec.data, "unit", None), "interval_sources": dict(INTERVAL_SOURCES),
+        "decisions": {label: _clean(vars(d)) for label, d in evaluation.decisions.items()},
+        "verdict_override": spec.verdict.metric,
         "task": task, "primary": evaluation.primary, "primary_lower_is_better": evaluation.primary_lower_is_better,
         "rule": spec.selection.rule, "n_folds": spec.selection.cv_folds, "n_boot": N_BOOT,
         "n_rows": result.dataset.n_samples, "n_train": len(result.train_rows), "n_test": len(result.test_rows),
