@@ -86,8 +86,15 @@ def auc_interval(auc: float, n_pos: int, n_neg: int, level: float) -> tuple[floa
     def gap(theta):
         return (auc - theta) ** 2 - z2 * _hanley_mcneil_variance(theta, n_pos, n_neg)
 
-    low = 0.0 if auc <= 0 or gap(0.0) <= 0 else optimize.brentq(gap, 0.0, auc) if gap(auc) < 0 else auc
-    high = 1.0 if auc >= 1 or gap(1.0) <= 0 else optimize.brentq(gap, auc, 1.0) if gap(auc) < 0 else auc
+    # gap(0) = AUC² and gap(1) = (1 − AUC)²; just inside the estimate gap < 0 (V > 0 inside (0, 1)), so one
+    # root lies on each side. At AUC = 1 (or 0) the variance vanishes at the estimate: step just inside it.
+    low, high = 0.0, 1.0
+    if auc > 0:
+        inner = min(auc, 1 - 1e-9)
+        low = optimize.brentq(gap, 0.0, inner) if gap(inner) < 0 else inner
+    if auc < 1:
+        inner = max(auc, 1e-9)
+        high = optimize.brentq(gap, inner, 1.0) if gap(inner) < 0 else inner
     return float(low), float(high)
 
 
