@@ -82,7 +82,8 @@ def test_sparse_truth_is_won_by_the_sparse_family_on_rmse_with_its_unit(runs):
     assert v["sentence"].startswith("On RMSE, sparse (L1) is better than ridge-type (L2) by ")
     html = runs["sparse"]["html"]
     assert "RMSE (kg)" in html and "MSE ((kg)²)" in html
-    assert "squared: judged on RMSE (kg), because the squared loss fits the conditional mean" in html
+    assert "<strong>squared.</strong> Judged on RMSE (kg), because the squared loss fits the conditional mean" in html
+    assert "Sparse (L1) predicted better on the 64 held-out rows (sparse (L1) " in html
 
 
 def test_quantile_loss_is_decided_on_the_pinball_loss_at_its_level(runs):

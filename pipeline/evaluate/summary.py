@@ -32,7 +32,7 @@ def paragraph(verdict: dict, fams: dict, first: str, second: str, decision: dict
     the keys of the compared pair (sparse, ridge-type); differences are the first's advantage."""
     unit = f" {decision['unit']}" if decision.get("unit") else ""
     metric = decision["title"]
-    lead = f"{verdict['loss']}: judged on {metric}{unit and ' (' + unit.strip() + ')'}, because {decision['why']}."
+    lead = f"Judged on {metric}{unit and ' (' + unit.strip() + ')'}, because {decision['why']}."
     if verdict.get("diff") is None:
         only = next(iter(fams.values()))
         return (f"{lead} Only {only['title']} was fitted, so there is no comparison; it used {_size(only)}.")
@@ -41,15 +41,16 @@ def paragraph(verdict: dict, fams: dict, first: str, second: str, decision: dict
     low, high, adv = verdict["low"], verdict["high"], verdict["diff"]
     how = f"{level:.0%} interval {_g(low)} to {_g(high)}{unit}"
     win = None if low is None or high is None else advantage_winner(low, high)
-    scores = f"{_g(est_a)} against {_g(est_b)}{unit}"
+    scores = f"{a['title']} {_g(est_a)}{unit}, {b['title']} {_g(est_b)}{unit}"
     if win is None:
-        body = (f"Neither family is clearly better on the {n_test} held-out rows ({a['title']} {scores}; "
+        body = (f"Neither family is clearly better on the {n_test} held-out rows ({scores}; "
                 f"{a['title']}'s advantage {_g(adv)}{unit}, {how}, which contains 0), so these data do not "
                 f"decide between them.")
     else:
         better, worse = (a, b) if win == 0 else (b, a)
         body = (f"{better['title'][:1].upper() + better['title'][1:]} predicted better on the {n_test} held-out "
-                f"rows ({a['title']} {scores}), by {_g(abs(adv))}{unit} ({how}, which excludes 0).")
+                f"rows ({scores}), by {_g(abs(adv))}{unit} ({how} for the sparse family's advantage, which "
+                f"excludes 0).")
     sizes = (f" The sparse family kept {_size(a)}{_stability(stability, first)}; the ridge-type family uses "
              f"{_size(b)}{_stability(stability, second)}.")
     caveats = []

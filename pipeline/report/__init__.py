@@ -149,6 +149,10 @@ def _summaries(p) -> list[dict]:
             for v in p["verdicts"]]
 
 
+def _decision_name(d) -> str:
+    return d["title"] + (f" ({d['unit']})" if d["unit"] else "")
+
+
 def _wall_text(p) -> str:
     seconds = WALL_TOKEN if p.get("seconds") is None else f"{p['seconds']:.1f}"
     text = f"{seconds} s (start of the run to this report written)"
@@ -165,7 +169,7 @@ def render(p: dict, run_id: str) -> str:
             stab_index[(label, fam)] = f"{_g(s['stability'], 3)} [{_g(s['lower'], 3)}, {_g(s['upper'], 3)}]"
     summary = [{"loss": f["loss_label"], "family": f["title"], "lam": _g(f["lambda_chosen"]),
                 "primary": _with_interval(f, p["decisions"][f["loss_label"]]["metric"]),
-                "metric": p["decisions"][f["loss_label"]]["title"],
+                "metric": _decision_name(p["decisions"][f["loss_label"]]),
                 "stability": stab_index.get((f["loss_label"], f["family"]), "not resampled"),
                 "selected_by": f.get("selected_by", ""),
                 "nested": "—" if not f.get("nested") else f"{_g(f['nested']['mean'])} ± {_g(f['nested']['se'], 2)}",
@@ -178,7 +182,7 @@ def render(p: dict, run_id: str) -> str:
     verdicts = []
     for v in p["verdicts"]:
         fams, d = by_loss[v["loss"]], p["decisions"][v["loss"]]
-        verdicts.append({"loss": v["loss"], "metric": d["title"] + (f" ({d['unit']})" if d["unit"] else ""),
+        verdicts.append({"loss": v["loss"], "metric": _decision_name(d),
                          "why": d["why"], "lower": d["lower_is_better"],
                          "method": p["interval_sources"].get(v.get("interval_method"), "percentile bootstrap"),
                          "cells": [_with_interval(fams[f.key], d["metric"]) if f.key in fams else "not fitted"
