@@ -63,6 +63,11 @@ def runs():
     frame = pd.DataFrame(X, columns=[f"x{j}" for j in range(5)])
     frame["label"] = np.where(y == 1, "yes", "no")
     frame.to_csv(folder / "classes.csv", index=False)
+    # smooth nonlinear truth in 3 columns: y = sin(2 x0) + cos(2 x1) + x2², noise sd 0.2
+    X = rng.uniform(-1.5, 1.5, size=(160, 3))
+    smooth = pd.DataFrame(X, columns=["x0", "x1", "x2"])
+    smooth["y"] = np.sin(2 * X[:, 0]) + np.cos(2 * X[:, 1]) + X[:, 2] ** 2 + rng.normal(0, 0.2, 160)
+    smooth.to_csv(folder / "smooth.csv", index=False)
     sparse = _write(folder, "sparse-truth", {"kind": "csv", "path": "sparse.csv", "target": "y", "unit": "kg"},
                     ["squared", {"name": "quantile", "tau": 0.9}])
     out = {"folder": folder, "sparse": _run(folder, sparse)}
@@ -70,6 +75,11 @@ def runs():
                                        ["squared"]))
     out["classes"] = _run(folder, _write(folder, "separated", {"kind": "csv", "path": "classes.csv",
                                                                "target": "label"}, ["hinge"]))
+    smooth_cfg = _write(folder, "smooth-truth", {"kind": "csv", "path": "smooth.csv", "target": "y"}, ["squared"])
+    cfg = yaml.safe_load(smooth_cfg.read_text(encoding="utf-8"))
+    cfg["families"]["l2"]["kernel"] = "rbf"
+    smooth_cfg.write_text(yaml.safe_dump(cfg), encoding="utf-8")
+    out["smooth"] = _run(folder, smooth_cfg)
     out["rerun"] = _run(folder, sparse)          # every fit comes from the cache
     return out
 
@@ -102,6 +112,12 @@ def test_dense_small_effects_do_not_make_the_sparse_family_win(runs):
     assert not v["low"] > 0, v["sentence"]
 
 
+def test_smooth_nonlinear_truth_with_an_rbf_kernel_is_won_by_the_ridge_type_family(runs):
+    v = _verdict(runs["smooth"]["data"], "squared")
+    assert v["high"] < 0, v["sentence"]          # negative sparse advantage: the ridge-type family is better
+    assert v["sentence"].startswith("On RMSE, ridge-type (L2) is better than sparse (L1) by ")
+
+
 def test_a_perfect_test_set_gets_an_interval_that_is_not_zero_width(runs):
     data = runs["classes"]["data"]
     assert data["decisions"]["hinge"]["metric"] == "balanced_accuracy"
@@ -124,6 +140,10 @@ def test_one_level_stated_once_and_one_wall_time(runs):
     assert f"{wall:.1f} s (start of the run to this report written)" in html
     assert runs["sparse"]["data"]["seconds"] == pytest.approx(wall, abs=0.05)
     assert "finished in" not in out
+    from pipeline.tracking import open_store   # the same number in the tracking store
+
+    stored = open_store(f"sqlite:///{runs['folder'] / 'mlflow.db'}").get_run(runs["sparse"]["run_id"]).data.metrics
+    assert stored["seconds"] == pytest.approx(wall, abs=0.05) and stored["tasks_reused"] == 0
 
 
 def test_a_cached_rerun_shows_its_own_time_and_the_original_fit_time(runs):

@@ -1,5 +1,6 @@
-"""Evaluation: the metric registry, bootstrap intervals, paired comparisons, verdict sentences,
-ground-truth scores and the evaluation stage.
+"""Evaluation: the metric registry, each loss's decision metric, bootstrap intervals (means of per-row
+losses) and bounded intervals (proportions, AUC), paired comparisons stated as the sparse family's
+advantage, verdict and summary sentences, ground-truth scores and the evaluation stage.
 
 Point estimates come from scikit-learn's metric functions. Each metric also has a
 vectorised numpy form over a (B, n) matrix of resampled row indices, used only to

@@ -14,7 +14,7 @@ from ..evaluate import METRICS, unit_text
 from ..evaluate.summary import paragraph
 from ..models.families import FAMILIES, compared_pair, get_family
 from . import plots
-from .payload import build_payload
+from .payload import build_payload, upgrade_payload
 
 RULE_TEXT = {"min": "least CV error", "one_se": "the one-standard-error rule"}
 
@@ -185,8 +185,10 @@ def render(p: dict, run_id: str) -> str:
         verdicts.append({"loss": v["loss"], "metric": _decision_name(d),
                          "why": d["why"], "lower": d["lower_is_better"],
                          "method": p["interval_sources"].get(v.get("interval_method"), "percentile bootstrap"),
-                         "cells": [_with_interval(fams[f.key], d["metric"]) if f.key in fams else "not fitted"
-                                   for f in FAMILIES],
+                         "cells": [(_with_interval(fams[f.key], d["metric"]),
+                                    [f"{_metric_name(b, p.get('unit'))} {_with_interval(fams[f.key], b)}"
+                                     for b in d["beside"] if b in fams[f.key]["metrics"]])
+                                   if f.key in fams else ("not fitted", []) for f in FAMILIES],
                          "diff": "—" if v["diff"] is None else f"{_g(v['diff'])} [{_g(v['low'])}, {_g(v['high'])}]",
                          "sentence": v["sentence"], "reconcile": v.get("reconcile"),
                          "fold_test": _fold_test(p.get("fold_tests", {}).get(v["loss"]))})
@@ -215,6 +217,7 @@ def report_path(base_dir: pathlib.Path, directory: str, name: str, run_id: str) 
 def write_payload_report(payload: dict, run_id: str, base_dir: pathlib.Path, started: float | None = None) -> pathlib.Path:
     """Render and write the report. With `started` (a time.perf_counter() reading at the start of the run)
     the wall time — start to report written — is measured after rendering and put in both files."""
+    payload = upgrade_payload(payload)
     path = report_path(base_dir, payload["config"]["report"]["directory"], payload["name"], run_id)
     path.parent.mkdir(parents=True, exist_ok=True)
     html = render(payload, run_id)

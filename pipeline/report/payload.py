@@ -108,3 +108,21 @@ def build_payload(result) -> dict:
         "stability": _clean(result.stability),
         "versions": package_versions(),
     }
+
+
+def upgrade_payload(p: dict) -> dict:
+    """Report data stored by an older penduel (version 1) in today's form: one decision metric for every
+    loss (the task's), the raw L1 − L2 differences turned into the sparse family's advantage."""
+    if p.get("payload_version", 1) >= PAYLOAD_VERSION:
+        return p
+    p = dict(p)
+    lower, primary = p.get("primary_lower_is_better", True), p["primary"]
+    why = "the task's default decision metric (report data written by an older penduel)"
+    p["decisions"] = {v["loss"]: {"metric": primary, "title": primary.replace("_", " "), "lower_is_better": lower,
+                                  "unit": "", "beside": [], "why": why} for v in p["verdicts"]}
+    flip = (lambda v: {**v, "diff": -v["diff"], "low": -v["high"], "high": -v["low"]}) if lower else (lambda v: v)
+    p["verdicts"] = [flip(v) if v.get("diff") is not None else v for v in p["verdicts"]]
+    p["fold_tests"] = {k: {**t, "mean": -t["mean"], "low": -t["high"], "high": -t["low"]}
+                       for k, t in (p.get("fold_tests") or {}).items()}
+    p.update(level=0.9, interval_sources=dict(INTERVAL_SOURCES), payload_version=PAYLOAD_VERSION)
+    return p
