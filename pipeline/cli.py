@@ -37,17 +37,22 @@ def cmd_validate(args) -> int:
 
 
 def _summary_table(result) -> str:
-    from .evaluate import PRIMARY
-
-    primary = PRIMARY[result.dataset.task]
-    head = f"{'loss':18s} {'family':16s} {'λ chosen':>10s} {'test ' + primary:>24s} {'nonzero':>8s} {'df':>7s} {'fit s':>7s}"
-    lines = [head, "-" * len(head)]
+    """Per (loss, family): the loss's own decision metric with its interval, then one verdict line per loss."""
+    ev = result.evaluation
+    head = (f"{'loss':18s} {'family':16s} {'λ chosen':>10s} {'decision metric':>32s} {'held-out [interval]':>26s} "
+            f"{'nonzero':>8s} {'df':>7s}")
+    lines = [f"every interval: {ev.level:.0%}; differences are the sparse family's advantage (positive = sparse better)",
+             head, "-" * len(head)]
     for r in result.results:
-        lo, hi = r.intervals.get(primary, (float("nan"), float("nan")))
-        cell = f"{r.metrics[primary]:.4g} [{lo:.3g}, {hi:.3g}]"
+        d = ev.decisions[r.loss_label]
+        lo, hi = r.intervals.get(d.metric, (float("nan"), float("nan")))
+        cell = f"{r.metrics[d.metric]:.4g} [{lo:.3g}, {hi:.3g}]"
+        name = d.title + (f" ({d.unit})" if d.unit else "")
         nnz = str(r.n_nonzero) if r.n_nonzero is not None else "all"
-        lines.append(f"{r.loss_label:18s} {r.title:16s} {r.lambda_chosen:10.3g} {cell:>24s} {nnz:>8s} "
-                     f"{r.effective_df:7.1f} {r.fit_seconds:7.2f}")
+        lines.append(f"{r.loss_label:18s} {r.title:16s} {r.lambda_chosen:10.3g} {name[:32]:>32s} {cell:>26s} "
+                     f"{nnz:>8s} {r.effective_df:7.1f}")
+    for v in ev.verdicts:
+        lines.append(f"verdict ({v['loss']}): {v['sentence']}" + (f" {v['reconcile']}" if v.get("reconcile") else ""))
     return "\n".join(lines)
 
 
@@ -56,16 +61,16 @@ def cmd_run(args) -> int:
     from .runner import run_experiment
     from .tracking import ExecutionLog
 
+    started = time.perf_counter()   # the one wall time runs from here to the report written
     spec, base_dir = load_config(args.config)
     if args.tracking_uri:
         spec = spec.model_copy(update={"tracking": spec.tracking.model_copy(update={"uri": args.tracking_uri})})
     print(f"penduel: running '{spec.name}' — {len(spec.losses)} loss(es), "
           f"{spec.selection.cv_folds}-fold CV, tracking store {spec.tracking.uri}", file=sys.stderr)
-    clock = time.perf_counter()
 
     def status(text):
         if not args.quiet:
-            print(f"penduel: {text} ({time.perf_counter() - clock:.1f} s)", file=sys.stderr, flush=True)
+            print(f"penduel: {text} (at {time.perf_counter() - started:.1f} s)", file=sys.stderr, flush=True)
 
     with ExecutionLog(spec) as log:
         status(f"tracking run {log.run_id} opened")
@@ -73,12 +78,15 @@ def cmd_run(args) -> int:
         status("fits done; logging runs to the tracking store")
         log.log_results(result)
         status("writing the report")
-        path = write_report(result, log.run_id, pathlib.Path.cwd())
+        path, wall = write_report(result, log.run_id, pathlib.Path.cwd(), started)
         log.log_report(path)
+        log.log_wall_time(wall, result)
     print(_summary_table(result))
     for note in result.notes:
         print(f"note: {note}")
-    print(f"\nfinished in {result.seconds:.1f} s")
+    reused = (f"; {result.tasks_reused} of {result.tasks_total} fits reused from the cache, which originally took "
+              f"{result.fit_seconds_total:.1f} s of fitting" if result.tasks_reused else "")
+    print(f"\nwall time {wall:.1f} s (start to report written){reused}")
     print(f"report: {path}")
     print(f"run id: {log.run_id}")
     return 0

@@ -271,6 +271,10 @@ class LossKind:
     title: str                         # short human name for reports
     factory: Callable[..., Loss]       # called with the parameters below as keywords
     params: tuple[LossParam, ...] = ()
+    # the held-out metric that judges this loss first, then the ones shown beside it (names in
+    # pipeline.evaluate.METRICS); empty: the task's default decision metric
+    judged_by: tuple[str, ...] = ()
+    judged_why: str = ""               # why that metric is the loss's own scale, one clause
 
     @property
     def param_names(self) -> tuple[str, ...]:
@@ -281,7 +285,8 @@ LOSSES: dict[str, LossKind] = {}
 
 
 def register_loss(name: str, task: str, title: str, factory: Callable[..., Loss],
-                  params: tuple[LossParam, ...] = ()) -> LossKind:
+                  params: tuple[LossParam, ...] = (), judged_by: tuple[str, ...] = (),
+                  judged_why: str = "") -> LossKind:
     """Add a loss kind. Register before `pipeline.config` is imported: its choices are read once.
 
     Worker processes (backends other than local) know only the entries of the modules they
@@ -295,7 +300,7 @@ def register_loss(name: str, task: str, title: str, factory: Callable[..., Loss]
     for p in params:
         if p.name in known and known[p.name] != p:
             raise ValueError(f"loss parameter {p.name!r} is already declared differently: {known[p.name]}")
-    kind = LossKind(name, task, title, factory, tuple(params))
+    kind = LossKind(name, task, title, factory, tuple(params), tuple(judged_by), judged_why)
     LOSSES[name] = kind
     return kind
 
@@ -310,12 +315,16 @@ def all_loss_params() -> dict[str, LossParam]:
     return {p.name: p for kind in LOSSES.values() for p in kind.params}
 
 
-register_loss("squared", REGRESSION, "Squared error", SquaredLoss)
-register_loss("absolute", REGRESSION, "Absolute error", AbsoluteLoss)
+register_loss("squared", REGRESSION, "Squared error", SquaredLoss, judged_by=("rmse", "mse"),
+              judged_why="the squared loss fits the conditional mean, whose error RMSE measures in the target's unit")
+register_loss("absolute", REGRESSION, "Absolute error", AbsoluteLoss, judged_by=("mae",),
+              judged_why="the absolute loss fits the conditional median, whose error is the mean absolute error")
 register_loss("huber", REGRESSION, "Huber", HuberLoss, (
-    LossParam("delta", 1.0, "Huber threshold (on standardised target).", gt=0.0),))
+    LossParam("delta", 1.0, "Huber threshold (on standardised target).", gt=0.0),), judged_by=("huber", "mae", "rmse"),
+    judged_why="the Huber loss is the quantity this fit minimises, large residuals counted linearly")
 register_loss("quantile", REGRESSION, "Quantile (pinball)", QuantileLoss, (
-    LossParam("tau", 0.5, "Quantile level.", gt=0.0, lt=1.0),))
+    LossParam("tau", 0.5, "Quantile level.", gt=0.0, lt=1.0),), judged_by=("pinball",),
+    judged_why="a quantile fit is judged by the pinball loss at its own level τ; RMSE would judge it as a mean")
 
 from . import losses_margin  # noqa: E402,F401  (registers the margin losses; it imports Loss from here)
 

@@ -139,6 +139,10 @@ class SquaredHingeLoss(MarginLoss):
 
 
 
-register_loss("logistic", CLASSIFICATION, "Logistic", LogisticLoss)
-register_loss("hinge", CLASSIFICATION, "Hinge", HingeLoss)
-register_loss("squared_hinge", CLASSIFICATION, "Squared hinge", SquaredHingeLoss)
+register_loss("logistic", CLASSIFICATION, "Logistic", LogisticLoss, judged_by=("log_loss", "balanced_accuracy"),
+              judged_why="the logistic loss fits probabilities, which the held-out log-loss scores")
+_MARGIN_WHY = "a hinge-type fit gives labels, not calibrated probabilities, so it is judged on its labels"
+register_loss("hinge", CLASSIFICATION, "Hinge", HingeLoss, judged_by=("balanced_accuracy", "misclassification"),
+              judged_why=_MARGIN_WHY)
+register_loss("squared_hinge", CLASSIFICATION, "Squared hinge", SquaredHingeLoss,
+              judged_by=("balanced_accuracy", "misclassification"), judged_why=_MARGIN_WHY)

@@ -10,7 +10,7 @@ import numpy as np
 from . import seeds
 from .config import ExperimentSpec
 from .data import DataError, Dataset, RowDesign, load_dataset
-from .evaluate import Evaluation, evaluate_results, test_metrics
+from .evaluate import Evaluation, decisions_for, evaluate_results, test_metrics
 from .cache import cache_for, run_cached, task_keys
 from .execution import run_tasks
 from .features import output_width
@@ -68,6 +68,7 @@ class ExperimentResult:
     notes: tuple[str, ...] = field(default_factory=tuple)
     tasks_reused: int = 0          # fit tasks taken from the cache instead of refitted
     tasks_total: int = 0
+    fit_seconds_total: float = 0.0  # every fit task's own fit time, cached ones included (what the results cost)
     evaluation: Evaluation | None = None              # fold tests, paired verdicts, ground-truth scores
     stability: dict = field(default_factory=dict)     # loss label -> resampling summary
     selection_paths: dict = field(default_factory=dict)  # (loss label, family) -> (L, p) selection probabilities
@@ -208,7 +209,7 @@ def _choose(spec, cv_errors, final, n_rows: int) -> tuple[int, str]:
     return choose_lambda_index(cv_errors, spec.selection.rule), f"{spec.selection.cv_folds}-fold CV, {spec.selection.rule}"
 
 
-def assemble(spec, shared, tasks, outcomes, test_rows, rng) -> list[FamilyResult]:
+def assemble(spec, shared, tasks, outcomes, test_rows, rng, decisions=None, scale=1.0) -> list[FamilyResult]:
     by_key: dict[tuple, dict[str, tuple[FitTask, FitOutcome]]] = {}
     for t, o in zip(tasks, outcomes):
         by_key.setdefault((t.loss_label, t.family), {})[t.split] = (t, o)
@@ -223,7 +224,8 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng) -> list[FamilyResult
         idx, how = _choose(spec, cv_errors, final, len(final_task.train_idx))
         loss = get_loss(final_task.loss_name, **dict(final_task.loss_params))
         pred = final.eval_pred[idx]
-        metrics, intervals = test_metrics(shared.task, y_test, pred, loss, rng)
+        metrics, intervals = test_metrics(shared.task, y_test, pred, loss, rng, level=spec.report.level,
+                                          decision=(decisions or {}).get(label), scale=scale)
         results.append(FamilyResult(
             family=family, loss_label=label, loss_name=final_task.loss_name,
             loss_params=dict(final_task.loss_params), lambdas=final_task.lambdas, cv_errors=cv_errors,
@@ -276,18 +278,23 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     notes += tuple(dict.fromkeys(f"{get_family(o.family).title}: {o.note}" for o in outcomes
                                  if o.note and o.split == "final"))   # e.g. the low-rank route was taken
     notes += route_notes(shared, train_rows, tasks)
-    results = assemble(spec, shared, tasks, outcomes, test_rows, seeds.generator(spec.seed, "test_intervals"))
+    scale = target_scaling(shared, dataset.y[train_rows])[1]   # Huber δ in the target's unit
+    decisions = decisions_for(spec, dataset.task, scale)
+    results = assemble(spec, shared, tasks, outcomes, test_rows, seeds.generator(spec.seed, "test_intervals"),
+                       decisions, scale)
     feature_names = next(o.feature_names for o in outcomes)
     fold0 = splits[0]
     evaluation = evaluate_results(results, task=dataset.task, y_test=dataset.y[test_rows],
                                   fold_sizes=(len(fold0[1]), len(fold0[2])), dataset=dataset,
-                                  feature_names=feature_names, seed=spec.seed)
+                                  feature_names=feature_names, seed=spec.seed, level=spec.report.level,
+                                  decisions=decisions, scales={label: scale for label in decisions})
     stability = stability_stage(spec, results, feature_names,
                                 lambda: build_features(shared, train_rows).transform(shared.X[train_rows]))
     return ExperimentResult(spec=spec, dataset=dataset, data_hash=data_hash, train_rows=train_rows,
                             test_rows=test_rows, y_test=dataset.y[test_rows], feature_names=feature_names,
                             results=tuple(results), seconds=time.perf_counter() - start,
                             notes=notes, tasks_reused=reused, tasks_total=len(tasks),
+                            fit_seconds_total=float(sum(o.fit_seconds for o in outcomes)),
                             evaluation=evaluation, stability=stability.summaries,
                             design=describe_design(spec, dataset, train_rows, test_rows, splits),
                             selection_paths=stability.selection_paths)

@@ -216,7 +216,6 @@ class ExecutionLog:
             Param("seed", str(result.spec.seed)), Param("cv_folds", str(result.spec.selection.cv_folds)),
             Param("selection_rule", result.spec.selection.rule)],
             tags=[RunTag("penduel.data_hash", result.data_hash)])
-        c.log_metric(self.run_id, "seconds", result.seconds)
         for r in result.results:
             self._log_child(result, r)
 
@@ -235,6 +234,9 @@ class ExecutionLog:
                   Param("lambda_smallest", repr(float(r.lambdas[-1]))),
                   Param("solver", r.path.solver)]
         params += [Param(f"loss_{k}", repr(v)) for k, v in r.loss_params.items()]
+        decision = (getattr(result.evaluation, "decisions", None) or {}).get(r.loss_label)
+        if decision is not None:   # the held-out metric that judged this loss
+            params.append(Param("decision_metric", decision.metric))
         family = get_family(r.family)
         section = getattr(result.spec.families, family.key)
         params += [Param(name, str(getattr(section, name))) for name in family.tracked_settings]
@@ -295,6 +297,13 @@ class ExecutionLog:
             for step, lam in enumerate(r.lambdas):
                 frame[f"lambda_{step}={float(lam):.6g}"] = probs[step]
             self._log_frame(rid, frame, "selection_probabilities.csv")
+
+    def log_wall_time(self, seconds: float, result) -> None:
+        """The one wall time (start to report written) as `seconds`; with the fit time the results cost
+        originally (`fit_seconds_total`, cached fits included) and how many fits the cache supplied."""
+        self.client.log_batch(self.run_id, metrics=[
+            Metric("seconds", float(seconds), 0, 0), Metric("fit_seconds_total", float(result.fit_seconds_total), 0, 0),
+            Metric("tasks_reused", float(result.tasks_reused), 0, 0), Metric("tasks_total", float(result.tasks_total), 0, 0)])
 
     def log_report(self, path) -> None:
         """The HTML report goes to every run; its data (report_data.json) to the parent, so the report

@@ -67,13 +67,18 @@ def _fit(family, loss, value):
                                                 "lambda_chosen")}, "status": "FINISHED"}
 
 
-def test_best_row_follows_the_direction_of_the_metric():
-    executions = [{"fits": [_fit("l1", "squared", 2.0), _fit("l2", "squared", 1.0)], "verdicts": {}},
-                  {"fits": [_fit("l1", "squared", 3.0)], "verdicts": {}}]
-    (block,) = loss_tables(executions, "rmse")
-    assert [(r["execution"], r["family"]) for r in block["rows"] if r["best"]] == [(0, "l2")]
-    (block,) = loss_tables(executions, "balanced_accuracy")
-    assert [(r["execution"], r["family"]) for r in block["rows"] if r["best"]] == [(1, "l1")]
+def test_rows_are_ranked_by_the_cv_estimate_never_by_the_test_figure():
+    # the test figures favour E1's l2 (rmse 1.0), the CV estimates E2's l1: the ranking follows CV only
+    executions = [{"status": "FINISHED", "task": "regression", "verdicts": {},
+                   "fits": [_fit("l1", "squared", 2.0), _fit("l2", "squared", 1.0)],
+                   "cv": {("squared", "l1"): (0.9, 0.1), ("squared", "l2"): (0.7, 0.1)}},
+                  {"status": "FINISHED", "task": "regression", "verdicts": {}, "fits": [_fit("l1", "squared", 3.0)],
+                   "cv": {("squared", "l1"): (0.5, 0.1)}},
+                  {"status": "FAILED", "task": None, "verdicts": {}, "fits": [], "cv": {}}]
+    (block,) = loss_tables(executions, "regression")
+    assert [(r["rank"], r["execution"], r["family"]) for r in block["rows"]] == [(1, 1, "l1"), (2, 0, "l2"),
+                                                                                 (3, 0, "l1")]
+    assert "best" not in block["rows"][0] and block["winners"] == ["not fitted", "not fitted", "failed"]
 
 
 # ------------------------------------------------------------------ from the store
@@ -93,10 +98,12 @@ def test_compare_last_two_shows_both_executions_and_their_config_difference(stor
     assert "Loss: huber" in page and "Loss: squared" in page
     winners = page.split('id="winners"', 1)[1].split("</table>", 1)[0]
     huber = re.search(r'<th scope="row">huber_delta1</th>(.*?)</tr>', winners, re.S).group(1)
-    assert re.findall(r"<td>(.*?)</td>", huber)[1] == "not fitted"        # E2 (the first run) had no Huber loss
+    # cells: task, decision metric, then one per execution
+    assert re.findall(r"<td>(.*?)</td>", huber)[:2] == ["regression", "mean Huber loss (threshold 2.38)"]
+    assert re.findall(r"<td>(.*?)</td>", huber)[3] == "not fitted"        # E2 (the first run) had no Huber loss
     squared = re.findall(r"<td>(.*?)</td>", re.search(r'<th scope="row">squared</th>(.*?)</tr>', winners, re.S)
                          .group(1))
-    assert set(squared[:2]) <= {"sparse (L1)", "ridge-type (L2)", "no clear winner"}
+    assert squared[1] == "RMSE" and set(squared[2:4]) <= {"sparse (L1)", "ridge-type (L2)", "no clear winner"}
     assert "data hashes" not in page                              # same data: no warning
     # The numbers shown are the stored metrics of every child run.
     client = open_store(store["uri"])
@@ -104,7 +111,9 @@ def test_compare_last_two_shows_both_executions_and_their_config_difference(stor
         parent = client.get_run(rid)
         for child in client.search_runs([parent.info.experiment_id],
                                         filter_string=f"tags.mlflow.parentRunId = '{rid}'"):
-            assert f"{child.data.metrics['test_rmse']:.4g} [{child.data.metrics['test_rmse_low']:.4g}, " in page
+            metric = child.data.params["decision_metric"]      # each loss's own decision metric
+            assert f"{child.data.metrics['test_' + metric]:.4g} [{child.data.metrics['test_' + metric + '_low']:.4g}, " \
+                in page
 
 
 def test_compare_selected_runs_keeps_their_order(store):

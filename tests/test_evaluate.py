@@ -256,22 +256,24 @@ def test_compare_pair_agrees_with_the_separate_functions():
     b = y + 2.0 * np.random.default_rng(7).normal(size=80)
     row = compare_pair(y, a, b, "mse", name_a="sparse", name_b="ridge", rng=np.random.default_rng(3))
     assert (row["estimate_a"], *row["interval_a"]) == bootstrap_ci(y, a, "mse", rng=np.random.default_rng(3))
-    assert (row["diff"], row["diff_low"], row["diff_high"]) == pytest.approx(
-        paired_bootstrap_diff(y, a, b, "mse", rng=np.random.default_rng(3)))
-    assert row["verdict"].startswith("On mse,")
+    # one sign convention: compare_pair states a's advantage (for a loss, b − a); the helper keeps a − b
+    d, lo, hi = paired_bootstrap_diff(y, a, b, "mse", rng=np.random.default_rng(3))
+    assert (row["diff"], row["diff_low"], row["diff_high"]) == pytest.approx((-d, -hi, -lo))
+    assert row["verdict"].startswith("On MSE,")
 
 
 # ------------------------------------------------------------ verdict
 
 
 def test_verdict_sentences():
-    noise = verdict("sparse", "ridge", -0.02, -0.05, 0.01, "mse", lower_is_better=True)
-    assert "not distinguishable from noise" in noise and "contains 0" in noise
-    a_wins = verdict("sparse", "ridge", -0.2, -0.3, -0.1, "mse", lower_is_better=True)
-    assert a_wins.startswith("On mse, sparse is better than ridge by 0.2 ")
-    b_wins = verdict("sparse", "ridge", -0.04, -0.06, -0.02, "roc_auc", lower_is_better=False)
-    assert b_wins.startswith("On roc_auc, ridge is better than sparse by 0.04 ")
-    assert "could not be compared" in verdict("a", "b", 0.1, math.nan, math.nan, "mse", True)
+    # the difference is a's advantage: positive = a better, whatever the metric's direction
+    noise = verdict("sparse", "ridge", -0.02, -0.05, 0.01, "mse")
+    assert "not distinguishable" in noise and "contains 0" in noise
+    a_wins = verdict("sparse", "ridge", 0.2, 0.1, 0.3, "MSE", unit="kg²")
+    assert a_wins.startswith("On MSE, sparse is better than ridge by 0.2 kg² ") and "excludes 0" in a_wins
+    b_wins = verdict("sparse", "ridge", -0.04, -0.06, -0.02, "ROC AUC", level=0.95)
+    assert b_wins.startswith("On ROC AUC, ridge is better than sparse by 0.04 ") and "95% interval" in b_wins
+    assert "could not be compared" in verdict("a", "b", 0.1, math.nan, math.nan, "mse")
 
 
 # ------------------------------------------------------------ ground truth
@@ -368,7 +370,7 @@ def test_sparse_truth_is_won_by_the_sparse_family():
     beta = np.zeros(100)
     beta[:5] = 2.0
     row = _duel_on_linear_truth(beta, 100, 500, 20, seed=0)
-    assert row["winner"] == "sparse" and row["diff_high"] < 0
+    assert row["winner"] == "sparse" and row["diff_low"] > 0   # the sparse advantage excludes 0
 
 
 def test_dense_truth_is_won_by_the_ridge_family():
@@ -376,7 +378,7 @@ def test_dense_truth_is_won_by_the_ridge_family():
     # (random signs), noise sd 1, 15 λ. Seeds 0-4 all gave ridge winning (lowest interval [0.67, 0.94]).
     beta = 0.4 * np.random.default_rng(100).choice([-1.0, 1.0], size=60)
     row = _duel_on_linear_truth(beta, 80, 500, 15, seed=0)
-    assert row["winner"] == "ridge" and row["diff_low"] > 0
+    assert row["winner"] == "ridge" and row["diff_high"] < 0
 
 
 @pytest.mark.slow
@@ -418,7 +420,8 @@ def test_registry_declares_one_primary_metric_per_task():
         assert METRICS[name].task == task and primary_metric(task) is METRICS[name]
         assert name in task_metrics(task)
     assert evaluate.REGRESSION_METRICS == ("mse", "rmse", "mae", "pinball", "r2")
-    assert evaluate.CLASSIFICATION_METRICS == ("accuracy", "balanced_accuracy", "roc_auc", "log_loss", "brier")
+    assert evaluate.CLASSIFICATION_METRICS == ("accuracy", "misclassification", "balanced_accuracy", "roc_auc",
+                                               "log_loss", "brier")
     higher = {name for name, m in METRICS.items() if m.higher_is_better}
     assert higher == {"r2", "accuracy", "balanced_accuracy", "roc_auc"}
     assert {m.unit for m in METRICS.values()} <= {"target", "target squared", "none"}
@@ -442,8 +445,8 @@ def test_winner_is_public_and_reads_the_interval():
 def _family_result(label, family, title, pred, cv_column):
     from types import SimpleNamespace
     cv = np.column_stack([cv_column + 1.0, cv_column])
-    return SimpleNamespace(loss_label=label, family=family, title=title, test_pred=pred, cv_errors=cv,
-                           chosen_index=1, coefficients=None)
+    return SimpleNamespace(loss_label=label, loss_name=label, loss_params={}, family=family, title=title,
+                           test_pred=pred, cv_errors=cv, chosen_index=1, coefficients=None)
 
 
 def test_evaluation_stage_draws_the_paired_difference_stream_once():
@@ -466,10 +469,12 @@ def test_evaluation_stage_draws_the_paired_difference_stream_once():
     assert (first["diff"], first["low"], first["high"]) == (expected["diff"], expected["diff_low"],
                                                            expected["diff_high"])
     assert first["sentence"] == expected["verdict"]
-    assert second == {"loss": "huber", "diff": None, "low": None, "high": None,
-                      "sentence": "Only one family was fitted."}
-    # the fold test pairs the chosen columns fold by fold (Nadeau & Bengio correction, see above)
-    assert out.fold_tests["squared"] == corrected_resampled_ttest([-0.5, 0.0, 1.0], 20, 10, level=0.9)
+    assert second == {"loss": "huber", "metric": "huber", "diff": None, "low": None, "high": None,
+                      "sentence": "Only one family was fitted.", "reconcile": None}
+    assert out.decisions["squared"].metric == "rmse" and out.decisions["huber"].beside == ("mae", "rmse")
+    # the fold test pairs the chosen columns fold by fold (Nadeau & Bengio correction, see above), as the
+    # sparse family's advantage: ridge-type CV loss − sparse CV loss
+    assert out.fold_tests["squared"] == corrected_resampled_ttest([0.5, 0.0, -1.0], 20, 10, level=0.9)
     assert "huber" not in out.fold_tests
 
 

@@ -11,7 +11,7 @@ from ..losses import TASKS, loss_names
 from ..settings import Settings
 from .loss_spec import LossSpec
 from .sections import (CacheSpec, ExecutionSpec, FamiliesSpec, FeaturesSpec, ReportSpec, SelectionSpec, SplitSpec,
-                       StabilitySpec, TrackingSpec)
+                       StabilitySpec, TrackingSpec, VerdictSpec)
 from .sources import DataSource
 
 
@@ -32,6 +32,7 @@ class ExperimentSpec(Settings):
     execution: ExecutionSpec = ExecutionSpec()
     stability: StabilitySpec = StabilitySpec()
     cache: CacheSpec = CacheSpec()
+    verdict: VerdictSpec = VerdictSpec()
 
     @field_validator("losses", mode="before")
     @classmethod
@@ -67,6 +68,12 @@ class ExperimentSpec(Settings):
         if self.split.order is not None and self.selection.repeats > 1:
             raise ValueError("with split.order the forward-chaining folds are the same at every repeat; set "
                              "selection.repeats to 1")
+        if self.verdict.metric is not None:
+            from ..evaluate.metrics import METRICS
+            if METRICS[self.verdict.metric].task != self.task:
+                raise ValueError(f"verdict.metric is '{self.verdict.metric}', a {METRICS[self.verdict.metric].task} "
+                                 f"metric, but the losses are {self.task} losses; allowed: "
+                                 f"{', '.join(n for n in METRICS if METRICS[n].task == self.task)}")
         if self.data.kind == "scenario":   # checked before the rows are drawn
             mib = self.data.n_samples * self.data.n_features * 8 / 2**20
             if mib > self.features.memory_budget_mib:

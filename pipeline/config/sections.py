@@ -5,6 +5,7 @@ from typing import Annotated, Literal, Union
 
 from pydantic import Field, field_validator, model_validator
 
+from ..evaluate.metrics import METRICS
 from ..execution import BACKENDS
 from ..features import MAPS
 from ..kernels import KERNELS
@@ -165,6 +166,15 @@ class TrackingSpec(Settings):
 
 class ReportSpec(Settings):
     directory: str = Field("reports", description="Folder where reports are written.")
+    level: float = Field(0.9, ge=0.5, lt=1.0, description="Confidence level of every interval in the report "
+                                                        "(held-out metrics, differences, fold tests).")
+
+
+class VerdictSpec(Settings):
+    metric: Literal[tuple(METRICS)] | None = Field(
+        None, description="Held-out metric that decides between the families for every loss; by default each "
+                          "loss is judged on its own scale (squared: rmse, absolute: mae, quantile: pinball at τ, "
+                          "huber: huber, logistic: log_loss, hinge and squared_hinge: balanced_accuracy).")
 
 
 class CacheSpec(Settings):

@@ -12,7 +12,12 @@ SCENARIO_CHOICES: tuple[str, ...] = tuple(SCENARIOS)
 BUNDLED_CHOICES: tuple[str, ...] = tuple(BUNDLED)
 
 
-class FileSource(Settings):
+class SourceBase(Settings):
+    unit: str | None = Field(None, max_length=40, description="Unit of the target (e.g. 'kg', 'USD'), named "
+                                                             "beside every metric in the report; none: unnamed.")
+
+
+class FileSource(SourceBase):
     kind: Literal["csv", "parquet"] = Field(description="Read a CSV or Parquet file.")
     path: str = Field(description="File path, relative to the config file's folder.")
     target: str = Field(description="Name of the column to predict.")
@@ -23,13 +28,13 @@ class FileSource(Settings):
                             "must be of this kind.")
 
 
-class BundledSource(Settings):
+class BundledSource(SourceBase):
     kind: Literal["bundled"] = Field(description="An open dataset shipped with scikit-learn.")
     name: Literal[BUNDLED_CHOICES] = Field(
         description=" or ".join(b.description for b in BUNDLED.values()) + ".")
 
 
-class ScenarioSource(Settings):
+class ScenarioSource(SourceBase):
     kind: Literal["scenario"] = Field(description="A synthetic scenario that records its ground truth.")
     name: Literal[SCENARIO_CHOICES] = Field(
         description="; ".join(f"{s.name}: {s.description}" for s in SCENARIOS.values()) + ".")

@@ -1,5 +1,9 @@
-"""Comparisons of two models: the paired bootstrap on shared test rows, the corrected
-resampled t-test on shared CV folds, and the verdict sentence."""
+"""Comparisons of two models: the paired difference on shared test rows, the corrected
+resampled t-test on shared CV folds, and the verdict sentence.
+
+One sign convention: a difference is the first model's ADVANTAGE over the second in the metric's
+better direction — positive means the first (the sparse family in a verdict) is better.
+"""
 from __future__ import annotations
 
 import math
@@ -7,7 +11,9 @@ import math
 import numpy as np
 from scipy import stats
 
+from .bounded import bounded_difference, bounded_interval
 from .intervals import bootstrap_draws, bootstrap_interval
+from .metrics import as_metric
 
 
 
@@ -42,47 +48,74 @@ def corrected_resampled_ttest(diffs, n_train: int, n_test: int, level: float = 0
 
 
 def winner(low: float, high: float, lower_is_better: bool) -> int | None:
-    """0 if model a is better, 1 if b is, None when the interval of a − b holds 0 or is undefined."""
+    """0 if model a is better, 1 if b is, None when the interval of the raw difference a − b holds 0
+    or is undefined."""
     if not (np.isfinite(low) and np.isfinite(high)) or low <= 0 <= high:
         return None
     a_lower = high < 0
     return 0 if a_lower == lower_is_better else 1
 
 
-def verdict(name_a: str, name_b: str, diff: float, low: float, high: float, metric: str,
-            lower_is_better: bool, level: float = 0.9) -> str:
-    """One plain sentence about the difference a − b and its interval."""
-    detail = (f"{name_a} − {name_b} = {diff:.4g}, {level:.0%} interval [{low:.4g}, {high:.4g}]")
+def advantage_winner(low: float, high: float) -> int | None:
+    """From an interval of a's advantage over b (positive = a better): 0 if a wins, 1 if b does,
+    None when it holds 0 or is undefined."""
+    return winner(low, high, lower_is_better=False)
+
+
+def verdict(name_a: str, name_b: str, advantage: float, low: float, high: float, metric: str,
+            level: float = 0.9, unit: str = "") -> str:
+    """One plain sentence about a's advantage over b (positive = a better) and its interval."""
+    u = f" {unit}" if unit else ""
+    detail = f"{level:.0%} interval {low:.3g} to {high:.3g}{u}"
     if not (np.isfinite(low) and np.isfinite(high)):
         return f"On {metric}, {name_a} and {name_b} could not be compared: the interval is undefined."
-    win = winner(low, high, lower_is_better)
+    win = advantage_winner(low, high)
     if win is None:
-        return (f"On {metric}, the difference between {name_a} and {name_b} is not "
-                f"distinguishable from noise ({detail}, which contains 0).")
+        return (f"On {metric}, {name_a} and {name_b} are not distinguishable: {name_a}'s advantage is "
+                f"{advantage:.3g}{u} ({detail}, which contains 0).")
     better, worse = (name_a, name_b) if win == 0 else (name_b, name_a)
-    direction = "lower" if lower_is_better else "higher"
-    return (f"On {metric}, {better} is better than {worse} by {abs(diff):.4g} "
-            f"({direction} is better; {detail}, which excludes 0).")
+    return (f"On {metric}, {better} is better than {worse} by {abs(advantage):.3g}{u} "
+            f"({name_a}'s advantage {advantage:.3g}, {detail}, which excludes 0).")
+
+
+def _one_interval(metric, y, pred, values, jack, est, level, method):
+    if metric.interval == "bootstrap":
+        return bootstrap_interval(values, level, metric.name, method, est, jack)
+    hits = metric.hits(y, pred) if metric.hits is not None else None
+    return bounded_interval(metric.interval, y, pred, level, estimate=est, hits=hits)
 
 
 def compare_pair(y, pred_a, pred_b, metric, *, name_a: str, name_b: str, rng: np.random.Generator,
-                 n_boot: int = 2000, level: float = 0.9, method: str = "percentile") -> dict:
-    """One verdict-table row: each model's score with its interval and the paired
-    difference a − b, all from one shared set of resampled test rows."""
+                 n_boot: int = 2000, level: float = 0.9, method: str = "percentile", unit: str = "") -> dict:
+    """One verdict-table row: each model's score with its interval and a's advantage over b in the
+    metric's better direction (positive = a better): b − a for a loss, a − b for a score.
+
+    Means of per-row losses use a paired bootstrap (both models on the same resampled rows);
+    bounded scores (accuracy, balanced accuracy, AUC) use the intervals of `bounded` and MOVER."""
     (metric,), y, (pred_a, pred_b), values, jack = bootstrap_draws([metric], y, [pred_a, pred_b], n_boot,
                                                               level, rng, method)
     (va, vb), (ja, jb) = values[0], jack[0]
     est_a, est_b = metric(y, pred_a), metric(y, pred_b)
-    diff = est_a - est_b
-    low, high = bootstrap_interval(va - vb, level, f"the {metric.name} difference", method, diff, ja - jb)
-    win = winner(low, high, metric.lower_is_better)
+    sign = -1.0 if metric.lower_is_better else 1.0
+    interval_a = _one_interval(metric, y, pred_a, va, ja, est_a, level, method)
+    interval_b = _one_interval(metric, y, pred_b, vb, jb, est_b, level, method)
+    if metric.interval == "bootstrap":
+        low, high = bootstrap_interval(sign * (va - vb), level, f"the {metric.name} difference", method,
+                                       sign * (est_a - est_b), sign * (ja - jb))
+    else:
+        hits = None if metric.hits is None else (metric.hits(y, pred_a), metric.hits(y, pred_b))
+        lo, hi = bounded_difference(metric.interval, y, (est_a, est_b), (interval_a, interval_b), hits)
+        low, high = (lo, hi) if sign > 0 else (-hi, -lo)
+    advantage = sign * (est_a - est_b)
+    win = advantage_winner(low, high)
     return {
-        "metric": metric.name, "lower_is_better": metric.lower_is_better, "level": level, "method": method,
-        "name_a": name_a, "estimate_a": est_a, "interval_a": bootstrap_interval(va, level, metric.name, method, est_a, ja),
-        "name_b": name_b, "estimate_b": est_b, "interval_b": bootstrap_interval(vb, level, metric.name, method, est_b, jb),
-        "diff": diff, "diff_low": low, "diff_high": high,
+        "metric": metric.name, "lower_is_better": metric.lower_is_better, "level": level,
+        "method": method if metric.interval == "bootstrap" else metric.interval,
+        "name_a": name_a, "estimate_a": est_a, "interval_a": interval_a,
+        "name_b": name_b, "estimate_b": est_b, "interval_b": interval_b,
+        "diff": advantage, "diff_low": low, "diff_high": high,
         "winner": None if win is None else (name_a, name_b)[win],
-        "verdict": verdict(name_a, name_b, diff, low, high, metric.name, metric.lower_is_better, level),
+        "verdict": verdict(name_a, name_b, advantage, low, high, metric.label, level, unit),
     }
 
 
@@ -90,8 +123,11 @@ def paired_bootstrap_diff(y, pred_a, pred_b, metric, n_boot: int = 2000, level: 
                           rng: np.random.Generator, method: str = "percentile") -> tuple[float, float, float]:
     """metric(a) − metric(b) on all rows, with an interval from resampling the SAME rows
     for both, so the noise the two share cancels."""
+    metric = as_metric(metric)
     row = compare_pair(y, pred_a, pred_b, metric, name_a="a", name_b="b", rng=rng, n_boot=n_boot,
                        level=level, method=method)
+    if metric.lower_is_better:   # compare_pair states a's advantage; this helper keeps the raw a − b
+        return -row["diff"], -row["diff_high"], -row["diff_low"]
     return row["diff"], row["diff_low"], row["diff_high"]
 
 

@@ -38,6 +38,14 @@ class Metric:
     unit: str = "none"
     # metrics with a quantile level (pinball): tau -> the metric at that level
     at_level: Callable[[float], "Metric"] | None = field(default=None, repr=False, compare=False)
+    # metrics that take the loss's parameters (pinball at τ, Huber at δ): (loss, target scale) -> metric
+    from_loss: Callable[[object, float], "Metric"] | None = field(default=None, repr=False, compare=False)
+    # how its interval is made: "bootstrap" (means of per-row losses) or a key of bounded.INTERVAL_SOURCES
+    interval: str = "bootstrap"
+    # proportions: (y, pred) -> per-row 0/1 correctness, for paired differences of bounded intervals
+    hits: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = field(default=None, repr=False, compare=False)
+    # computed only when a loss is judged by it or the config names it (not in every metrics table)
+    on_demand: bool = False
 
     @property
     def higher_is_better(self) -> bool:
@@ -154,7 +162,28 @@ def _brier_pointwise(y, decision):
 
 def _pinball_metric(tau: float) -> Metric:
     return Metric("pinball", "regression", True, lambda y, f: skm.mean_pinball_loss(y, f, alpha=tau),
-                  _mean_of(_pinball(tau)), title="pinball loss", unit="target", at_level=_pinball_metric)
+                  _mean_of(_pinball(tau)), title=f"pinball loss at τ = {tau:g}", unit="target",
+                  at_level=_pinball_metric, from_loss=lambda loss, scale: _pinball_metric(getattr(loss, "tau", 0.5)))
+
+
+def _huber(delta):
+    def pointwise(y, f):
+        a = np.abs(y - f)
+        return np.where(a <= delta, 0.5 * a**2, delta * a - 0.5 * delta**2)
+    return pointwise
+
+
+def _huber_metric(delta: float) -> Metric:
+    """Mean Huber loss with its threshold in the target's unit: the loss's δ is set on the
+    standardised target, so it is δ times the training target's standard deviation here."""
+    pointwise = _huber(delta)
+    return Metric("huber", "regression", True, lambda y, f: float(np.mean(pointwise(y, f))), _mean_of(pointwise),
+                  title=f"mean Huber loss (threshold {delta:.3g})", unit="target squared", on_demand=True,
+                  from_loss=lambda loss, scale: _huber_metric(getattr(loss, "delta", 1.0) * scale))
+
+
+def _misses(y, decision):
+    return (_labels(decision) != y).astype(float)
 
 
 _REG, _CLS = "regression", "classification"
@@ -166,11 +195,14 @@ METRICS: dict[str, Metric] = {m.name: m for m in (
     Metric("mae", _REG, True, skm.mean_absolute_error, _mean_of(_absolute), title="MAE", unit="target"),
     _pinball_metric(0.5),
     Metric("r2", _REG, False, skm.r2_score, _r2_resampled, title="R²"),
+    _huber_metric(1.0),
     Metric("accuracy", _CLS, False, lambda y, f: skm.accuracy_score(y, _labels(f)), _mean_of(_hits),
-           title="accuracy"),
+           title="accuracy", interval="wilson", hits=_hits),
+    Metric("misclassification", _CLS, True, lambda y, f: 1.0 - skm.accuracy_score(y, _labels(f)),
+           _mean_of(_misses), title="misclassification rate", interval="wilson", hits=_hits),
     Metric("balanced_accuracy", _CLS, False, lambda y, f: skm.balanced_accuracy_score(y, _labels(f)),
-           _balanced_accuracy_resampled, title="balanced accuracy"),
-    Metric("roc_auc", _CLS, False, _roc_auc_single, _roc_auc_resampled, title="ROC AUC"),
+           _balanced_accuracy_resampled, title="balanced accuracy", interval="mover_wilson", hits=_hits),
+    Metric("roc_auc", _CLS, False, _roc_auc_single, _roc_auc_resampled, title="ROC AUC", interval="newcombe_auc"),
     Metric("log_loss", _CLS, True, lambda y, f: skm.log_loss(y, expit(f), labels=[-1, 1]),
            _mean_of(_log_loss_pointwise), title="log-loss"),
     Metric("brier", _CLS, True, lambda y, f: skm.brier_score_loss(y, expit(f), pos_label=1),
@@ -182,7 +214,8 @@ PRIMARY = {_REG: "rmse", _CLS: "balanced_accuracy"}
 
 
 def task_metrics(task: str) -> tuple[str, ...]:
-    return tuple(name for name, m in METRICS.items() if m.task == task)
+    """The metrics every result of a task reports (on-demand ones only when a loss is judged by them)."""
+    return tuple(name for name, m in METRICS.items() if m.task == task and not m.on_demand)
 
 
 REGRESSION_METRICS = task_metrics(_REG)
@@ -195,6 +228,20 @@ def metric_function(name: str, tau: float = 0.5) -> Metric:
         raise ValueError(f"unknown metric {name!r}; allowed: {', '.join(METRICS)}")
     m = METRICS[name]
     return m.at_level(tau) if m.at_level is not None else m
+
+
+def bound_metric(name: str, loss=None, scale: float = 1.0) -> Metric:
+    """The metric called `name` with the loss's parameters (pinball at its τ, Huber at its δ times the
+    target scale); the plain registry entry without a loss."""
+    m = metric_function(name)
+    return m.from_loss(loss, scale) if (m.from_loss is not None and loss is not None) else m
+
+
+def unit_text(metric: Metric, unit: str | None) -> str:
+    """The metric's unit given the target's unit: '' for unit-free metrics or an unnamed unit."""
+    if not unit or metric.unit == "none":
+        return ""
+    return unit if metric.unit == "target" else f"({unit})²"
 
 
 def primary_metric(task: str) -> Metric:

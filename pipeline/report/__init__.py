@@ -4,15 +4,18 @@ from __future__ import annotations
 import datetime as dt
 import json
 import pathlib
+import time
 from importlib import resources
 
 import jinja2
 import yaml
 
+from ..evaluate import METRICS, unit_text
+from ..evaluate.summary import paragraph
 from ..models.families import FAMILIES, compared_pair, get_family
 from ..selection import RULE_TABLE
 from . import plots
-from .payload import build_payload
+from .payload import build_payload, upgrade_payload
 
 
 def template_env() -> jinja2.Environment:
@@ -20,10 +23,26 @@ def template_env() -> jinja2.Environment:
     return jinja2.Environment(loader=loader, autoescape=True, undefined=jinja2.StrictUndefined)
 
 
+WALL_TOKEN = "@@penduel-wall-seconds@@"   # replaced by the wall time once the report is rendered
+
+
 def difference_label() -> str:
-    """How every paired difference reads, first family minus second ("L1 − L2")."""
+    """How every paired difference reads: the first family's advantage ("L1 advantage")."""
+    first, _ = compared_pair()
+    return f"{first.short} advantage"
+
+
+def convention_text() -> str:
     first, second = compared_pair()
-    return f"{first.short} − {second.short}"
+    return (f"Every difference in this report is the {first.title}'s advantage over the {second.title} in the "
+            f"direction in which the metric is better: positive means the {first.title} is better.")
+
+
+def _metric_name(name, unit) -> str:
+    m = METRICS.get(name)
+    label = m.label if m else name.replace("_", " ")
+    u = unit_text(m, unit) if m else ""
+    return f"{label} ({u})" if u else label
 
 
 def _g(x, digits=4) -> str:
@@ -50,7 +69,9 @@ def _loss_blocks(p) -> list[dict]:
         names = sorted({k for f in fams for k in f["metrics"]})
         blocks.append({
             "loss": label, "families": [f["title"] for f in fams],
-            "metric_rows": [{"name": m, "cells": [_with_interval(f, m) if m in f["metrics"] else "—" for f in fams]}
+            "metric_rows": [{"name": _metric_name(m, p.get("unit")) if m != "own_loss" else "own loss (mean)",
+                             "decides": m == (p.get("decisions") or {}).get(label, {}).get("metric"),
+                             "cells": [_with_interval(f, m) if m in f["metrics"] else "—" for f in fams]}
                             for m in names],
             "cv_plot": plots.cv_curves(fams, label), "df_plot": plots.error_vs_df(fams, label),
             "path_plot": plots.coefficient_path(l1) if l1 and l1["coef_path"] and l1["coef_path"]["names"] else None,
@@ -122,17 +143,41 @@ def _rule_phrase(name: str) -> str:
     return rule.phrase if rule else f"the rule '{name}'"
 
 
+def _summaries(p) -> list[dict]:
+    first, second = (f.key for f in compared_pair())
+    by_loss: dict[str, dict] = {}
+    for f in p["families"]:
+        by_loss.setdefault(f["loss_label"], {})[f["family"]] = f
+    return [{"loss": v["loss"], "text": paragraph(v, by_loss[v["loss"]], first, second, p["decisions"][v["loss"]],
+                                                  (p.get("fold_tests") or {}).get(v["loss"]),
+                                                  (p.get("stability") or {}).get(v["loss"]), p["level"], p["n_test"])}
+            for v in p["verdicts"]]
+
+
+def _decision_name(d) -> str:
+    return d["title"] + (f" ({d['unit']})" if d["unit"] else "")
+
+
+def _wall_text(p) -> str:
+    seconds = WALL_TOKEN if p.get("seconds") is None else f"{p['seconds']:.1f}"
+    text = f"{seconds} s (start of the run to this report written)"
+    if p.get("tasks_reused"):
+        text += (f"; {p['tasks_reused']} of {p['tasks_total']} fits were reused from the cache — the fits behind "
+                 f"these results originally took {p['fit_seconds_total']:.1f} s of fitting")
+    return text
+
+
 def render(p: dict, run_id: str) -> str:
-    primary = p["primary"]
     stab_index = {}
     for label, st in (p.get("stability") or {}).items():
         for fam, s in (st.get("families") or {}).items():
             stab_index[(label, fam)] = f"{_g(s['stability'], 3)} [{_g(s['lower'], 3)}, {_g(s['upper'], 3)}]"
     summary = [{"loss": f["loss_label"], "family": f["title"], "lam": _g(f["lambda_chosen"]),
+                "primary": _with_interval(f, p["decisions"][f["loss_label"]]["metric"]),
+                "metric": _decision_name(p["decisions"][f["loss_label"]]),
                 "stability": stab_index.get((f["loss_label"], f["family"]), "not resampled"),
                 "selected_by": f.get("selected_by", ""),
                 "nested": "—" if not f.get("nested") else f"{_g(f['nested']['mean'])} ± {_g(f['nested']['se'], 2)}",
-                "primary": _with_interval(f, primary),
                 "nnz": f["n_nonzero"] if f["n_nonzero"] is not None else f"all {f['n_features']}",
                 "df": _g(f["effective_df"], 3), "fit": f"{f['fit_seconds']:.2f}", "cv": f"{f['cv_seconds']:.2f}",
                 "ok": f"{sum(f['converged'])} of {len(f['lambdas'])}"} for f in p["families"]]
@@ -141,12 +186,17 @@ def render(p: dict, run_id: str) -> str:
         by_loss.setdefault(f["loss_label"], {})[f["family"]] = f
     verdicts = []
     for v in p["verdicts"]:
-        fams = by_loss[v["loss"]]
-        verdicts.append({"loss": v["loss"],
-                         "cells": [_with_interval(fams[f.key], primary) if f.key in fams else "not fitted"
-                                   for f in FAMILIES],
+        fams, d = by_loss[v["loss"]], p["decisions"][v["loss"]]
+        verdicts.append({"loss": v["loss"], "metric": _decision_name(d),
+                         "why": d["why"], "lower": d["lower_is_better"],
+                         "method": p["interval_sources"].get(v.get("interval_method"), "percentile bootstrap"),
+                         "cells": [(_with_interval(fams[f.key], d["metric"]),
+                                    [f"{_metric_name(b, p.get('unit'))} {_with_interval(fams[f.key], b)}"
+                                     for b in d["beside"] if b in fams[f.key]["metrics"]])
+                                   if f.key in fams else ("not fitted", []) for f in FAMILIES],
                          "diff": "—" if v["diff"] is None else f"{_g(v['diff'])} [{_g(v['low'])}, {_g(v['high'])}]",
-                         "sentence": v["sentence"], "fold_test": _fold_test(p.get("fold_tests", {}).get(v["loss"]))})
+                         "sentence": v["sentence"], "reconcile": v.get("reconcile"),
+                         "fold_test": _fold_test(p.get("fold_tests", {}).get(v["loss"]))})
     data_rows = [(k.replace("_", " "), _g(v) if isinstance(v, float) else v) for k, v in p["dataset"].items()]
     data_rows += [("features built", f"{p['n_features_built']} (maps: {', '.join(p['feature_maps'])})"),
                   ("training rows", p["n_train"]), ("test rows", p["n_test"])]
@@ -155,9 +205,10 @@ def render(p: dict, run_id: str) -> str:
     return template_env().get_template("execution.html").render(
         name=p["name"], description=p["description"], run_id=run_id,
         written=dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
-        config_hash=p["config_hash"], data_hash=p["data_hash"], seconds=p["seconds"],
+        config_hash=p["config_hash"], data_hash=p["data_hash"], wall=_wall_text(p),
+        level_pct=f"{p['level']:.0%}", convention=convention_text(), summaries=_summaries(p),
+        unit=p.get("unit"), sources=p["interval_sources"],
         n_test=p["n_test"], n_rows=p["n_rows"], n_boot=p["n_boot"],
-        primary_label=primary.replace("_", " ") + ("" if p["primary_lower_is_better"] else " (higher is better)"),
         rule_text=_rule_phrase(p["rule"]), verdicts=verdicts, difference=difference_label(),
         family_titles=[f.title[:1].upper() + f.title[1:] for f in FAMILIES], summary=summary, loss_blocks=_loss_blocks(p),
         n_folds=p["n_folds"], data_rows=data_rows, notes=p["notes"],
@@ -169,13 +220,24 @@ def report_path(base_dir: pathlib.Path, directory: str, name: str, run_id: str) 
     return pathlib.Path(base_dir) / directory / name / run_id / "index.html"
 
 
-def write_payload_report(payload: dict, run_id: str, base_dir: pathlib.Path) -> pathlib.Path:
+def write_payload_report(payload: dict, run_id: str, base_dir: pathlib.Path, started: float | None = None) -> pathlib.Path:
+    """Render and write the report. With `started` (a time.perf_counter() reading at the start of the run)
+    the wall time — start to report written — is measured after rendering and put in both files."""
+    payload = upgrade_payload(payload)
     path = report_path(base_dir, payload["config"]["report"]["directory"], payload["name"], run_id)
     path.parent.mkdir(parents=True, exist_ok=True)
-    path.write_text(render(payload, run_id), encoding="utf-8")
+    html = render(payload, run_id)
+    if started is not None:
+        payload["seconds"] = time.perf_counter() - started
+        html = html.replace(WALL_TOKEN, f"{payload['seconds']:.1f}")
+    path.write_text(html, encoding="utf-8")
     (path.parent / "report_data.json").write_text(json.dumps(payload, allow_nan=False), encoding="utf-8")
     return path
 
 
-def write_report(result, run_id: str, base_dir: pathlib.Path) -> pathlib.Path:
-    return write_payload_report(build_payload(result), run_id, base_dir)
+def write_report(result, run_id: str, base_dir: pathlib.Path, started: float | None = None) -> tuple[pathlib.Path, float]:
+    """(report path, wall seconds from `started` to the report written; the run's own time without it)."""
+    payload = build_payload(result)
+    path = write_payload_report(payload, run_id, base_dir, started if started is not None else
+                                time.perf_counter() - result.seconds)
+    return path, payload["seconds"]

@@ -26,31 +26,40 @@ def _when(ms) -> str:
 
 def _row(r, label) -> dict:
     secs = None if r["fit_seconds"] is None or r["cv_seconds"] is None else r["fit_seconds"] + r["cv_seconds"]
-    return {"execution": label, "family": title(r["family"]),
-            "value": _interval(r["value"], r["low"], r["high"]), "best": r["best"],
+    cv = "—" if r["cv"] is None else f"{_g(r['cv'])} ± {_g(r['cv_se'], 2)}"
+    return {"execution": label, "family": title(r["family"]), "rank": r["rank"] or "—", "cv": cv,
+            "metric": r["metric_title"], "value": _interval(r["value"], r["low"], r["high"]),
             "nnz": "all" if r["n_nonzero"] is None else f"{r['n_nonzero']:.0f}", "df": _g(r["effective_df"], 3),
             "stability": _interval(r["stability"], r["stability_low"], r["stability_high"]),
             "seconds": _g(secs, 3), "lam": _g(r["lambda_chosen"]), "status": r["status"]}
 
 
+def _time(e) -> str:
+    """The wall time, and for a cached rerun the fit time its results cost originally."""
+    text = _g(e.get("seconds"), 3)
+    if e.get("tasks_reused"):
+        text += (f" ({e['tasks_reused']:.0f} of {e['tasks_total']:.0f} fits from the cache; they took "
+                 f"{_g(e.get('fit_seconds_total'), 3)} s originally)")
+    return text
+
+
 def render_comparison(p: dict) -> str:
     labels = [f"E{i + 1}" for i in range(len(p["executions"]))]
     executions = [{"label": lab, "run_id": e["run_id"], "name": e["name"], "experiment": e["experiment"],
-                   "started": _when(e["start_time"]), "seconds": _g(e["seconds"], 3),
+                   "status": e["status"].lower(), "task": e.get("task") or "—", "error": e.get("error"),
+                   "started": _when(e["start_time"]), "seconds": _time(e),
                    "config_hash": (e["config_hash"] or "—")[:12], "data_hash": (e["data_hash"] or "—")[:12],
                    "commit": (e["git_commit"] or "—")[:10], "split": f"{e['n_train']} / {e['n_test']}"}
                   for lab, e in zip(labels, p["executions"])]
-    blocks = [{"loss": b["loss"], "rows": [_row(r, labels[r["execution"]]) for r in b["rows"]],
-               "plot": across_executions(b, labels, p["primary"]),
-               "verdicts": [(labels[i], s) for i, s in b["verdicts"]], "winners": b["winners"],
-               "best": next(({"execution": labels[r["execution"]], "family": _row(r, "")["family"],
-                              "value": _interval(r["value"], r["low"], r["high"])} for r in b["rows"] if r["best"]),
-                            None)} for b in p["losses"]]
+    blocks = [{"loss": b["loss"], "task": b["task"], "rows": [_row(r, labels[r["execution"]]) for r in b["rows"]],
+               "metrics": ", ".join(b["metrics"]),
+               "plot": across_executions(b, labels, " / ".join(b["metrics"]) or "decision metric"),
+               "verdicts": [(labels[i], s) for i, s in b["verdicts"]], "winners": b["winners"]} for b in p["losses"]]
     css = (resources.files("pipeline.report") / "templates" / "report.css").read_text(encoding="utf-8")
     return template_env().get_template("comparison.html").render(
         executions=executions, labels=labels, blocks=blocks, difference=difference_label(),
-        differences=p["differences"],
-        primary=p["primary"].replace("_", " "), higher=p["higher_is_better"], same_data=p["same_data"],
+        differences=p["differences"], tasks=p["tasks"], level_pct=f"{p['level']:.0%}",
+        levels_differ=p["levels_differ"], same_data=p["same_data"],
         written=dt.datetime.now(dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"), css=css)
 
 

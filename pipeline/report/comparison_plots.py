@@ -43,7 +43,7 @@ def across_executions(block: dict, labels: list[str], primary: str) -> str:
         a.set_xlim(-0.5, len(labels) - 0.5)
         style_axes(a)
         a.legend(fontsize=8, frameon=False)
-    ax.set_ylabel(f"held-out {primary.replace('_', ' ')} [90 % interval]")
+    ax.set_ylabel(f"held-out {primary.replace('_', ' ')} [interval]")
     ax.set_title(f"Held-out error — {block['loss']}", fontsize=10, loc="left")
     if any_time:        # a log axis needs at least one positive time
         bx.set_yscale("log")

@@ -10,10 +10,10 @@ import math
 
 import numpy as np
 
-from ..evaluate import N_BOOT
+from ..evaluate import INTERVAL_SOURCES, N_BOOT
 from ..models.families import get_family
 
-PAYLOAD_VERSION = 1
+PAYLOAD_VERSION = 2     # 2: differences are the sparse family's advantage; per-loss decision metrics
 PATH_COLUMNS = 300          # coefficient-path columns kept for the plot (in order of entry)
 
 
@@ -68,6 +68,8 @@ def _family(result, r) -> dict:
         "certificate_kind": r.path.certificate_kind, "n_features": len(result.feature_names),
         "coef_path": None, "top_features": [], "truth": None, "selected_by": r.selected_by,
         "nested": _clean(r.nested), "df_kind": r.path.df_kind,
+        "cv_chosen": _num(r.cv_mean[r.chosen_index]), "cv_chosen_se": _num(r.cv_se[r.chosen_index]),
+        "grid_end": getattr(r, "grid_end", None),   # "largest" / "smallest" when λ sits at a grid end
     }
     if get_family(r.family).has_support and r.path.coef is not None:
         out["coef_path"] = _path_columns(r.path.coef, result.feature_names)
@@ -88,7 +90,13 @@ def build_payload(result) -> dict:
     return {
         "payload_version": PAYLOAD_VERSION,
         "name": spec.name, "description": spec.description, "config": spec.resolved(),
-        "config_hash": spec.config_hash(), "data_hash": result.data_hash, "seconds": result.seconds,
+        "config_hash": spec.config_hash(), "data_hash": result.data_hash,
+        "seconds": None,   # the wall time, start to report written: filled in when the report is written
+        "fit_seconds_total": result.fit_seconds_total, "tasks_reused": result.tasks_reused,
+        "tasks_total": result.tasks_total, "level": evaluation.level,
+        "unit": getattr(spec.data, "unit", None), "interval_sources": dict(INTERVAL_SOURCES),
+        "decisions": {label: _clean(vars(d)) for label, d in evaluation.decisions.items()},
+        "verdict_override": spec.verdict.metric,
         "task": task, "primary": evaluation.primary, "primary_lower_is_better": evaluation.primary_lower_is_better,
         "rule": spec.selection.rule, "n_folds": spec.selection.cv_folds, "n_boot": N_BOOT,
         "n_rows": result.dataset.n_samples, "n_train": len(result.train_rows), "n_test": len(result.test_rows),
@@ -101,3 +109,21 @@ def build_payload(result) -> dict:
         "stability": _clean(result.stability),
         "versions": package_versions(),
     }
+
+
+def upgrade_payload(p: dict) -> dict:
+    """Report data stored by an older penduel (version 1) in today's form: one decision metric for every
+    loss (the task's), the raw L1 − L2 differences turned into the sparse family's advantage."""
+    if p.get("payload_version", 1) >= PAYLOAD_VERSION:
+        return p
+    p = dict(p)
+    lower, primary = p.get("primary_lower_is_better", True), p["primary"]
+    why = "the task's default decision metric (report data written by an older penduel)"
+    p["decisions"] = {v["loss"]: {"metric": primary, "title": primary.replace("_", " "), "lower_is_better": lower,
+                                  "unit": "", "beside": [], "why": why} for v in p["verdicts"]}
+    flip = (lambda v: {**v, "diff": -v["diff"], "low": -v["high"], "high": -v["low"]}) if lower else (lambda v: v)
+    p["verdicts"] = [flip(v) if v.get("diff") is not None else v for v in p["verdicts"]]
+    p["fold_tests"] = {k: {**t, "mean": -t["mean"], "low": -t["high"], "high": -t["low"]}
+                       for k, t in (p.get("fold_tests") or {}).items()}
+    p.update(level=0.9, interval_sources=dict(INTERVAL_SOURCES), payload_version=PAYLOAD_VERSION)
+    return p

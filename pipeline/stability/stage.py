@@ -116,7 +116,7 @@ def summarise_families(spec, outcomes_by_family: dict, lambdas_by_family: dict, 
         l2_coefs = np.stack([o.coef[chosen[TOP_K_FAMILY]] for o in l2])
         l1_pred = np.stack([o.eval_pred[chosen[SUPPORT_FAMILY]] for o in l1])
         l2_pred = np.stack([o.eval_pred[chosen[TOP_K_FAMILY]] for o in l2])
-        both = compare_families(l1_coefs, l2_coefs, l1_pred, l2_pred)
+        both = compare_families(l1_coefs, l2_coefs, l1_pred, l2_pred, level=spec.report.level)   # the report's one level
         out["families"] = {SUPPORT_FAMILY: _family_row(both["support"]), TOP_K_FAMILY: _family_row(both["top_k"])}
         if "frequency" in out:
             l2_freq = both["top_k"]["selection_frequency"]
