@@ -47,6 +47,9 @@ class FamilyResult:
     selected_by: str = ""
     nested: dict | None = None       # nested-CV estimate of the select-then-fit procedure
     resamples: tuple = ()            # FitOutcome per resample (stability stage)
+    grid_end: str | None = None      # "largest" / "smallest": the chosen λ still sits at that end of the
+    #                                  grid after widening it, so the result is not comparable at this setting
+    grid_widened: tuple = (0, 0)     # rounds the grid was widened at its (largest, smallest) end
 
     @property
     def title(self) -> str:
@@ -112,13 +115,22 @@ def split_rows(spec: ExperimentSpec, dataset: Dataset):
     return np.sort(tr), np.sort(te)
 
 
+# Rounds by which a grid whose chosen λ sits at an end is widened there and refitted.
+GRID_WIDENINGS = 2
+END_NAMES = ("largest", "smallest")
+
+
+def training_problem(shared, train_rows):
+    """The training rows' features and scaled targets, on which every family fixes its λ grid."""
+    Z = build_features(shared, train_rows).transform(shared.X[train_rows])
+    center, scale = target_scaling(shared, shared.y[train_rows])
+    return Z, (shared.y[train_rows] - center) / scale
+
+
 def family_grids(spec, shared, train_rows, losses) -> list[dict]:
     """λ grid of every enabled family for each loss, from the features and targets of the training rows.
     A family whose grid does not read the loss gets one grid for all losses."""
-    builder = build_features(shared, train_rows)
-    Z = builder.transform(shared.X[train_rows])
-    center, scale = target_scaling(shared, shared.y[train_rows])
-    t = (shared.y[train_rows] - center) / scale
+    Z, t = training_problem(shared, train_rows)
     shared_grid = {}
     out = []
     for loss in losses:
@@ -151,17 +163,72 @@ def plan_splits(spec: ExperimentSpec, dataset: Dataset, train_rows, test_rows) -
     return splits
 
 
-def plan_tasks(spec: ExperimentSpec, shared: Shared, train_rows, test_rows, splits, resamples) -> list[FitTask]:
+def plan_tasks(spec: ExperimentSpec, grids: dict, splits) -> list[FitTask]:
+    """One task per split for every (loss label, family) in `grids` (its λ grid)."""
     tasks = []
-    resampled = stability_losses(spec)
-    losses = [get_loss(ls.name, **ls.params()) for ls in spec.losses]
-    for loss_spec, grids in zip(spec.losses, family_grids(spec, shared, train_rows, losses)):
-        these = splits + (resamples if loss_spec.label in resampled else [])
-        for family, grid in grids.items():
-            common = dict(family=family, loss_name=loss_spec.name, loss_params=tuple(sorted(loss_spec.params().items())),
-                          loss_label=loss_spec.label, lambdas=grid)
-            tasks += [FitTask(split=name, train_idx=tr, eval_idx=ev, **common) for name, tr, ev in these]
+    specs = {ls.label: ls for ls in spec.losses}
+    for (label, family), grid in grids.items():
+        ls = specs[label]
+        common = dict(family=family, loss_name=ls.name, loss_params=tuple(sorted(ls.params().items())),
+                      loss_label=label, lambdas=grid)
+        tasks += [FitTask(split=name, train_idx=tr, eval_idx=ev, **common) for name, tr, ev in splits]
     return tasks
+
+
+def grid_end(spec, family, cv_errors, final, n_rows: int) -> tuple[str | None, bool]:
+    """(the end of the grid the chosen λ sits at, or None when interior or at a closed end; whether
+    widening there could move it: False when the fit is already as complex as the family gets)."""
+    idx, _ = _choose(spec, cv_errors, final)
+    L = len(final.eval_loss)
+    fam = get_family(family)
+    end = "largest" if idx == 0 else "smallest" if idx == L - 1 else None
+    if L < 2 or end is None or end in fam.closed_ends:
+        return None, False
+    n_features = len(final.feature_names)
+    last_nnz = None if final.n_nonzero is None else int(final.n_nonzero[-1])
+    return end, not (end == "smallest" and fam.saturated(last_nnz, n_rows, n_features))
+
+
+def fit_with_widening(spec, shared, train_rows, splits, run) -> tuple[list, list, dict, dict]:
+    """Fit every (loss, family) on its grid; where cross-validation picks an end that can move, widen
+    the grid there and refit through the same fit tasks (cached, any backend), up to GRID_WIDENINGS
+    rounds. Returns the tasks, their outcomes, the final grids and the widening rounds per pair."""
+    losses = [get_loss(ls.name, **ls.params()) for ls in spec.losses]
+    grids = {(ls.label, fam): g for ls, by_fam in zip(spec.losses, family_grids(spec, shared, train_rows, losses))
+             for fam, g in by_fam.items()}
+    loss_of = {ls.label: loss for ls, loss in zip(spec.losses, losses)}
+    widened = {key: [0, 0] for key in grids}
+    done: dict[tuple, tuple[list, list]] = {}
+    pending, problem = dict(grids), None
+    n_cv = spec.selection.cv_folds * spec.selection.repeats
+    for round_ in range(GRID_WIDENINGS + 1):
+        tasks = plan_tasks(spec, pending, splits)
+        outcomes = run(tasks)
+        by_pair: dict[tuple, tuple[list, list]] = {}
+        for t, o in zip(tasks, outcomes):
+            pair = by_pair.setdefault((t.loss_label, t.family), ([], []))
+            pair[0].append(t)
+            pair[1].append(o)
+        done.update(by_pair)
+        pending = {}
+        for key, (ts, os_) in by_pair.items():
+            split = {t.split: o for t, o in zip(ts, os_)}
+            cv = np.vstack([split[f"fold{k}"].eval_loss for k in range(n_cv)])
+            end, movable = grid_end(spec, key[1], cv, split["final"], len(train_rows))
+            if end is None or not movable or round_ == GRID_WIDENINGS:
+                continue
+            widened[key][END_NAMES.index(end)] += 1
+            if problem is None:
+                problem = training_problem(shared, train_rows)
+            fam = get_family(key[1])
+            pending[key] = fam.grid(*problem, loss_of[key[0]], shared.family_options[key[1]],
+                                    widen=tuple(widened[key]))
+            grids[key] = pending[key]
+        if not pending:
+            break
+    tasks = [t for ts, _ in done.values() for t in ts]
+    outcomes = [o for _, os_ in done.values() for o in os_]
+    return tasks, outcomes, grids, {k: tuple(v) for k, v in widened.items()}
 
 
 def _choose(spec, cv_errors, final) -> tuple[int, str]:
@@ -173,7 +240,7 @@ def _choose(spec, cv_errors, final) -> tuple[int, str]:
     return choose_lambda_index(cv_errors, spec.selection.rule), f"{spec.selection.cv_folds}-fold CV, {spec.selection.rule}"
 
 
-def assemble(spec, shared, tasks, outcomes, test_rows, rng) -> list[FamilyResult]:
+def assemble(spec, shared, tasks, outcomes, test_rows, rng, widened=None, n_rows=0) -> list[FamilyResult]:
     by_key: dict[tuple, dict[str, tuple[FitTask, FitOutcome]]] = {}
     for t, o in zip(tasks, outcomes):
         by_key.setdefault((t.loss_label, t.family), {})[t.split] = (t, o)
@@ -186,6 +253,7 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng) -> list[FamilyResult
         cv_errors = np.vstack([o.eval_loss for o in folds])
         cv_mean, cv_se = cv_summary(cv_errors)
         idx, how = _choose(spec, cv_errors, final)
+        end, _ = grid_end(spec, family, cv_errors, final, n_rows)
         loss = get_loss(final_task.loss_name, **dict(final_task.loss_params))
         pred = final.eval_pred[idx]
         metrics, intervals = test_metrics(shared.task, y_test, pred, loss, rng)
@@ -201,8 +269,29 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng) -> list[FamilyResult
             intercept=float(final.intercept[idx]), selected_by=how,
             nested=nested_estimate({k: o.eval_loss for k, (_, o) in splits.items()}, spec.selection.cv_folds,
                                    spec.selection.rule) if spec.selection.nested else None,
-            resamples=tuple(o for k, (_, o) in sorted(splits.items()) if k.startswith("resample"))))
+            resamples=tuple(o for k, (_, o) in sorted(splits.items()) if k.startswith("resample")),
+            grid_end=end, grid_widened=(widened or {}).get((label, family), (0, 0))))
     return results
+
+
+def grid_notes(results) -> tuple[str, ...]:
+    """Plain words on every grid that was widened, and on every choice still at an end."""
+    notes = []
+    for r in results:
+        rounds = sum(r.grid_widened)
+        where = " and ".join(f"{name}-λ end {n} time(s)" for name, n in zip(END_NAMES, r.grid_widened) if n)
+        df = f"effective df {r.effective_df:.3g}"
+        if r.grid_end:
+            notes.append(f"{r.title}, loss {r.loss_label}: cross-validation chose the {r.grid_end} λ of its grid "
+                         f"({df})" + (f" even after widening the grid at its {where}" if rounds else
+                                       ", and a wider grid cannot reach further (the fit is already as complex "
+                                       "as the family gets on these rows)")
+                         + ": its result is not comparable at this setting, and no winner is declared from it.")
+        elif rounds:
+            notes.append(f"{r.title}, loss {r.loss_label}: cross-validation first chose an end of the λ grid; "
+                         f"the grid was widened at its {where} and refitted, and the chosen λ ({df}) is now "
+                         f"inside it.")
+    return tuple(notes)
 
 
 def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool = True) -> ExperimentResult:
@@ -216,19 +305,34 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
                                                      seeds.int_seed(spec.seed, "landmarks"))
                                     for f in FAMILIES})
     splits = plan_splits(spec, dataset, train_rows, test_rows)
-    resamples = resample_splits(spec, train_rows, test_rows, dataset.y[train_rows], dataset.task) \
-        if stability_losses(spec) else []
-    tasks = plan_tasks(spec, shared, train_rows, test_rows, splits, resamples)
     data_hash = dataset.content_hash()
-    outcomes, reused = run_cached(run_tasks, run_fit, tasks, task_keys(spec, data_hash, tasks),
-                                  cache_for(spec, FitOutcome), backend=spec.execution.backend,
-                                  n_jobs=spec.execution.n_jobs, progress="fits" if progress else None,
-                                  scheduler_address=spec.execution.scheduler_address, shared=shared)
-    notes = dataset.notes + ((f"reused {reused} of {len(tasks)} finished fit task(s) from the cache "
+    reused_total, n_tasks = 0, 0
+
+    def run(tasks):
+        nonlocal reused_total, n_tasks
+        if not tasks:
+            return []
+        outcomes, reused = run_cached(run_tasks, run_fit, tasks, task_keys(spec, data_hash, tasks),
+                                      cache_for(spec, FitOutcome), backend=spec.execution.backend,
+                                      n_jobs=spec.execution.n_jobs, progress="fits" if progress else None,
+                                      scheduler_address=spec.execution.scheduler_address, shared=shared)
+        reused_total, n_tasks = reused_total + reused, n_tasks + len(tasks)
+        return outcomes
+
+    wanted = set(stability_losses(spec))
+    tasks, outcomes, grids, widened = fit_with_widening(spec, shared, train_rows, splits, run)
+    if wanted:   # resamples on each family's settled grid
+        resamples = resample_splits(spec, train_rows, test_rows, dataset.y[train_rows], dataset.task)
+        more = plan_tasks(spec, {k: g for k, g in grids.items() if k[0] in wanted}, resamples)
+        tasks, outcomes = tasks + more, outcomes + run(more)
+    reused = reused_total
+    notes = dataset.notes + ((f"reused {reused} of {n_tasks} finished fit task(s) from the cache "
                               f"'{spec.cache.directory}' (refits avoided)",) if reused else ())
     notes += tuple(dict.fromkeys(f"{get_family(o.family).title}: {o.note}" for o in outcomes
                                  if o.note and o.split == "final"))   # e.g. the low-rank route was taken
-    results = assemble(spec, shared, tasks, outcomes, test_rows, seeds.generator(spec.seed, "test_intervals"))
+    results = assemble(spec, shared, tasks, outcomes, test_rows, seeds.generator(spec.seed, "test_intervals"),
+                       widened, len(train_rows))
+    notes += grid_notes(results)
     feature_names = next(o.feature_names for o in outcomes)
     fold0 = splits[0]
     evaluation = evaluate_results(results, task=dataset.task, y_test=dataset.y[test_rows],
@@ -239,6 +343,6 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     return ExperimentResult(spec=spec, dataset=dataset, data_hash=data_hash, train_rows=train_rows,
                             test_rows=test_rows, y_test=dataset.y[test_rows], feature_names=feature_names,
                             results=tuple(results), seconds=time.perf_counter() - start,
-                            notes=notes, tasks_reused=reused, tasks_total=len(tasks),
+                            notes=notes, tasks_reused=reused, tasks_total=n_tasks,
                             evaluation=evaluation, stability=stability.summaries,
                             selection_paths=stability.selection_paths)
