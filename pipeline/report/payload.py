@@ -68,6 +68,7 @@ def _family(result, r) -> dict:
         "certificate_kind": r.path.certificate_kind, "n_features": len(result.feature_names),
         "coef_path": None, "top_features": [], "truth": None, "selected_by": r.selected_by,
         "nested": _clean(r.nested), "df_kind": r.path.df_kind,
+        "grid_end": r.grid_end, "grid_widened": list(r.grid_widened),
     }
     if get_family(r.family).has_support and r.path.coef is not None:
         out["coef_path"] = _path_columns(r.path.coef, result.feature_names)
