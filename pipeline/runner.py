@@ -9,7 +9,7 @@ import numpy as np
 
 from . import seeds
 from .config import ExperimentSpec
-from .data import DataError, Dataset, RowDesign, load_dataset
+from .data import DataError, Dataset, load_dataset
 from .evaluate import Evaluation, decisions_for, evaluate_results, test_metrics
 from .cache import cache_for, run_cached, task_keys
 from .execution import run_tasks
@@ -17,10 +17,9 @@ from .features import output_width
 from .fitting import FitOutcome, FitTask, Shared, build_features, run_fit, target_scaling
 from .losses import get_loss
 from .models.families import FAMILIES, get_family
-from .selection import (L2_CRITERIA, choose_lambda_index, cv_summary, design_line, make_folds, nested_estimate,
-                        nested_splits, test_split)
-from .stability import resample_splits, stability_losses, stability_stage
-from .stability.schemes import order_blocks
+from .selection import L2_CRITERIA, choose_lambda_index, cv_summary, nested_estimate
+from .splits import describe_design, plan_resamples, plan_splits, split_rows
+from .stability import stability_losses, stability_stage
 
 
 @dataclass(frozen=True)
@@ -48,6 +47,9 @@ class FamilyResult:
     selected_by: str = ""
     nested: dict | None = None       # nested-CV estimate of the select-then-fit procedure
     resamples: tuple = ()            # FitOutcome per resample (stability stage)
+    grid_end: str | None = None      # "largest" / "smallest": the chosen λ still sits at that end of the
+    #                                  grid after widening it, so the result is not comparable at this setting
+    grid_widened: tuple = (0, 0)     # rounds the grid was widened at its (largest, smallest) end
 
     @property
     def title(self) -> str:
@@ -97,31 +99,22 @@ def check_feature_budget(spec: ExperimentSpec, dataset: Dataset, n_train: int) -
     return width
 
 
-def split_rows(spec: ExperimentSpec, dataset: Dataset):
-    n = dataset.n_samples
-    classify = dataset.task == "classification"
-    d = dataset.design or RowDesign()
-    try:
-        tr, te = test_split(n, spec.split.test_fraction, seeds.int_seed(spec.seed, "split"), y=dataset.y,
-                            stratify=classify, groups=d.groups, order=d.order, holdout=d.holdout, gap=spec.split.gap)
-    except ValueError as exc:
-        raise DataError(f"split: cannot form the test set from {n} rows ({exc}).") from None
-    if len(tr) < spec.selection.cv_folds:
-        raise DataError(f"selection.cv_folds: {spec.selection.cv_folds} folds need at least that many training "
-                        f"rows, but only {len(tr)} remain after holding out {len(te)} test rows of {n}.")
-    if classify and np.min([np.sum(dataset.y[tr] > 0), np.sum(dataset.y[tr] < 0)]) < spec.selection.cv_folds:
-        raise DataError(f"selection.cv_folds: the smaller class has fewer training rows than the "
-                        f"{spec.selection.cv_folds} folds; use fewer folds or more data.")
-    return tr, te
+# Rounds by which a grid whose chosen λ sits at an end is widened there and refitted.
+GRID_WIDENINGS = 2
+END_NAMES = ("largest", "smallest")
+
+
+def training_problem(shared, train_rows):
+    """The training rows' features and scaled targets, on which every family fixes its λ grid."""
+    Z = build_features(shared, train_rows).transform(shared.X[train_rows])
+    center, scale = target_scaling(shared, shared.y[train_rows])
+    return Z, (shared.y[train_rows] - center) / scale
 
 
 def family_grids(spec, shared, train_rows, losses) -> list[dict]:
     """λ grid of every enabled family for each loss, from the features and targets of the training rows.
     A family whose grid does not read the loss gets one grid for all losses."""
-    builder = build_features(shared, train_rows)
-    Z = builder.transform(shared.X[train_rows])
-    center, scale = target_scaling(shared, shared.y[train_rows])
-    t = (shared.y[train_rows] - center) / scale
+    Z, t = training_problem(shared, train_rows)
     shared_grid = {}
     out = []
     for loss in losses:
@@ -141,64 +134,77 @@ def enabled_families(spec) -> list:
     return [f for f in FAMILIES if getattr(spec.families, f.key).enabled]
 
 
-def plan_splits(spec: ExperimentSpec, dataset: Dataset, train_rows, test_rows) -> list[tuple]:
-    """(name, fit rows, evaluation rows) for every split any task uses; both families share them all."""
-    classify = dataset.task == "classification"
-    K = spec.selection.cv_folds
-    design = row_design(spec, dataset, train_rows)
-    try:
-        folds = make_folds(len(train_rows), K, seeds.generator(spec.seed, "folds"), y=dataset.y[train_rows],
-                           stratify=classify, repeats=spec.selection.repeats, **design)
-        splits = [(f"fold{k}", train_rows[tr], train_rows[va]) for k, (tr, va) in enumerate(folds)]
-        splits.append(("final", train_rows, test_rows))
-        if spec.selection.nested:
-            splits += nested_splits(train_rows, dataset.y[train_rows], K, seeds.generator(spec.seed, "nested"),
-                                    classify, **design)
-    except ValueError as exc:
-        raise DataError(f"selection.cv_folds: cannot form {K} CV folds of the {len(train_rows)} training rows "
-                        f"({exc}).") from None
-    return splits
-
-
-def row_design(spec: ExperimentSpec, dataset: Dataset, rows) -> dict:
-    """The groups / order / gap of `rows` that folds respect (empty for rows split at random)."""
-    d = dataset.design or RowDesign()
-    return dict(groups=None if d.groups is None else d.groups[rows],
-                order=None if d.order is None else d.order[rows], gap=spec.split.gap)
-
-
-def plan_resamples(spec: ExperimentSpec, dataset: Dataset, train_rows, test_rows) -> list[tuple]:
-    """Stability resamples of the training rows: whole groups, or contiguous blocks of time, when the
-    design has them."""
-    units = row_design(spec, dataset, train_rows)
-    units = units["groups"] if units["order"] is None else order_blocks(units["order"])
-    try:
-        return resample_splits(spec, train_rows, test_rows, dataset.y[train_rows], dataset.task, groups=units)
-    except ValueError as exc:
-        raise DataError(f"stability.scheme: cannot draw {spec.stability.scheme} resamples of the training rows "
-                        f"({exc}).") from None
-
-
-def describe_design(spec: ExperimentSpec, dataset: Dataset, train_rows, test_rows, splits) -> str:
-    d = dataset.design or RowDesign()
-    folds = [(tr, va) for name, tr, va in splits if name.startswith("fold")]
-    return design_line(d.names, len(train_rows), len(test_rows), folds, gap=spec.split.gap,
-                       forward=d.order is not None, grouped=d.groups is not None)
-
-
-def plan_tasks(spec: ExperimentSpec, shared: Shared, train_rows, test_rows, splits, resamples) -> list[FitTask]:
+def plan_tasks(spec: ExperimentSpec, grids: dict, splits, selection_only: bool = False) -> list[FitTask]:
+    """One task per split for every (loss label, family) in `grids` (its λ grid). Resample tasks are
+    read for selection only: support and signs certified, not 1e-12 gaps."""
     tasks = []
-    resampled = stability_losses(spec)
-    losses = [get_loss(ls.name, **ls.params()) for ls in spec.losses]
-    for loss_spec, grids in zip(spec.losses, family_grids(spec, shared, train_rows, losses)):
-        for family, grid in grids.items():
-            common = dict(family=family, loss_name=loss_spec.name, loss_params=tuple(sorted(loss_spec.params().items())),
-                          loss_label=loss_spec.label, lambdas=grid)
-            tasks += [FitTask(split=name, train_idx=tr, eval_idx=ev, **common) for name, tr, ev in splits]
-            if loss_spec.label in resampled:   # read for selection: support and signs certified, not 1e-12 gaps
-                tasks += [FitTask(split=name, train_idx=tr, eval_idx=ev, selection_only=True, **common)
-                          for name, tr, ev in resamples]
+    specs = {ls.label: ls for ls in spec.losses}
+    for (label, family), grid in grids.items():
+        ls = specs[label]
+        common = dict(family=family, loss_name=ls.name, loss_params=tuple(sorted(ls.params().items())),
+                      loss_label=label, lambdas=grid, selection_only=selection_only)
+        tasks += [FitTask(split=name, train_idx=tr, eval_idx=ev, **common) for name, tr, ev in splits]
     return tasks
+
+
+def grid_end(spec, family, cv_errors, final, n_rows: int) -> tuple[str | None, bool]:
+    """(the end of the grid the chosen λ sits at, or None when interior or at a closed end; whether
+    widening there could move it). A smallest λ whose fit is already as complex as the family gets on
+    these rows (a saturated support) is a closed end, like λ_max: the family's least-penalised model was
+    chosen, which is a fair result to compare, not a grid too short."""
+    idx, _ = _choose(spec, cv_errors, final, n_rows)
+    L = len(final.eval_loss)
+    fam = get_family(family)
+    end = "largest" if idx == 0 else "smallest" if idx == L - 1 else None
+    if L < 2 or end is None or end in fam.closed_ends:
+        return None, False
+    n_features = len(final.feature_names)
+    last_nnz = None if final.n_nonzero is None else int(final.n_nonzero[-1])
+    if end == "smallest" and fam.saturated(last_nnz, n_rows, n_features):
+        return None, False
+    return end, True
+
+
+def fit_with_widening(spec, shared, train_rows, splits, run) -> tuple[list, list, dict, dict]:
+    """Fit every (loss, family) on its grid; where cross-validation picks an end that can move, widen
+    the grid there and refit through the same fit tasks (cached, any backend), up to GRID_WIDENINGS
+    rounds. Returns the tasks, their outcomes, the final grids and the widening rounds per pair."""
+    losses = [get_loss(ls.name, **ls.params()) for ls in spec.losses]
+    grids = {(ls.label, fam): g for ls, by_fam in zip(spec.losses, family_grids(spec, shared, train_rows, losses))
+             for fam, g in by_fam.items()}
+    loss_of = {ls.label: loss for ls, loss in zip(spec.losses, losses)}
+    widened = {key: [0, 0] for key in grids}
+    done: dict[tuple, tuple[list, list]] = {}
+    pending, problem = dict(grids), None
+    n_cv = spec.selection.cv_folds * spec.selection.repeats
+    for round_ in range(GRID_WIDENINGS + 1):
+        tasks = plan_tasks(spec, pending, splits)
+        outcomes = run(tasks)
+        by_pair: dict[tuple, tuple[list, list]] = {}
+        for t, o in zip(tasks, outcomes):
+            pair = by_pair.setdefault((t.loss_label, t.family), ([], []))
+            pair[0].append(t)
+            pair[1].append(o)
+        done.update(by_pair)
+        pending = {}
+        for key, (ts, os_) in by_pair.items():
+            split = {t.split: o for t, o in zip(ts, os_)}
+            cv = np.vstack([split[f"fold{k}"].eval_loss for k in range(n_cv)])
+            end, movable = grid_end(spec, key[1], cv, split["final"], len(train_rows))
+            if end is None or not movable or round_ == GRID_WIDENINGS:
+                continue
+            widened[key][END_NAMES.index(end)] += 1
+            if problem is None:
+                problem = training_problem(shared, train_rows)
+            fam = get_family(key[1])
+            pending[key] = fam.grid(*problem, loss_of[key[0]], shared.family_options[key[1]],
+                                    widen=tuple(widened[key]))
+            grids[key] = pending[key]
+        if not pending:
+            break
+    tasks = [t for ts, _ in done.values() for t in ts]
+    outcomes = [o for _, os_ in done.values() for o in os_]
+    return tasks, outcomes, grids, {k: tuple(v) for k, v in widened.items()}
 
 
 def _choose(spec, cv_errors, final, n_rows: int) -> tuple[int, str]:
@@ -209,7 +215,8 @@ def _choose(spec, cv_errors, final, n_rows: int) -> tuple[int, str]:
     return choose_lambda_index(cv_errors, spec.selection.rule), f"{spec.selection.cv_folds}-fold CV, {spec.selection.rule}"
 
 
-def assemble(spec, shared, tasks, outcomes, test_rows, rng, decisions=None, scale=1.0) -> list[FamilyResult]:
+def assemble(spec, shared, tasks, outcomes, test_rows, rng, decisions=None, scale=1.0, widened=None,
+             n_rows=0) -> list[FamilyResult]:
     by_key: dict[tuple, dict[str, tuple[FitTask, FitOutcome]]] = {}
     for t, o in zip(tasks, outcomes):
         by_key.setdefault((t.loss_label, t.family), {})[t.split] = (t, o)
@@ -222,6 +229,7 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng, decisions=None, scal
         cv_errors = np.vstack([o.eval_loss for o in folds])
         cv_mean, cv_se = cv_summary(cv_errors)
         idx, how = _choose(spec, cv_errors, final, len(final_task.train_idx))
+        end, _ = grid_end(spec, family, cv_errors, final, n_rows)
         loss = get_loss(final_task.loss_name, **dict(final_task.loss_params))
         pred = final.eval_pred[idx]
         metrics, intervals = test_metrics(shared.task, y_test, pred, loss, rng, level=spec.report.level,
@@ -238,7 +246,8 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng, decisions=None, scal
             intercept=float(final.intercept[idx]), selected_by=how,
             nested=nested_estimate({k: o.eval_loss for k, (_, o) in splits.items()}, spec.selection.cv_folds,
                                    spec.selection.rule) if spec.selection.nested else None,
-            resamples=tuple(o for k, (_, o) in sorted(splits.items()) if k.startswith("resample"))))
+            resamples=tuple(o for k, (_, o) in sorted(splits.items()) if k.startswith("resample")),
+            grid_end=end, grid_widened=(widened or {}).get((label, family), (0, 0))))
     return results
 
 
@@ -254,6 +263,26 @@ def route_notes(shared: Shared, train_rows, tasks) -> tuple[str, ...]:
     return tuple(f"{get_family(k).title}: {text}" for k, text in checks.items() if text)
 
 
+def grid_notes(results) -> tuple[str, ...]:
+    """Plain words on every grid that was widened, and on every choice still at an end."""
+    notes = []
+    for r in results:
+        rounds = sum(r.grid_widened)
+        where = " and ".join(f"{name}-λ end {n} time(s)" for name, n in zip(END_NAMES, r.grid_widened) if n)
+        df = f"effective df {r.effective_df:.3g}"
+        if r.grid_end:
+            notes.append(f"{r.title}, loss {r.loss_label}: cross-validation chose the {r.grid_end} λ of its grid "
+                         f"({df})" + (f" even after widening the grid at its {where}" if rounds else
+                                       ", and a wider grid cannot reach further (the fit is already as complex "
+                                       "as the family gets on these rows)")
+                         + ": its result is not comparable at this setting, and no winner is declared from it.")
+        elif rounds:
+            notes.append(f"{r.title}, loss {r.loss_label}: cross-validation first chose an end of the λ grid; "
+                         f"the grid was widened at its {where} and refitted, and the chosen λ ({df}) is now "
+                         f"inside it.")
+    return tuple(notes)
+
+
 def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool = True) -> ExperimentResult:
     start = time.perf_counter()
     dataset = load_dataset(spec.data, base_dir, spec.task, spec.split)
@@ -266,14 +295,28 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
                                                                len(train_rows))
                                     for f in FAMILIES})
     splits = plan_splits(spec, dataset, train_rows, test_rows)
-    resamples = plan_resamples(spec, dataset, train_rows, test_rows) if stability_losses(spec) else []
-    tasks = plan_tasks(spec, shared, train_rows, test_rows, splits, resamples)
     data_hash = dataset.content_hash()
-    outcomes, reused = run_cached(run_tasks, run_fit, tasks, task_keys(spec, data_hash, tasks),
-                                  cache_for(spec, FitOutcome), backend=spec.execution.backend,
-                                  n_jobs=spec.execution.n_jobs, progress="fits" if progress else None,
-                                  scheduler_address=spec.execution.scheduler_address, shared=shared)
-    notes = dataset.notes + ((f"reused {reused} of {len(tasks)} finished fit task(s) from the cache "
+    reused_total, n_tasks = 0, 0
+
+    def run(tasks):
+        nonlocal reused_total, n_tasks
+        if not tasks:
+            return []
+        outcomes, reused = run_cached(run_tasks, run_fit, tasks, task_keys(spec, data_hash, tasks),
+                                      cache_for(spec, FitOutcome), backend=spec.execution.backend,
+                                      n_jobs=spec.execution.n_jobs, progress="fits" if progress else None,
+                                      scheduler_address=spec.execution.scheduler_address, shared=shared)
+        reused_total, n_tasks = reused_total + reused, n_tasks + len(tasks)
+        return outcomes
+
+    wanted = set(stability_losses(spec))
+    tasks, outcomes, grids, widened = fit_with_widening(spec, shared, train_rows, splits, run)
+    if wanted:   # resamples on each family's settled grid
+        resamples = plan_resamples(spec, dataset, train_rows, test_rows)
+        more = plan_tasks(spec, {k: g for k, g in grids.items() if k[0] in wanted}, resamples, selection_only=True)
+        tasks, outcomes = tasks + more, outcomes + run(more)
+    reused = reused_total
+    notes = dataset.notes + ((f"reused {reused} of {n_tasks} finished fit task(s) from the cache "
                               f"'{spec.cache.directory}' (refits avoided)",) if reused else ())
     notes += tuple(dict.fromkeys(f"{get_family(o.family).title}: {o.note}" for o in outcomes
                                  if o.note and o.split == "final"))   # e.g. the low-rank route was taken
@@ -281,7 +324,8 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     scale = target_scaling(shared, dataset.y[train_rows])[1]   # Huber δ in the target's unit
     decisions = decisions_for(spec, dataset.task, scale)
     results = assemble(spec, shared, tasks, outcomes, test_rows, seeds.generator(spec.seed, "test_intervals"),
-                       decisions, scale)
+                       decisions, scale, widened, len(train_rows))
+    notes += grid_notes(results)
     feature_names = next(o.feature_names for o in outcomes)
     fold0 = splits[0]
     evaluation = evaluate_results(results, task=dataset.task, y_test=dataset.y[test_rows],
@@ -293,7 +337,7 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     return ExperimentResult(spec=spec, dataset=dataset, data_hash=data_hash, train_rows=train_rows,
                             test_rows=test_rows, y_test=dataset.y[test_rows], feature_names=feature_names,
                             results=tuple(results), seconds=time.perf_counter() - start,
-                            notes=notes, tasks_reused=reused, tasks_total=len(tasks),
+                            notes=notes, tasks_reused=reused, tasks_total=n_tasks,
                             fit_seconds_total=float(sum(o.fit_seconds for o in outcomes)),
                             evaluation=evaluation, stability=stability.summaries,
                             design=describe_design(spec, dataset, train_rows, test_rows, splits),

@@ -125,11 +125,13 @@ def test_interrupted_run_resumes_with_equal_results(tmp_path, monkeypatch):
         run_experiment(cached, base, progress=False)
     monkeypatch.setattr(runner, "run_fit", real_fit)
     resumed = run_experiment(cached, base, progress=False)
-    assert resumed.tasks_reused == 5 and resumed.tasks_total == reference.tasks_total == 24
-    assert any("reused 5 of 24" in n for n in resumed.notes)
+    # 24 planned tasks, plus the refits of any grid widened because CV chose its end (the same in every run)
+    total = reference.tasks_total
+    assert total >= 24 and resumed.tasks_reused == 5 and resumed.tasks_total == total
+    assert any(f"reused 5 of {total}" in n for n in resumed.notes)
     assert differing(result_numbers(reference), result_numbers(resumed)) == []
     again = run_experiment(cached, base, progress=False)
-    assert again.tasks_reused == 24
+    assert again.tasks_reused == total
     assert differing(result_numbers(reference), result_numbers(again)) == []
 
 

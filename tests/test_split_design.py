@@ -9,7 +9,8 @@ import pytest
 
 from pipeline.config import parse_config
 from pipeline.data import load_dataset
-from pipeline.runner import plan_resamples, plan_splits, run_experiment, split_rows
+from pipeline.runner import run_experiment
+from pipeline.splits import plan_resamples, plan_splits, split_rows
 from pipeline.selection import make_folds
 from pipeline.stability import resample_indices
 from pipeline.stability.schemes import order_blocks

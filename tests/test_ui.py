@@ -43,7 +43,8 @@ def test_rest_api_lists_parent_and_child_runs_with_metrics(server, store):
         assert metrics["test_rmse_low"] <= metrics["test_rmse"] <= metrics["test_rmse_high"]
         history = _get(server, "/api/2.0/mlflow/metrics/get-history", run_id=child["info"]["run_id"],
                        metric_key="cv_error")["metrics"]
-        assert sorted(h["step"] for h in history) == list(range(8))
+        n_grid = int({p["key"]: p["value"] for p in child["data"]["params"]}["path_points"])   # 8, or widened
+        assert n_grid >= 8 and sorted(h["step"] for h in history) == list(range(n_grid))
     arts = _get(server, "/api/2.0/mlflow/artifacts/list", run_id=first)["files"]
     assert {"config.yaml", "report_data.json"} <= {a["path"] for a in arts}
 

@@ -111,6 +111,13 @@ def paired_verdicts(results, y_test, decisions: dict, rng, *, level: float, scal
                        interval_method=pair["method"],
                        reconcile=reconcile(pair["diff_low"], pair["diff_high"], (fold_tests or {}).get(label),
                                            a.title, b.title))
+            at_end = [r for r in (a, b) if getattr(r, "grid_end", None)]
+            if at_end:   # a family whose chosen λ is still an end of its grid: no winner from it
+                row.update(comparable=False, reconcile=None, sentence="Not comparable at this setting: " + "; ".join(
+                    f"{r.title} chose the {r.grid_end} λ of its grid "
+                    + ("even after widening it" if sum(r.grid_widened) else "where no wider grid can go further")
+                    for r in at_end)
+                    + f", so no winner is declared on {metric.name} (the difference is shown for reference only).")
         out.append(row)
     return tuple(out)
 

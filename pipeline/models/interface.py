@@ -15,6 +15,15 @@ import numpy as np
 from pipeline.losses import Loss
 
 
+# Points a round of widening adds beyond an end of a grid: a share of the grid's points (at least
+# WIDEN_MIN_POINTS), at the grid's own spacing.
+WIDEN_SHARE, WIDEN_MIN_POINTS = 0.3, 5
+
+
+def widen_points(n_lambdas: int) -> int:
+    return max(WIDEN_MIN_POINTS, int(round(WIDEN_SHARE * n_lambdas)))
+
+
 @dataclass(frozen=True)
 class PathFit:
     """One family's path over λ on the training rows, on the scale it was fitted on."""
@@ -50,6 +59,7 @@ class Family:
     gives_certificate: bool   # each fit carries an optimality certificate
     tracked_settings: tuple   # config fields of its section logged as parameters of every fit
     grid_reads_loss: bool     # the λ grid depends on the loss (else one grid serves every loss)
+    closed_ends: tuple = ()   # grid ends ("largest", "smallest") beyond which every fit is the same
 
     def gram_mib(self, n_rows: int, options: dict | None = None) -> float:
         """Memory (MiB) of the kernel matrices a fit on n_rows training rows holds; 0 without any."""
@@ -77,9 +87,19 @@ class Family:
         """Whether fits with these options have one weight per feature."""
         raise NotImplementedError
 
-    def grid(self, Z, t, loss: Loss, options: dict) -> np.ndarray:
-        """Decreasing λ grid from the training features Z and (scaled) targets t."""
+    def why_no_coefficients(self, options: dict) -> str:
+        """Why fits with these options have no weight per feature, in a few words ("" when they have)."""
+        return ""
+
+    def grid(self, Z, t, loss: Loss, options: dict, widen=(0, 0)) -> np.ndarray:
+        """Decreasing λ grid from the training features Z and (scaled) targets t. `widen` = (a, b): the
+        rounds by which cross-validation asked to extend the largest-λ end (a) and the smallest (b)."""
         raise NotImplementedError
+
+    def saturated(self, n_nonzero_last, n_rows: int, n_features: int) -> bool:
+        """Whether the fit at the smallest λ is as complex as the family gets on n_rows rows (a wider
+        grid could not go further)."""
+        return False
 
     def fit_path(self, Z, t, loss: Loss, lambdas, options: dict) -> PathFit:
         """Fit every λ of the grid on the training features Z and targets t."""

@@ -109,21 +109,38 @@ def _stability_block(stab) -> dict | None:
     rows = []
     for family in FAMILIES:
         s = (stab.get("families") or {}).get(family.key)
-        if s:
-            rows.append({"family": f"{family.title}: {family.selected_set}", "index": f"{_g(s['stability'], 3)} [{_g(s['lower'], 3)}, {_g(s['upper'], 3)}]",
+        if not s:
+            continue
+        if s.get("applicable", "stability" in s):
+            rows.append({"family": f"{family.title}: {family.selected_set}",
+                         "index": f"{_g(s['stability'], 3)} [{_g(s['lower'], 3)}, {_g(s['upper'], 3)}]",
                          "size": _g(s["mean_set_size"], 3), "signs": _g(s["sign_agreement"], 3),
+                         "instability": _g(s["prediction_instability"], 3), "reason": ""})
+        else:
+            rows.append({"family": family.title, "reason": f"not applicable: {s.get('reason')}",
                          "instability": _g(s["prediction_instability"], 3)})
     ec = stab.get("error_control") or {}
+    shown = [fam for fam in FAMILIES if fam.key in (stab.get("frequency") or {})]
     return {"rows": rows, "scheme": stab["scheme"].replace("_", " "), "n": stab["n_resamples"],
             "fraction": stab["fraction"], "threshold": stab["threshold"],
             "group_correlation": stab.get("group_correlation", 0.9),
             "paths_plot": plots.stability_paths(stab) if stab.get("l1_paths") else None,
             "freq_plot": plots.selection_frequency(stab) if stab.get("frequency") else None,
-            "target": stab["target_false_selections"], "ec": ec and {
+            "freq_families": " and ".join(f.title for f in shown) if len(shown) > 1 else
+            (f"{shown[0].title} only" if shown else ""),
+            "not_applicable": [f"{get_family(k).title}: {v}" for k, v in (stab.get("not_applicable") or {}).items()],
+            "target": stab["target_false_selections"],
+            "no_bound": None if ec.get("shown", True) else ec.get("reason"),
+            "ec": ec and ec.get("shown", True) and {
+                "source": ec.get("source", "Meinshausen & Bühlmann (2010), Theorem 1"),
+                "formula": ec.get("formula", "E[V] ≤ q² / ((2π − 1) p)"), "meaning": ec.get("meaning", ""),
                 "range": "none of the grid" if ec.get("lambda_min") is None else
                 f"{_g(ec['lambda_min'])} … {_g(ec['lambda_max'])}",
-                "q": _g(ec.get("q"), 3), "bound": _g(ec.get("bound"), 3), "stable": ", ".join(ec.get("stable_set") or [])
-                or "none"},
+                "q": _g(ec.get("q"), 3), "bound": _g(ec.get("bound"), 3),
+                "unimodal": None if "unimodal" not in ec else (
+                    _g(ec["unimodal"], 3) if ec["unimodal"] is not None else
+                    "not covered at this threshold and q (needs π above ½ + (q/p)² and q/p ≤ 1/√3)"),
+                "stable": ", ".join(ec.get("stable_set") or []) or "none"},
             "stable_at_chosen": ", ".join(stab.get("stable_at_chosen") or []) or "none",
             "groups": [{"features": ", ".join(g["features"]), "freqs": ", ".join(_g(x, 2) for x in g["frequencies"]),
                         "any": _g(g["any_member_frequency"], 2), "together": _g(g["mean_members_selected"], 2)}
@@ -171,7 +188,10 @@ def render(p: dict, run_id: str) -> str:
     stab_index = {}
     for label, st in (p.get("stability") or {}).items():
         for fam, s in (st.get("families") or {}).items():
-            stab_index[(label, fam)] = f"{_g(s['stability'], 3)} [{_g(s['lower'], 3)}, {_g(s['upper'], 3)}]"
+            stab_index[(label, fam)] = (f"{_g(s['stability'], 3)} [{_g(s['lower'], 3)}, {_g(s['upper'], 3)}]"
+                                        if s.get("applicable", "stability" in s) else
+                                        "not applicable (no weight per feature; prediction instability "
+                                        f"{_g(s['prediction_instability'], 3)})")
     summary = [{"loss": f["loss_label"], "family": f["title"], "lam": _g(f["lambda_chosen"]),
                 "primary": _with_interval(f, p["decisions"][f["loss_label"]]["metric"]),
                 "metric": _decision_name(p["decisions"][f["loss_label"]]),

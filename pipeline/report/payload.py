@@ -69,7 +69,7 @@ def _family(result, r) -> dict:
         "coef_path": None, "top_features": [], "truth": None, "selected_by": r.selected_by,
         "nested": _clean(r.nested), "df_kind": r.path.df_kind,
         "cv_chosen": _num(r.cv_mean[r.chosen_index]), "cv_chosen_se": _num(r.cv_se[r.chosen_index]),
-        "grid_end": getattr(r, "grid_end", None),   # "largest" / "smallest" when λ sits at a grid end
+        "grid_end": r.grid_end, "grid_widened": list(r.grid_widened),   # grid_end: "largest" / "smallest"
     }
     if get_family(r.family).has_support and r.path.coef is not None:
         out["coef_path"] = _path_columns(r.path.coef, result.feature_names)

@@ -227,7 +227,8 @@ def selection_frequency(stab: dict) -> str:
     ax.set_yticks(y, [n[:40] for n in names], fontsize=7)
     ax.set_xlim(0, 1)
     ax.set_xlabel("share of resamples")
-    ax.set_title("Selection frequency at the chosen λ", fontsize=10)
+    ax.set_title("Selection frequency at the chosen λ" + ("" if len(present) > 1 else f" — {present[0].title} only"),
+                 fontsize=10)
     ax.legend(fontsize=7, loc="lower right")
     ax.grid(alpha=0.3, axis="x")
     fig.tight_layout()

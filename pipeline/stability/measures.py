@@ -58,8 +58,11 @@ def union_sizes(coef_paths: np.ndarray, tol: float = 0.0) -> np.ndarray:
 
 
 def lambda_range_for_error_bound(coef_paths: np.ndarray, lambdas: np.ndarray, threshold: float,
-                                 target_ev: float, tol: float = 0.0) -> dict:
-    """The widest λ range [λ_lo, λ_max] of the grid whose Meinshausen–Bühlmann bound meets target_ev.
+                                 target_ev: float, tol: float = 0.0, bound=None) -> dict:
+    """The widest λ range [λ_lo, λ_max] of the grid whose error bound meets target_ev.
+
+    `bound(q, threshold, p)` defaults to Meinshausen & Bühlmann's (pipeline.stability.bounds has the
+    others, and which resampling each needs).
 
     The range always starts at the largest λ of the grid (the sparsest fits) and grows towards
     smaller λ while the bound q_Λ² / ((2π_thr − 1)p) stays at or below target_ev; q_Λ (the mean
@@ -76,7 +79,8 @@ def lambda_range_for_error_bound(coef_paths: np.ndarray, lambdas: np.ndarray, th
     p = coef_paths.shape[2]
     order = np.argsort(-lambdas, kind="stable")
     q_path = union_sizes(coef_paths[:, order], tol)
-    bounds = np.array([mb_error_bound(q, threshold, p) for q in q_path])
+    bound = mb_error_bound if bound is None else bound
+    bounds = np.array([bound(q, threshold, p) for q in q_path])
     ok = np.flatnonzero(np.cumprod(bounds <= target_ev))
     q_allowed = float(np.sqrt(target_ev * (2.0 * threshold - 1.0) * p))
     if ok.size == 0:

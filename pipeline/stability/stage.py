@@ -13,9 +13,10 @@ import numpy as np
 
 from .. import seeds
 from ..models.families import FAMILIES
-from .measures import (compare_families, correlated_groups_sharing, lambda_range_for_error_bound,
-                       selection_probabilities)
-from .schemes import resample_indices
+from .bounds import bound_for, ss_unimodal_bound
+from .measures import (compare_families, correlated_groups_sharing, family_stability,
+                       lambda_range_for_error_bound, prediction_instability, selection_probabilities)
+from .schemes import SCHEME_TABLE, resample_indices
 
 TOP_FEATURES = 20
 # the family whose fits select a support, and the one compared with it by its top-k |w| set
@@ -53,6 +54,16 @@ class StabilityResult:
     selection_paths: dict = field(default_factory=dict)  # (loss label, family) -> (L, p) selection probabilities
 
 
+def coefficient_gaps(spec) -> dict:
+    """family key -> why its fits have no weight per feature ("" when they have), asked of the family."""
+    out = {}
+    for f in FAMILIES:
+        options = f.options(getattr(spec.families, f.key))
+        out[f.key] = "" if f.has_coefficients(options) else (f.why_no_coefficients(options) or
+                                                              "its fits have no weight per feature")
+    return out
+
+
 def stability_stage(spec, results, feature_names, train_features) -> StabilityResult:
     """Summaries of every loss whose fits were resampled. `train_features()` builds the training
     rows' feature matrix (for correlated groups) only when some loss needs it."""
@@ -62,6 +73,7 @@ def stability_stage(spec, results, feature_names, train_features) -> StabilityRe
     for r in results:
         if r.resamples:
             by_loss.setdefault(r.loss_label, {})[r.family] = r
+    gaps = coefficient_gaps(spec)
     for label, d in by_loss.items():
         if Z_train is None:
             Z_train = train_features()
@@ -69,22 +81,45 @@ def stability_stage(spec, results, feature_names, train_features) -> StabilityRe
         summaries[label] = summarise_families(spec, {f: list(r.resamples) for f, r in d.items()},
                                               {f: r.lambdas for f, r in d.items()},
                                               {f: r.chosen_index for f, r in d.items()}, feature_names, Z_train,
-                                              paths_out=found)
+                                              paths_out=found, gaps=gaps)
         paths.update({(label, f): p for f, p in found.items()})
     return StabilityResult(summaries, paths)
 
 
+def _error_control(st, paths, lambdas, feature_names) -> dict:
+    """The stable-set bound whose assumptions this resampling meets, or the reason none is shown."""
+    bound, reason = bound_for(SCHEME_TABLE[st.scheme], st.fraction)
+    if bound is None:
+        return {"shown": False, "reason": reason}
+    control = lambda_range_for_error_bound(paths, lambdas, st.threshold, st.target_false_selections,
+                                           bound=bound.value)
+    out = {"shown": True, "source": bound.title, "meaning": bound.bounds, "formula": bound.formula,
+           "lambda_min": control["lambda_min"], "lambda_max": control["lambda_max"], "q": control["q"],
+           "bound": control["bound"], "q_allowed": control["q_allowed"],
+           "stable_set": _names(feature_names, control["stable_set"])}
+    if SCHEME_TABLE[st.scheme].paired:
+        out["unimodal"] = ss_unimodal_bound(control["q"], st.threshold, paths.shape[2], st.n_resamples // 2)
+    return out
+
+
 def summarise_families(spec, outcomes_by_family: dict, lambdas_by_family: dict, chosen: dict,
-                       feature_names, Z_train: np.ndarray | None, paths_out: dict | None = None) -> dict:
+                       feature_names, Z_train: np.ndarray | None, paths_out: dict | None = None,
+                       gaps: dict | None = None) -> dict:
     """The report's stability summary of one loss. When `paths_out` is given, the (L, p) selection
-    probabilities along each family's path are returned in it, keyed by family."""
+    probabilities along each family's path are returned in it, keyed by family. `gaps` (family key ->
+    reason) names the families whose fits have no weight per feature: their per-feature stability is
+    not applicable, and only their prediction instability is reported."""
     st = spec.stability
+    gaps = dict(gaps or {})
+    for f, outs in outcomes_by_family.items():
+        if outs and outs[0].coef is None and not gaps.get(f):
+            gaps[f] = "its fits have no weight per feature"
     out = {"scheme": st.scheme, "n_resamples": st.n_resamples, "fraction": st.fraction,
            "threshold": st.threshold, "target_false_selections": st.target_false_selections,
            "group_correlation": st.group_correlation}
     l1, l2 = outcomes_by_family.get(SUPPORT_FAMILY), outcomes_by_family.get(TOP_K_FAMILY)
-    have_l1 = l1 is not None and l1[0].coef is not None
-    have_l2 = l2 is not None and l2[0].coef is not None
+    have_l1 = l1 is not None and not gaps.get(SUPPORT_FAMILY)
+    have_l2 = l2 is not None and not gaps.get(TOP_K_FAMILY)
     if have_l1:
         paths = np.stack([o.coef for o in l1])                    # (M, L, p)
         probs = selection_probabilities(paths)                    # (L, p)
@@ -92,17 +127,12 @@ def summarise_families(spec, outcomes_by_family: dict, lambdas_by_family: dict, 
             paths_out[SUPPORT_FAMILY] = probs
         idx = chosen[SUPPORT_FAMILY]
         top = np.argsort(-probs.max(0), kind="stable")[:TOP_FEATURES]
-        control = lambda_range_for_error_bound(paths, lambdas_by_family[SUPPORT_FAMILY], st.threshold,
-                                               st.target_false_selections)
         at_chosen = probs[idx]
         freq_order = np.argsort(-at_chosen, kind="stable")[:TOP_FEATURES]
         out["l1_paths"] = {"lambdas": [float(x) for x in lambdas_by_family[SUPPORT_FAMILY]],
                            "names": _names(feature_names, top), "probabilities": probs[:, top].T.tolist()}
         out["frequency"] = {"names": _names(feature_names, freq_order), SUPPORT_FAMILY: at_chosen[freq_order].tolist()}
-        out["error_control"] = {
-            "lambda_min": control["lambda_min"], "lambda_max": control["lambda_max"], "q": control["q"],
-            "bound": control["bound"], "q_allowed": control["q_allowed"],
-            "stable_set": _names(feature_names, control["stable_set"])}
+        out["error_control"] = _error_control(st, paths, lambdas_by_family[SUPPORT_FAMILY], feature_names)
         out["stable_at_chosen"] = _names(feature_names, np.flatnonzero(at_chosen >= st.threshold))
         if Z_train is not None:
             sel = np.stack([o.coef[idx] for o in l1]) != 0
@@ -111,23 +141,47 @@ def summarise_families(spec, outcomes_by_family: dict, lambdas_by_family: dict, 
                               "frequencies": [float(f) for f in g["frequencies"]],
                               "any_member_frequency": g["any_member_frequency"],
                               "mean_members_selected": g["mean_members_selected"]} for g in groups[:8]]
+    out["families"] = _family_rows(outcomes_by_family, chosen, gaps, have_l1, have_l2, spec.report.level)
     if have_l1 and have_l2:
-        l1_coefs = np.stack([o.coef[chosen[SUPPORT_FAMILY]] for o in l1])
-        l2_coefs = np.stack([o.coef[chosen[TOP_K_FAMILY]] for o in l2])
-        l1_pred = np.stack([o.eval_pred[chosen[SUPPORT_FAMILY]] for o in l1])
-        l2_pred = np.stack([o.eval_pred[chosen[TOP_K_FAMILY]] for o in l2])
-        both = compare_families(l1_coefs, l2_coefs, l1_pred, l2_pred, level=spec.report.level)   # the report's one level
-        out["families"] = {SUPPORT_FAMILY: _family_row(both["support"]), TOP_K_FAMILY: _family_row(both["top_k"])}
-        if "frequency" in out:
-            l2_freq = both["top_k"]["selection_frequency"]
-            names = out["frequency"]["names"]
-            lookup = {str(n): j for j, n in enumerate(feature_names)}
-            out["frequency"][TOP_K_FAMILY] = [float(l2_freq[lookup[n]]) for n in names]
+        l2_freq = out["families"][TOP_K_FAMILY].pop("selection_frequency")
+        lookup = {str(n): j for j, n in enumerate(feature_names)}
+        out["frequency"][TOP_K_FAMILY] = [float(l2_freq[lookup[n]]) for n in out["frequency"]["names"]]
+    for row in out["families"].values():
+        row.pop("selection_frequency", None)
+    out["not_applicable"] = {f: gaps[f] for f in outcomes_by_family if gaps.get(f)}
     return out
+
+
+def _family_rows(outcomes_by_family, chosen, gaps, have_l1, have_l2, level: float) -> dict:
+    """One row per resampled family: per-feature stability where the family has weights per feature
+    (the top-k set of the dense family needs the sparse family's support sizes), prediction
+    instability for every family."""
+    def preds(f):
+        return np.stack([o.eval_pred[chosen[f]] for o in outcomes_by_family[f]])
+
+    def coefs(f):
+        return np.stack([o.coef[chosen[f]] for o in outcomes_by_family[f]])
+
+    rows = {f: {"applicable": False, "reason": gaps.get(f) or "", "prediction_instability":
+                prediction_instability(preds(f))} for f in outcomes_by_family}
+    if have_l1 and have_l2:
+        both = compare_families(coefs(SUPPORT_FAMILY), coefs(TOP_K_FAMILY), preds(SUPPORT_FAMILY), preds(TOP_K_FAMILY),
+                               level=level)   # the report's one level
+        rows[SUPPORT_FAMILY].update(_family_row(both["support"]))
+        rows[TOP_K_FAMILY].update(_family_row(both["top_k"]))
+    elif have_l1:
+        rows[SUPPORT_FAMILY].update(_family_row(family_stability(coefs(SUPPORT_FAMILY), preds(SUPPORT_FAMILY), None,
+                                                                  level)))
+    if have_l2 and not have_l1:
+        rows[TOP_K_FAMILY]["reason"] = ("its selected set is its k largest |w| with k the sparse family's "
+                                        "support size on the same resample, and the sparse family was not "
+                                        "resampled with weights per feature")
+    return rows
 
 
 def _family_row(summary: dict) -> dict:
     idx = summary["index"]
-    return {"stability": idx["stability"], "lower": idx["lower"], "upper": idx["upper"], "level": idx["level"],
-            "mean_set_size": summary["mean_set_size"], "sign_agreement": summary["sign_agreement"],
-            "prediction_instability": summary["prediction_instability"]}
+    return {"applicable": True, "reason": "", "stability": idx["stability"], "lower": idx["lower"],
+            "upper": idx["upper"], "level": idx["level"], "mean_set_size": summary["mean_set_size"],
+            "sign_agreement": summary["sign_agreement"], "prediction_instability": summary["prediction_instability"],
+            "selection_frequency": summary["selection_frequency"]}

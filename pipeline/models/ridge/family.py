@@ -94,14 +94,23 @@ class RidgeFamily(Family):
     def _kernel(self, options):
         return options["kernel"], dict(options.get("kernel_params", ()))
 
-    def grid(self, Z, t, loss, options: dict) -> np.ndarray:
+    def why_no_coefficients(self, options: dict) -> str:
+        if self.has_coefficients(options):
+            return ""
+        kernel = KERNELS[options["kernel"]]
+        return (f"with the {kernel.name} kernel the fit f = b + Σ cᵢ k(xᵢ, ·) has no weight per feature "
+                f"(only a kernel K = ZZᵀ of the features themselves, such as linear, has one)")
+
+    def grid(self, Z, t, loss, options: dict, widen=(0, 0)) -> np.ndarray:
+        """Spaced in effective degrees of freedom from 1 to min(n, rank) − 1 (scale-free whatever the
+        feature map or kernel); `widen` extends either end (see path.spectrum_lambda_grid)."""
         kernel, kp = self._kernel(options)
         if _low_rank(options, Z.shape[0]):
             d = nystrom_spectrum(Z, kernel, low_rank_setting(options, "n_landmarks"),
                                  options.get("landmark_seed", 0), **kp)
-            return spectrum_lambda_grid(d, Z.shape[0], options["n_lambdas"])
+            return spectrum_lambda_grid(d, Z.shape[0], options["n_lambdas"], widen=widen)
         return l2_lambda_grid(gram(Z, kernel=kernel, **kp), options["n_lambdas"],
-                              fit_intercept=options.get("fit_intercept", True))
+                              fit_intercept=options.get("fit_intercept", True), widen=widen)
 
     def fit_path(self, Z, t, loss, lambdas, options: dict) -> PathFit:
         kernel, kp = self._kernel(options)

@@ -11,6 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from pipeline.losses import get_loss
+from pipeline.models.interface import widen_points
 from pipeline.models.ridge.eigen import KernelEigen, effective_df, kernel_eigen
 from pipeline.models.ridge.result import L2Path
 from pipeline.models.ridge.closed_form import squared_path, squared_primal_path
@@ -35,30 +36,52 @@ def _df_to_lambda(d: np.ndarray, n: int, target: float) -> float:
 
 
 def l2_lambda_grid(K, n_lambdas: int, df_range=(1.0, None), min_lambda_ratio: float = 1e-10,
-                   fit_intercept: bool = True) -> np.ndarray:
-    """Decreasing geometric λ grid from df(λ_max) = df_range[0] to df(λ_min) = df_range[1].
+                   fit_intercept: bool = True, widen=(0, 0)) -> np.ndarray:
+    """Decreasing λ grid from df(λ_max) = df_range[0] to df(λ_min) = df_range[1], evenly spaced in
+    log(df / (r − df)), r the rank of the centred Gram (see spectrum_lambda_grid).
 
-    ``df_range[1]`` None means 0.95·(n − 1). λ_min is kept ≥ min_lambda_ratio·d_max/n
+    ``df_range[1]`` None means min(n, r) − 1. λ_min is kept ≥ min_lambda_ratio·d_max/n
     so that K̃ + nλI stays well conditioned (fast-decaying spectra such as the rbf
     one cannot reach df ≈ n − 1 otherwise). ``K`` may be a KernelEigen already made.
     """
     eig = K if isinstance(K, KernelEigen) else kernel_eigen(K, fit_intercept, on_psd_fail="ignore")
-    return spectrum_lambda_grid(eig.eigenvalues, eig.n, n_lambdas, df_range, min_lambda_ratio)
+    return spectrum_lambda_grid(eig.eigenvalues, eig.n, n_lambdas, df_range, min_lambda_ratio, widen)
 
 
 def spectrum_lambda_grid(d, n: int, n_lambdas: int, df_range=(1.0, None),
-                         min_lambda_ratio: float = 1e-10) -> np.ndarray:
-    """l2_lambda_grid from the (centred) Gram eigenvalues d of n rows, or of a low-rank stand-in."""
+                         min_lambda_ratio: float = 1e-10, widen=(0, 0)) -> np.ndarray:
+    """l2_lambda_grid from the (centred) Gram eigenvalues d of n rows, or of a low-rank stand-in.
+
+    The effective degrees of freedom df(λ) = Σ d/(d + nλ) run from 0 (λ → ∞, the intercept
+    alone) to r (λ → 0, interpolation), r the numerical rank. The grid is even in
+    u = log(df / (r − df)): geometric in df near 0 and in r − df near r, so the same grid fits
+    any feature map or kernel whatever its scale. ``widen`` = (a, b) adds a·w points beyond the
+    largest λ (towards df 0) and b·w beyond the smallest (towards df r), w = widen_points, at
+    the same spacing: the runner widens an end that cross-validation chose.
+    """
     d = np.asarray(d, dtype=float)
+    rank = float(np.sum(d > 1e-12 * max(d.max(), 1e-300)))
+    if rank < 1:
+        return np.full(max(n_lambdas, 1), 1.0)   # a constant Gram: every λ gives the same fit
     df_lo, df_hi = df_range
-    df_hi = 0.95 * (n - 1) if df_hi is None else df_hi
-    rank_df = float(np.sum(d > 1e-12 * max(d.max(), 1e-300)))
-    df_hi = min(df_hi, 0.999 * rank_df)
+    df_hi = min(n, rank) - 1 if df_hi is None else df_hi
+    df_lo = min(df_lo, 0.5 * rank)
+    df_hi = min(max(df_hi, df_lo), 0.999 * rank)
     lam_max = _df_to_lambda(d, n, df_lo)
-    lam_min = max(_df_to_lambda(d, n, df_hi), min_lambda_ratio * d.max() / n)
     if n_lambdas == 1:
         return np.array([lam_max])
-    return np.geomspace(lam_max, min(lam_min, lam_max), n_lambdas)
+    u_lo, u_hi = np.log(df_lo / (rank - df_lo)), np.log(df_hi / (rank - df_hi))
+    step = (u_hi - u_lo) / (n_lambdas - 1)
+    extra = widen_points(n_lambdas)
+    lo_pts, hi_pts = int(widen[0]) * extra, int(widen[1]) * extra
+    u = u_lo + step * np.arange(-lo_pts, n_lambdas + hi_pts)
+    u[lo_pts + n_lambdas - 1] = u_hi   # the ends exactly where asked
+    u[lo_pts] = u_lo
+    df = rank / (1.0 + np.exp(-u))
+    floor = min_lambda_ratio * d.max() / n
+    lambdas = np.array([max(_df_to_lambda(d, n, x), floor) for x in df])
+    keep = np.concatenate([[True], np.diff(lambdas) < -1e-12 * lambdas[:-1]])   # drop points the floor merged
+    return lambdas[keep]
 
 
 def fit_l2_path(K, y, loss, lambdas, *, fit_intercept: bool = True, eigen: KernelEigen | None = None,

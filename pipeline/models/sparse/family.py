@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from pipeline.models.interface import Family, PathFit
+from pipeline.models.interface import Family, PathFit, widen_points
 from pipeline.models.sparse.dual import lambda_max
 from pipeline.models.sparse.path import degrees_of_freedom, fit_l1_path, lambda_grid, predict_path
 
@@ -34,9 +34,23 @@ class SparseFamily(Family):
     def has_coefficients(self, options: dict) -> bool:
         return True
 
-    def grid(self, Z, t, loss, options: dict) -> np.ndarray:
+    # λ_max gives the all-zero fit and so does every larger λ: a choice there is the answer
+    # "no feature helps", never a grid too short
+    closed_ends = ("largest",)
+
+    def grid(self, Z, t, loss, options: dict, widen=(0, 0)) -> np.ndarray:
         top = lambda_max(Z, t, loss, alpha=options.get("alpha", 1.0))
-        return lambda_grid(top, options["n_lambdas"], options["lambda_ratio"])
+        n = options["n_lambdas"]
+        grid = lambda_grid(top, n, options["lambda_ratio"])
+        extra = int(widen[1]) * widen_points(n)
+        if extra and n > 1:   # further down at the grid's own ratio per step
+            step = grid[-1] / grid[-2]
+            grid = np.concatenate([grid, grid[-1] * step ** np.arange(1, extra + 1)])
+        return grid
+
+    def saturated(self, n_nonzero_last, n_rows: int, n_features: int) -> bool:
+        # a lasso fit has at most min(n − 1, p) nonzeros once the intercept is fitted
+        return n_nonzero_last is not None and n_nonzero_last >= min(n_rows - 1, n_features)
 
     def fit_path(self, Z, t, loss, lambdas, options: dict) -> PathFit:
         path = fit_l1_path(Z, t, loss, lambdas, **{k: options[k] for k in _FIT_OPTIONS if k in options})
