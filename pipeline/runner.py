@@ -205,16 +205,21 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng) -> list[FamilyResult
     return results
 
 
+def shared_inputs(spec: ExperimentSpec, dataset: Dataset) -> Shared:
+    """What every fit task reads; also how a stored model refits its final path (pipeline.packaged)."""
+    return Shared(X=dataset.X, y=dataset.y, task=dataset.task, feature_maps=spec.features.maps,
+                  feature_seed=spec.seed, input_names=dataset.feature_names,
+                  family_options={f.key: f.options(getattr(spec.families, f.key),
+                                                   seeds.int_seed(spec.seed, "landmarks"))
+                                  for f in FAMILIES})
+
+
 def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool = True) -> ExperimentResult:
     start = time.perf_counter()
     dataset = load_dataset(spec.data, base_dir, spec.task)
     train_rows, test_rows = split_rows(spec, dataset)
     check_feature_budget(spec, dataset, len(train_rows))
-    shared = Shared(X=dataset.X, y=dataset.y, task=dataset.task, feature_maps=spec.features.maps,
-                    feature_seed=spec.seed, input_names=dataset.feature_names,
-                    family_options={f.key: f.options(getattr(spec.families, f.key),
-                                                     seeds.int_seed(spec.seed, "landmarks"))
-                                    for f in FAMILIES})
+    shared = shared_inputs(spec, dataset)
     splits = plan_splits(spec, dataset, train_rows, test_rows)
     resamples = resample_splits(spec, train_rows, test_rows, dataset.y[train_rows], dataset.task) \
         if stability_losses(spec) else []

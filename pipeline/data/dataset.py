@@ -20,6 +20,14 @@ class Truth:
 
 
 @dataclass(frozen=True)
+class InputColumn:
+    """One raw input column as the loader encoded it: a number, or text one-hot encoded into one
+    column per level after the first (the reference level)."""
+    name: str
+    levels: tuple[str, ...] | None = None     # None: numeric; else every level, reference first
+
+
+@dataclass(frozen=True)
 class Dataset:
     X: np.ndarray                       # (n, p) float64
     y: np.ndarray                       # (n,) float64; classification targets are −1/+1
@@ -30,6 +38,7 @@ class Dataset:
     class_labels: tuple[str, str] | None = None   # original labels for −1 and +1
     truth: Truth | None = None
     notes: tuple[str, ...] = field(default_factory=tuple)  # what loading changed (dropped columns, encodings)
+    inputs: tuple[InputColumn, ...] = ()   # raw columns behind feature_names; empty: one numeric column each
 
     @property
     def n_samples(self) -> int:
