@@ -50,7 +50,7 @@ def input_frame(dataset, rows) -> pd.DataFrame:
     for c in inputs:
         if c.levels is None:
             if c.name in index:
-                out[c.name] = X[:, index[c.name]]
+                out[c.name] = X[:, index[c.name]] == 1.0 if c.boolean else X[:, index[c.name]]
             continue
         used = [(level, index[f"{c.name}={level}"]) for level in c.levels[1:] if f"{c.name}={level}" in index]
         if used:
@@ -89,7 +89,8 @@ def export_state(result, r) -> tuple[dict[str, np.ndarray], dict]:
             "class_labels": list(ds.class_labels) if ds.class_labels else None,
             "probabilities": bool(loss.gives_probabilities), "feature_names": list(ds.feature_names),
             "target": ds.target_name,
-            "inputs": [{"name": c.name, "levels": None if c.levels is None else list(c.levels)} for c in ds.inputs],
+            "inputs": [{"name": c.name, "levels": None if c.levels is None else list(c.levels),
+                        "boolean": c.boolean} for c in ds.inputs],
             "maps": [m.model_dump(mode="json") for m in spec.features.maps], "seed": int(spec.seed)}
     if basis is not None:
         arrays.update(basis=np.asarray(basis, float), dual_coef=np.asarray(fit.model.path.dual_coef, float))
@@ -125,8 +126,8 @@ class PackagedModel(BaseEstimator):
                 .fit(a["X_train"])
         self.path_ = StoredPath(lambdas=a["lambdas"], intercept=a["intercept"], coef=a.get("coef"),
                                 dual_coef=a.get("dual_coef"), basis=a.get("basis"))
-        self.inputs_ = tuple(InputColumn(c["name"], None if c["levels"] is None else tuple(c["levels"]))
-                             for c in m["inputs"])
+        self.inputs_ = tuple(InputColumn(c["name"], None if c["levels"] is None else tuple(c["levels"]),
+                                         c["boolean"]) for c in m["inputs"])
         if m["class_labels"]:
             self.classes_ = np.asarray(m["class_labels"], dtype=object)
         return self
@@ -214,6 +215,8 @@ except ImportError:   # mlflow is a dependency; this only keeps the module impor
 
 class PenduelPythonModel(PythonModel):
     """mlflow python-function flavour: the model is rebuilt from the stored arrays when loaded."""
+    # the stored signature checks the input; mlflow's extra type-hint validation is not asked for
+    _skip_type_hint_validation = True
 
     def load_context(self, context):
         self.model = read_state(context.artifacts["state"])

@@ -25,6 +25,7 @@ class InputColumn:
     column per level after the first (the reference level)."""
     name: str
     levels: tuple[str, ...] | None = None     # None: numeric; else every level, reference first
+    boolean: bool = False                      # a true/false column (encoded 1/0)
 
 
 @dataclass(frozen=True)

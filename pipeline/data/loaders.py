@@ -132,7 +132,7 @@ def _features(frame: pd.DataFrame, source: str, notes: list[str], inputs: list):
                                 f"impute them before running.")
             blocks.append(values[:, None])
             names.append(col)
-            inputs.append(InputColumn(col))
+            inputs.append(InputColumn(col, boolean=pd.api.types.is_bool_dtype(series)))
             continue
         if series.isna().any():
             row = int(np.flatnonzero(series.isna().to_numpy())[0])
