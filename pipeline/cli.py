@@ -146,6 +146,15 @@ def cmd_ui(args) -> int:
 
     uri = _store_uri(args)
     print(f"penduel: tracking UI for {uri} at http://{args.host}:{args.port} (Ctrl-C stops it)", file=sys.stderr)
+    if args.config:   # the runs table of the config's experiment
+        from .tracking import open_store
+
+        spec, _ = load_config(args.config)
+        name = spec.tracking.experiment_name or spec.name
+        exp = open_store(uri).get_experiment_by_name(name)
+        if exp is not None:
+            print(f"penduel: runs of '{name}': http://{args.host}:{args.port}/#/experiments/{exp.experiment_id}/runs",
+                  file=sys.stderr)
     cmd = [sys.executable, "-m", "mlflow", "server", "--backend-store-uri", uri, "--host", args.host,
            "--port", str(args.port), "--workers", str(args.workers)]
     try:

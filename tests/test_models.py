@@ -195,7 +195,7 @@ def test_registered_versions_sklearn_flavour_and_experiment_kind(lots):
 
     client = MlflowClient(lots["uri"])
     versions = client.search_model_versions("name = 'lots-l2-logistic'")
-    assert [v.version for v in versions] == ["1"] and versions[0].tags["penduel.family"] == "l2"
+    assert [str(v.version) for v in versions] == ["1"] and versions[0].tags["penduel.family"] == "l2"
     exp = client.get_experiment_by_name("lots-grade")
     assert exp.tags["mlflow.experimentKind"] == "custom_model_development"   # mlflow's UI tag values
     mlflow.set_tracking_uri(lots["uri"])
