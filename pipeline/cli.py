@@ -153,8 +153,8 @@ def cmd_ui(args) -> int:
         name = spec.tracking.experiment_name or spec.name
         exp = open_store(uri).get_experiment_by_name(name)
         if exp is not None:
-            print(f"penduel: runs of '{name}': http://{args.host}:{args.port}/#/experiments/{exp.experiment_id}/runs",
-                  file=sys.stderr)
+            print(f"penduel: runs of '{name}': http://{args.host}:{args.port}/#/experiments/{exp.experiment_id}/runs"
+                  f"?workflowType=machine_learning", file=sys.stderr)
     cmd = [sys.executable, "-m", "mlflow", "server", "--backend-store-uri", uri, "--host", args.host,
            "--port", str(args.port), "--workers", str(args.workers)]
     try:
