@@ -226,3 +226,72 @@ def test_starter_configs_for_one_data_file_share_one_tracking_experiment(lots):
 def test_readme_warns_that_loading_a_model_runs_code():
     text = (ROOT / "README.md").read_text(encoding="utf-8")
     assert "penduel predict" in text and "trusted" in text
+
+
+@pytest.mark.slow
+def test_served_model_answers_like_penduel_predict(lots):
+    """`mlflow models serve` (local environment, no new one built) on a free loopback port; a real HTTP
+    request with text, numeric and true/false columns; the answer equals `penduel predict` exactly."""
+    import os
+    import signal
+    import time
+    import urllib.error
+    import urllib.request
+
+    from mlflow.tracking import MlflowClient
+
+    from pipeline.data.loaders import read_table
+
+    from .conftest import free_port
+
+    cwd = lots["cwd"]
+    client = MlflowClient(lots["uri"])
+    child = next(c for c in client.search_runs([client.get_run(lots["run_id"]).info.experiment_id],
+                                               f"tags.mlflow.parentRunId = '{lots['run_id']}'")
+                 if c.data.tags["penduel.family"] == "l2" and c.data.tags["penduel.loss"] == "logistic")
+    new = raw_lines(cwd, range(10, 30), "serve.csv")
+    code, out, err = penduel(["predict", lots["run_id"], "--data", new, "--family", "l2", "--loss", "logistic",
+                              "--output", "served-ours.csv", "--tracking-uri", lots["uri"]], cwd)
+    assert code == 0, err
+    ours = pd.read_csv(cwd / "served-ours.csv", float_precision="round_trip")
+    rows = read_table(new, "csv")      # the file as penduel read it
+    port = free_port()
+    log = cwd / "serve.log"
+    with open(log, "wb") as fh:
+        proc = subprocess.Popen([sys.executable, "-m", "mlflow", "models", "serve", "-m",
+                                 f"runs:/{child.info.run_id}/model", "--env-manager", "local", "-h", "127.0.0.1",
+                                 "-p", str(port)], cwd=cwd, stdout=fh, stderr=subprocess.STDOUT,
+                                env=dict(os.environ, MLFLOW_TRACKING_URI=lots["uri"],   # it starts uvicorn by name
+                                         PATH=os.pathsep.join([str(pathlib.Path(sys.executable).parent),
+                                                               os.environ.get("PATH", "")])),
+                                start_new_session=True)
+    base = f"http://127.0.0.1:{port}"
+    try:
+        deadline = time.monotonic() + 240
+        while True:
+            try:
+                with urllib.request.urlopen(f"{base}/ping", timeout=5) as r:
+                    if r.status == 200:
+                        break
+            except (urllib.error.URLError, ConnectionError, TimeoutError):
+                pass
+            assert proc.poll() is None and time.monotonic() < deadline, log.read_text()[-3000:]
+            time.sleep(0.5)
+        body = {"dataframe_split": json.loads(rows.to_json(orient="split", index=False, double_precision=15))}
+        body["dataframe_split"]["data"] = rows.astype(object).values.tolist()   # exact floats, real bools
+        req = urllib.request.Request(f"{base}/invocations", data=json.dumps(body).encode(),
+                                     headers={"Content-Type": "application/json"})
+        with urllib.request.urlopen(req, timeout=60) as r:
+            answer = pd.DataFrame(json.load(r)["predictions"])
+    finally:
+        if proc.poll() is None:
+            os.killpg(proc.pid, signal.SIGTERM)      # the server's workers share its process group
+            try:
+                proc.wait(timeout=30)
+            except subprocess.TimeoutExpired:
+                os.killpg(proc.pid, signal.SIGKILL)
+                proc.wait()
+    assert len(answer) == len(ours) == 20
+    assert np.array_equal(answer["decision"].to_numpy(float), ours["l2.logistic.decision"].to_numpy())
+    assert np.array_equal(answer["probability"].to_numpy(float), ours["l2.logistic.probability"].to_numpy())
+    assert list(answer["label"]) == list(ours["l2.logistic.label"])
