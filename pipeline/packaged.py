@@ -132,6 +132,10 @@ class PackagedModel(BaseEstimator):
             self.classes_ = np.asarray(m["class_labels"], dtype=object)
         return self
 
+    def __repr__(self) -> str:
+        m = self.meta or {}
+        return f"PackagedModel({m.get('family')}, {m.get('loss_label')}, λ = {m.get('lambda_chosen')})"
+
     @classmethod
     def from_state(cls, arrays: dict, meta: dict) -> "PackagedModel":
         return cls(arrays, meta).fit()

@@ -68,6 +68,14 @@ def save_model(folder: pathlib.Path, arrays: dict, meta: dict, input_example: pd
 def log_model(client, run_id: str, result, r, register_as: str | None = None) -> dict:
     """Package one child run's chosen model into the run's `model` artifact folder; register it as
     `<register_as>-<family>-<loss label>` when asked. Returns tags describing what was stored."""
+    try:
+        return _store_model(client, run_id, result, r, register_as)
+    except Exception as exc:   # a model that cannot be stored is recorded; the execution's results stand
+        client.set_tag(run_id, "penduel.model_error", f"{type(exc).__name__}: {exc}"[:4000])
+        return {"penduel.model_error": str(exc)}
+
+
+def _store_model(client, run_id: str, result, r, register_as: str | None) -> dict:
     from .packaged import check_reproduces, input_frame
 
     arrays, meta = export_state(result, r)
