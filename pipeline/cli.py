@@ -154,12 +154,54 @@ def cmd_ui(args) -> int:
 
     uri = _store_uri(args)
     print(f"penduel: tracking UI for {uri} at http://{args.host}:{args.port} (Ctrl-C stops it)", file=sys.stderr)
+    if args.config:   # the runs table of the config's experiment
+        from .tracking import open_store
+
+        spec, _ = load_config(args.config)
+        name = spec.tracking.experiment_name or spec.name
+        exp = open_store(uri).get_experiment_by_name(name)
+        if exp is not None:
+            print(f"penduel: runs of '{name}': http://{args.host}:{args.port}/#/experiments/{exp.experiment_id}/runs"
+                  f"?workflowType=machine_learning", file=sys.stderr)
     cmd = [sys.executable, "-m", "mlflow", "server", "--backend-store-uri", uri, "--host", args.host,
            "--port", str(args.port), "--workers", str(args.workers)]
     try:
         return subprocess.call(cmd)
     except KeyboardInterrupt:
         return 0
+
+
+def cmd_predict(args) -> int:
+    from .data.loaders import read_table
+    from .serving import predict_side_by_side
+    from .starter import KINDS
+    from .tracking import StoreError, latest_execution, open_store
+
+    if bool(args.run_id) == bool(args.experiment):
+        return _fail("predict: give either a RUN_ID (an execution or one of its fit runs) or --experiment NAME "
+                     "(its newest finished execution).")
+    data = pathlib.Path(args.data)
+    if data.suffix.lower() not in KINDS:
+        return _fail(f"--data: '{data}' should end in {', '.join(KINDS)} (found '{data.suffix or 'no suffix'}').")
+    try:
+        frame = read_table(data, KINDS[data.suffix.lower()])
+    except DataError as exc:
+        return _fail(str(exc).replace("data.path:", "--data:", 1))
+    client = open_store(_store_uri(args))
+    try:
+        run_id = args.run_id or latest_execution(client, args.experiment).info.run_id
+        table, used = predict_side_by_side(client, run_id, frame, f"--data {data}", args.unseen,
+                                           args.family, args.loss)
+    except StoreError as exc:
+        return _fail(str(exc))
+    for m in used:
+        print(f"penduel: {m['family']}/{m['loss']}: {m['model']} (fit run {m['run_id']})", file=sys.stderr)
+    if args.output:
+        table.to_csv(args.output, index=False)
+        print(f"predictions: {args.output} ({len(table)} rows, {len(used)} models)", file=sys.stderr)
+    else:
+        table.to_csv(sys.stdout, index=False)
+    return 0
 
 
 def cmd_scenarios(args) -> int:
@@ -216,6 +258,18 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--port", type=int, default=5000, help="port to listen on (default 5000)")
     p.add_argument("--workers", type=int, default=1, help="server worker processes (default 1: one user)")
     p.set_defaults(func=cmd_ui)
+    p = sub.add_parser("predict", help="apply an execution's stored models to new rows, families side by side")
+    p.add_argument("run_id", nargs="?", help="an execution's run id, or one fit run of it")
+    p.add_argument("--experiment", help="instead of RUN_ID: the newest finished execution of this experiment")
+    p.add_argument("--data", required=True, help="CSV or Parquet file of new rows (the training input columns)")
+    p.add_argument("--output", help="CSV file to write (default: standard output)")
+    p.add_argument("--family", nargs="+", help="only these families (keys, e.g. l1)")
+    p.add_argument("--loss", nargs="+", help="only these loss labels")
+    p.add_argument("--unseen", choices=("refuse", "reference"), default="refuse",
+                   help="a text value not seen in training: refuse the file (default) or encode it as the "
+                        "reference level")
+    _store_options(p)
+    p.set_defaults(func=cmd_predict)
     p = sub.add_parser("scenarios", help="list the synthetic scenarios and their settings")
     p.set_defaults(func=cmd_scenarios)
     return parser

@@ -61,6 +61,8 @@ class Loss:
     dual_reach: float = field(init=False, default=1.0)
     # preferred cvxpy back-ends, in order, for this loss's restricted problems
     cvxpy_solvers: tuple[str, ...] = field(init=False, default=("CLARABEL", "OSQP", "SCS"))
+    # sigmoid(f) is the fitted probability of the +1 class (a stored model then also gives probabilities)
+    gives_probabilities: bool = field(init=False, default=False)
 
     def value(self, y, f) -> np.ndarray:
         raise NotImplementedError

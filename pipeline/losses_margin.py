@@ -36,6 +36,7 @@ class LogisticLoss(MarginLoss):
     def __post_init__(self):
         super().__post_init__()
         object.__setattr__(self, "name", "logistic")
+        object.__setattr__(self, "gives_probabilities", True)
         object.__setattr__(self, "cvxpy_solvers", ("CLARABEL", "SCS"))
 
     def value(self, y, f):

@@ -283,17 +283,23 @@ def grid_notes(results) -> tuple[str, ...]:
     return tuple(notes)
 
 
+def shared_inputs(spec: ExperimentSpec, dataset: Dataset, n_train: int) -> Shared:
+    """What every fit task reads; also how a stored model refits its final path (pipeline.packaged).
+    Each family's route is fixed once from the number of training rows."""
+    return Shared(X=dataset.X, y=dataset.y, task=dataset.task, feature_maps=spec.features.maps,
+                  feature_seed=spec.seed, input_names=dataset.feature_names,
+                  family_options={f.key: f.for_training_rows(f.options(getattr(spec.families, f.key),
+                                                                       seeds.int_seed(spec.seed, "landmarks")),
+                                                             n_train)
+                                  for f in FAMILIES})
+
+
 def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool = True) -> ExperimentResult:
     start = time.perf_counter()
     dataset = load_dataset(spec.data, base_dir, spec.task, spec.split)
     train_rows, test_rows = split_rows(spec, dataset)
     check_feature_budget(spec, dataset, len(train_rows))
-    shared = Shared(X=dataset.X, y=dataset.y, task=dataset.task, feature_maps=spec.features.maps,
-                    feature_seed=spec.seed, input_names=dataset.feature_names,
-                    family_options={f.key: f.for_training_rows(f.options(getattr(spec.families, f.key),
-                                                                         seeds.int_seed(spec.seed, "landmarks")),
-                                                               len(train_rows))
-                                    for f in FAMILIES})
+    shared = shared_inputs(spec, dataset, len(train_rows))
     splits = plan_splits(spec, dataset, train_rows, test_rows)
     data_hash = dataset.content_hash()
     reused_total, n_tasks = 0, 0

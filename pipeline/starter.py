@@ -102,6 +102,8 @@ def starter_text(data: pathlib.Path, target: str, config_dir: pathlib.Path) -> s
         f"  n_resamples: 20            # refits on subsamples to measure selection stability; more is steadier\n"
         f"tracking:\n"
         f"  uri: sqlite:///mlflow.db   # or postgresql://user@host/db, or http://host:port of a tracking server\n"
+        f"  experiment_name: {_q(experiment_name(data))}   # named after the data file: every config for it shares\n"
+        f"                             # one tracking experiment, its runs side by side; name another to separate\n"
     )
     parse_config(yaml.safe_load(text), "starter config")     # never write a config that would not load
     return text

@@ -31,6 +31,9 @@ from mlflow.entities import Metric, Param, RunTag  # noqa: E402
 from mlflow.tracking import MlflowClient  # noqa: E402
 
 from .models.families import get_family  # noqa: E402
+from .serving import log_model  # noqa: E402
+
+EXPERIMENT_KIND = ("mlflow.experimentKind", "custom_model_development")   # mlflow's tag for model training
 
 PACKAGES = ("penduel", "numpy", "scipy", "scikit-learn", "cvxpy", "mlflow", "pandas")
 
@@ -164,6 +167,7 @@ class ExecutionLog:
         with store_lock(self.uri):
             exp = self.client.get_experiment_by_name(self.experiment_name)
             exp_id = exp.experiment_id if exp else self.client.create_experiment(self.experiment_name)
+            self.client.set_experiment_tag(exp_id, *EXPERIMENT_KIND)   # the UI opens on the runs table
         self.abandoned_runs = mark_abandoned_runs(self.client, exp_id, self.spec.config_hash())
         self.experiment_id = exp_id
         tags = {"penduel.config_hash": self.spec.config_hash(), "penduel.kind": "execution",
@@ -274,6 +278,7 @@ class ExecutionLog:
         cv["status"] = list(r.path.status)
         self._log_frame(rid, cv, "cv_table.csv")
         self._log_stability(rid, result, r)
+        log_model(self.client, rid, result, r, result.spec.tracking.register_as)   # pipeline.serving
 
     def _log_stability(self, rid, result, r) -> None:
         """Selection probabilities along the path (sparse family) and the stability summary at the

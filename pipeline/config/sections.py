@@ -162,6 +162,9 @@ class StabilitySpec(Settings):
 class TrackingSpec(Settings):
     uri: str = Field("sqlite:///mlflow.db", description="mlflow tracking URI (SQLite file by default).")
     experiment_name: str | None = Field(None, description="Tracking experiment; defaults to the experiment name.")
+    register_as: str | None = Field(None, pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,100}$",
+                                    description="Also register each chosen model in the model registry as "
+                                                "NAME-<family>-<loss label> (a new version per run).")
 
 
 class ReportSpec(Settings):

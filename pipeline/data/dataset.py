@@ -33,6 +33,15 @@ class RowDesign:
 
 
 @dataclass(frozen=True)
+class InputColumn:
+    """One raw input column as the loader encoded it: a number, or text one-hot encoded into one
+    column per level after the first (the reference level)."""
+    name: str
+    levels: tuple[str, ...] | None = None     # None: numeric; else every level, reference first
+    boolean: bool = False                      # a true/false column (encoded 1/0)
+
+
+@dataclass(frozen=True)
 class Dataset:
     X: np.ndarray                       # (n, p) float64
     y: np.ndarray                       # (n,) float64; classification targets are −1/+1
@@ -44,6 +53,7 @@ class Dataset:
     truth: Truth | None = None
     notes: tuple[str, ...] = field(default_factory=tuple)  # what loading changed (dropped columns, encodings)
     design: RowDesign | None = None     # groups / order / fixed test rows named in the split section
+    inputs: tuple[InputColumn, ...] = ()   # raw columns behind feature_names; empty: one numeric column each
 
     @property
     def n_samples(self) -> int:

@@ -10,7 +10,7 @@ import pandas as pd
 
 from ..losses import CLASSIFICATION, loss_names
 from .bundled import BUNDLED
-from .dataset import DataError, Dataset
+from .dataset import DataError, Dataset, InputColumn
 from .design import attach_test_file, take_design
 from .scenarios import make_scenario
 from .task import infer_task
@@ -87,10 +87,11 @@ def frame_to_dataset(frame: pd.DataFrame, target: str, task: str, source: str) -
     if frame.shape[1] == 0:
         raise DataError(f"data.target: {source} has no column besides the target '{target}'.")
     notes: list[str] = []
+    inputs: list[InputColumn] = []
     y, labels = _target(y_raw, target, task, source)
-    X, names = _features(frame, source, notes)
+    X, names = _features(frame, source, notes, inputs)
     return Dataset(X=X, y=y, feature_names=tuple(names), target_name=target, task=task, source=source,
-                   class_labels=labels, notes=tuple(notes))
+                   class_labels=labels, notes=tuple(notes), inputs=tuple(inputs))
 
 
 def _target(y_raw: pd.Series, target: str, task: str, source: str):
@@ -140,7 +141,7 @@ def _check_spread(X: np.ndarray, names, source: str, what: str) -> None:
                         f"whose spread overflows double precision; rescale it (e.g. to other units) first.")
 
 
-def _features(frame: pd.DataFrame, source: str, notes: list[str]):
+def _features(frame: pd.DataFrame, source: str, notes: list[str], inputs: list):
     blocks, names = [], []
     for col in frame.columns:
         series = frame[col]
@@ -154,6 +155,7 @@ def _features(frame: pd.DataFrame, source: str, notes: list[str]):
                                 f"impute them before running.")
             blocks.append(values[:, None])
             names.append(col)
+            inputs.append(InputColumn(col, boolean=pd.api.types.is_bool_dtype(series)))
             continue
         if series.isna().any():
             row = int(np.flatnonzero(series.isna().to_numpy())[0])
@@ -164,6 +166,7 @@ def _features(frame: pd.DataFrame, source: str, notes: list[str]):
                             f"(e.g. {levels[0]!r}); at most {MAX_CATEGORY_LEVELS} levels are one-hot encoded. "
                             f"Convert it to numbers or drop it.")
         # One column per level except the first (it is the reference level).
+        inputs.append(InputColumn(col, tuple(str(level) for level in levels)))
         for level in levels[1:]:
             blocks.append((series == level).to_numpy(dtype=float)[:, None])
             names.append(f"{col}={level}")
@@ -189,3 +192,44 @@ def _bundled(name: str, task: str) -> Dataset:
         raise DataError(f"data.name: '{name}' is a {entry.task} dataset; use {entry.task} losses "
                         f"({', '.join(loss_names(entry.task))}).")
     return entry.load()
+
+
+# ---------------------------------------------------------------- new rows for a stored model
+def encode_rows(frame: pd.DataFrame, inputs, feature_names, source: str, unseen: str = "refuse") -> np.ndarray:
+    """New rows encoded as the training rows were: the float matrix of `feature_names`. `inputs` are the
+    training data's raw columns (InputColumn; empty: every feature name is a numeric column). Columns
+    the model never used may be absent; extra columns are ignored. A text level not seen in training is
+    refused, or with unseen="reference" encoded as the reference level (every indicator 0)."""
+    inputs = tuple(inputs) or tuple(InputColumn(name) for name in feature_names)
+    wanted = set(feature_names)
+    needed = [c for c in inputs if (c.name in wanted if c.levels is None else
+                                    any(f"{c.name}={level}" in wanted for level in c.levels[1:]))]
+    frame = frame.rename(columns=str)
+    missing = [c.name for c in needed if c.name not in frame.columns]
+    if missing:
+        raise DataError(f"{source}: the model needs column(s) {', '.join(repr(m) for m in missing)}, which are "
+                        f"missing; it reads {', '.join(repr(c.name) for c in needed)} (other columns are ignored).")
+    columns = {}
+    for c in needed:
+        series = frame[c.name]
+        if c.levels is None:
+            values = pd.to_numeric(series, errors="coerce") if not pd.api.types.is_bool_dtype(series) else series
+            values = np.asarray(values, dtype=float)
+            bad = ~np.isfinite(values)
+            if bad.any():
+                row = int(np.flatnonzero(bad)[0])
+                raise DataError(f"{source}: column '{c.name}' was numeric in the training data, but row {row} holds "
+                                f"{series.iloc[row]!r}; only finite numbers are allowed there.")
+            columns[c.name] = values
+            continue
+        text = series.astype(str).to_numpy()
+        unknown = ~np.isin(text, c.levels) | series.isna().to_numpy()
+        if unknown.any() and unseen != "reference":
+            row = int(np.flatnonzero(unknown)[0])
+            raise DataError(f"{source}: column '{c.name}' holds {series.iloc[row]!r} at row {row}, a value not seen "
+                            f"in the training data; allowed are {', '.join(repr(v) for v in c.levels)} (or pass "
+                            f"--unseen reference to treat unseen values as the reference level {c.levels[0]!r}).")
+        for level in c.levels[1:]:
+            columns[f"{c.name}={level}"] = (text == level).astype(float)
+    return np.column_stack([columns[name] for name in feature_names]) if len(frame) else \
+        np.zeros((0, len(feature_names)))

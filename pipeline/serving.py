@@ -1,0 +1,162 @@
+"""Stored models in the tracking store: each (family, loss) child run's chosen model saved in mlflow's
+model format (python-function flavour plus the scikit-learn flavour), optionally registered; and
+`penduel predict`, which loads them back and applies them to new rows side by side.
+
+Loading a model unpickles code: load models only from tracking stores you trust.
+"""
+from __future__ import annotations
+
+import logging
+import pathlib
+import tempfile
+import warnings
+from importlib import metadata
+
+import numpy as np
+import pandas as pd
+
+from .data import DataError
+from .packaged import PackagedModel, PenduelPythonModel, export_state, write_state
+
+MODEL_DIR = "model"                 # the artifact folder of the model in each child run
+SKLEARN_FILE = "model.pkl"
+REQUIREMENTS = ("penduel", "mlflow", "numpy", "scipy", "scikit-learn", "pandas", "cloudpickle")
+
+
+def requirements() -> list[str]:
+    """The model's Python requirements, pinned to this environment (mlflow would otherwise infer them by
+    loading the model in a subprocess). penduel itself must be installed where the model is loaded."""
+    out = []
+    for name in REQUIREMENTS:
+        try:
+            out.append(f"{name}=={metadata.version(name)}")
+        except metadata.PackageNotFoundError:
+            out.append(name)
+    return out
+
+
+def save_model(folder: pathlib.Path, arrays: dict, meta: dict, input_example: pd.DataFrame) -> PackagedModel:
+    """An mlflow model folder: python-function flavour rebuilt from the arrays, plus the scikit-learn
+    flavour (the same pipeline as one estimator), with an input signature and an input example."""
+    import cloudpickle
+    import mlflow
+    import sklearn
+    from mlflow.models import Model, infer_signature
+
+    model = PackagedModel.from_state(arrays, meta)
+    state = write_state(folder.parent / (folder.name + "-state"), arrays, meta)
+    signature = infer_signature(input_example, model.predict_table(input_example))
+    quiet = logging.getLogger("mlflow")
+    level, quiet.level = quiet.level, logging.ERROR   # mlflow's notes on pickling: the README says it once
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", UserWarning)
+            mlflow.pyfunc.save_model(str(folder), python_model=PenduelPythonModel(), artifacts={"state": str(state)},
+                                     signature=signature, input_example=input_example,
+                                     pip_requirements=requirements())
+    finally:
+        quiet.setLevel(level)
+    with open(folder / SKLEARN_FILE, "wb") as fh:
+        cloudpickle.dump(model, fh)
+    mlmodel = Model.load(str(folder / "MLmodel"))
+    mlmodel.add_flavor("sklearn", pickled_model=SKLEARN_FILE, sklearn_version=sklearn.__version__,
+                       serialization_format="cloudpickle", code=None)
+    mlmodel.save(str(folder / "MLmodel"))
+    return model
+
+
+def log_model(client, run_id: str, result, r, register_as: str | None = None) -> dict:
+    """Package one child run's chosen model into the run's `model` artifact folder; register it as
+    `<register_as>-<family>-<loss label>` when asked. Returns tags describing what was stored."""
+    try:
+        return _store_model(client, run_id, result, r, register_as)
+    except Exception as exc:   # a model that cannot be stored is recorded; the execution's results stand
+        client.set_tag(run_id, "penduel.model_error", f"{type(exc).__name__}: {exc}"[:4000])
+        return {"penduel.model_error": str(exc)}
+
+
+def _store_model(client, run_id: str, result, r, register_as: str | None) -> dict:
+    from .packaged import check_reproduces, input_frame
+
+    arrays, meta = export_state(result, r)
+    meta["run_id"] = run_id
+    example = input_frame(result.dataset, result.train_rows[:5])
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = pathlib.Path(tmp) / MODEL_DIR
+        model = save_model(folder, arrays, meta, example)
+        gap = check_reproduces(model, result, r)
+        client.log_artifacts(run_id, str(folder), MODEL_DIR)
+    tags = {"penduel.model": f"runs:/{run_id}/{MODEL_DIR}",
+            "penduel.model_check": "reproduces the held-out predictions exactly" if gap == 0 else
+            f"differs from the held-out predictions by up to {gap:.3g}"}
+    if register_as:
+        name = f"{register_as}-{r.family}-{r.loss_label}"
+        try:
+            client.get_registered_model(name)
+        except Exception:   # mlflow raises its own not-found error type
+            client.create_registered_model(name)
+        version = client.create_model_version(name, f"runs:/{run_id}/{MODEL_DIR}", run_id=run_id,
+                                              tags={"penduel.family": r.family, "penduel.loss": r.loss_label})
+        tags["penduel.registered"] = f"{name} v{version.version}"
+    for key, value in tags.items():
+        client.set_tag(run_id, key, value)
+    return tags
+
+
+# ---------------------------------------------------------------- penduel predict
+def stored_models(client, run_id: str) -> tuple[str, list]:
+    """The execution of `run_id` (an execution or one of its child runs) and its child runs that hold a
+    model, in the order they were logged."""
+    from .tracking import StoreError, child_runs
+
+    try:
+        run = client.get_run(run_id)
+    except Exception:   # mlflow raises its own exception type for an unknown id
+        raise StoreError(f"run id '{run_id}' is not in the tracking store.") from None
+    tags = run.data.tags
+    if tags.get("penduel.kind") == "fit":
+        parent = client.get_run(tags["mlflow.parentRunId"])
+        chosen = [run]
+    elif tags.get("penduel.kind") == "execution":
+        parent, chosen = run, child_runs(client, run)
+    else:
+        raise StoreError(f"run id '{run_id}' is not a penduel run (neither an execution nor one of its fits).")
+    chosen = sorted((c for c in chosen if "penduel.model" in c.data.tags), key=lambda c: c.info.start_time)
+    if not chosen:
+        raise StoreError(f"run {parent.info.run_id} stores no models; it was run before penduel stored them. "
+                         f"Run its config again with `penduel run` to store them.")
+    return parent.info.run_id, chosen
+
+
+def load_packaged(client, child) -> PackagedModel:
+    """A child run's model loaded through mlflow's python-function loader, unwrapped to the pipeline."""
+    import mlflow
+
+    with tempfile.TemporaryDirectory() as tmp:
+        path = client.download_artifacts(child.info.run_id, MODEL_DIR, tmp)
+        return mlflow.pyfunc.load_model(path).unwrap_python_model().model
+
+
+def predict_side_by_side(client, run_id: str, frame: pd.DataFrame, source: str, unseen: str = "refuse",
+                         families=None, losses=None) -> tuple[pd.DataFrame, list[dict]]:
+    """Every stored model of the execution applied to `frame`: one row per input row, the columns of each
+    model prefixed `<family>.<loss label>.`, with the execution's run id and each model's version."""
+    execution, children = stored_models(client, run_id)
+    out = pd.DataFrame({"row": np.arange(len(frame)), "run_id": execution})
+    used = []
+    for child in children:
+        family, loss = child.data.tags["penduel.family"], child.data.tags["penduel.loss"]
+        if (families and family not in families) or (losses and loss not in losses):
+            continue
+        model = load_packaged(client, child)
+        table = model.table(model.decision_encoded(model.encode(frame, source, unseen)))
+        version = child.data.tags.get("penduel.registered", child.data.tags["penduel.model"])
+        prefix = f"{family}.{loss}."
+        for col in table.columns:
+            out[prefix + col] = table[col].to_numpy()
+        out[prefix + "model"] = version
+        used.append({"family": family, "loss": loss, "run_id": child.info.run_id, "model": version})
+    if not used:
+        raise DataError(f"--family/--loss: no stored model of run {execution} matches; it holds "
+                        f"{', '.join(c.data.tags['penduel.family'] + '/' + c.data.tags['penduel.loss'] for c in children)}.")
+    return out, used
