@@ -22,7 +22,7 @@ PALETTE = EXTRA + [f.colour for f in FAMILIES]
 
 def encode_png(fig) -> str:
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
+    fig.savefig(buf, format="png", dpi=110)
     plt.close(fig)
     return base64.b64encode(buf.getvalue()).decode("ascii")
 
@@ -33,7 +33,7 @@ def _arr(values) -> np.ndarray:
 
 def cv_curves(families, loss_label: str) -> str:
     """CV error against λ, one panel per family (their λ scales differ), chosen λ marked."""
-    fig, axes = plt.subplots(1, len(families), figsize=(5.2 * len(families), 3.4), squeeze=False)
+    fig, axes = plt.subplots(1, len(families), figsize=(5.2 * len(families), 3.4), squeeze=False, layout="constrained")
     for ax, f in zip(axes[0], families):
         col = COLOURS[f["family"]]
         ax.errorbar(_arr(f["lambdas"]), _arr(f["cv_mean"]), yerr=_arr(f["cv_se"]), color=col,
@@ -44,13 +44,12 @@ def cv_curves(families, loss_label: str) -> str:
         ax.set_ylabel("CV held-out loss (mean ± SE)")
         ax.set_title(f"{f['title']} — {loss_label}", fontsize=10)
         ax.grid(alpha=0.3)
-    fig.tight_layout()
     return encode_png(fig)
 
 
 def error_vs_df(families, loss_label: str) -> str:
     """Both families on one axis: CV error against effective degrees of freedom."""
-    fig, ax = plt.subplots(figsize=(6.2, 3.6))
+    fig, ax = plt.subplots(figsize=(6.2, 3.6), layout="constrained")
     for f in families:
         col, mean = COLOURS[f["family"]], _arr(f["cv_mean"])
         ax.errorbar(_arr(f["path_df"]), mean, yerr=_arr(f["cv_se"]), color=col, marker=MARKERS[f["family"]],
@@ -63,7 +62,6 @@ def error_vs_df(families, loss_label: str) -> str:
     ax.set_title(f"Error against model size — {loss_label}", fontsize=10)
     ax.grid(alpha=0.3)
     ax.legend(fontsize=8)
-    fig.tight_layout()
     return encode_png(fig)
 
 
@@ -71,7 +69,7 @@ def coefficient_path(f, top: int = 12) -> str:
     """L1 coefficients (feature-output scale) along λ; the features entering earliest are labelled."""
     lambdas = _arr(f["lambdas"])
     names, values = f["coef_path"]["names"], f["coef_path"]["values"]
-    fig, ax = plt.subplots(figsize=(6.8, 3.8))
+    fig, ax = plt.subplots(figsize=(6.8, 3.8), layout="constrained")
     for vals in values[top:]:
         ax.plot(lambdas, _arr(vals), color="0.75", lw=0.6)
     palette = PALETTE
@@ -86,7 +84,6 @@ def coefficient_path(f, top: int = 12) -> str:
     ax.set_title(f"Sparse coefficient path — {f['loss_label']}", fontsize=10)
     ax.grid(alpha=0.3)
     ax.legend(fontsize=7, loc="center left", bbox_to_anchor=(1.01, 0.5), frameon=False)
-    fig.tight_layout()
     return encode_png(fig)
 
 
@@ -94,7 +91,7 @@ def stability_paths(stab: dict, top: int = 12) -> str:
     """Selection probability of the most often selected features along λ (sparse family)."""
     paths = stab["l1_paths"]
     lambdas = _arr(paths["lambdas"])
-    fig, ax = plt.subplots(figsize=(6.8, 3.6))
+    fig, ax = plt.subplots(figsize=(6.8, 3.6), layout="constrained")
     palette = PALETTE
     styles = ["-", "--", ":", "-."]
     for i, (name, probs) in enumerate(zip(paths["names"], paths["probabilities"])):
@@ -109,7 +106,6 @@ def stability_paths(stab: dict, top: int = 12) -> str:
     ax.set_title(f"Stability paths over {stab['n_resamples']} resamples (dotted: threshold)", fontsize=10)
     ax.grid(alpha=0.3)
     ax.legend(fontsize=7, loc="center left", bbox_to_anchor=(1.01, 0.5), frameon=False)
-    fig.tight_layout()
     return encode_png(fig)
 
 
@@ -118,7 +114,7 @@ def selection_frequency(stab: dict) -> str:
     freq = stab["frequency"]
     names = freq["names"][::-1]
     y = np.arange(len(names))
-    fig, ax = plt.subplots(figsize=(6.8, 0.28 * len(names) + 1.2))
+    fig, ax = plt.subplots(figsize=(6.8, 0.28 * len(names) + 1.2), layout="constrained")
     present = [fam for fam in FAMILIES if fam.key in freq]
     h = 0.8 / len(present)
     for i, fam in enumerate(present):   # bars side by side, the first family on top
@@ -130,5 +126,4 @@ def selection_frequency(stab: dict) -> str:
     ax.set_title("Selection frequency at the chosen λ", fontsize=10)
     ax.legend(fontsize=7, loc="lower right")
     ax.grid(alpha=0.3, axis="x")
-    fig.tight_layout()
     return encode_png(fig)
