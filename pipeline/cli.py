@@ -11,9 +11,8 @@ import textwrap
 import time
 import warnings
 
-from .config import ConfigError, load_config
-from .data import DataError
-
+# Verbs import what they use inside their functions, so `penduel --help` and `penduel validate` load
+# neither the tracking library nor the plotting or solver libraries (tests/test_imports.py checks).
 EXIT_USER_ERROR = 2
 
 
@@ -29,6 +28,8 @@ def _fail(message: str) -> int:
 
 def cmd_validate(args) -> int:
     import yaml
+
+    from .config import load_config
 
     spec, _ = load_config(args.config)
     print(f"# {args.config}: valid. Resolved settings (defaults filled in):")
@@ -52,6 +53,7 @@ def _summary_table(result) -> str:
 
 
 def cmd_run(args) -> int:
+    from .config import load_config
     from .report import write_report
     from .runner import run_experiment
     from .tracking import ExecutionLog
@@ -89,6 +91,8 @@ def _store_uri(args) -> str:
     if args.tracking_uri:
         return args.tracking_uri
     if args.config:
+        from .config import load_config
+
         spec, _ = load_config(args.config)
         return spec.tracking.uri
     return "sqlite:///mlflow.db"
@@ -236,6 +240,9 @@ def _sigterm_as_interrupt():
 
 
 def _dispatch(args) -> int:
+    from .config import ConfigError
+    from .data import DataError
+
     try:
         return args.func(args)
     except (ConfigError, DataError) as exc:
