@@ -56,7 +56,7 @@ def main(data_path: str, out_path: str, tol: float) -> None:
     for k, (a, b) in enumerate(KFold(FOLDS, shuffle=True, random_state=0).split(Xtr)):
         for name, fit in fits.items():
             coefs, icpt = fit(Xtr[a], ytr[a])
-            cv[name][k] = np.mean((ytr[b][None, :] - Xtr[b] @ coefs.T - icpt[:, None].T) ** 2, axis=0)
+            cv[name][k] = np.mean((ytr[b][:, None] - Xtr[b] @ coefs.T - icpt[None, :]) ** 2, axis=0)
     test_sq, final = {}, {}
     for name, fit in fits.items():
         best = int(np.argmin(cv[name].mean(0)))
