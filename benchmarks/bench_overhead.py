@@ -49,7 +49,7 @@ def bench_cli_fixed_overhead(repeats: int = 3):
     try:
         validate = [_timed([penduel, "validate", str(DEMO)], tmp) for _ in range(repeats)]
         out = tmp / "phases.json"
-        env = dict(os.environ, PENDUEL_BENCH_PHASES=str(out))
+        env = dict(os.environ, PENDUEL_BENCH_PHASES=str(out), PYTHONPATH=str(ROOT))
         cmd = [sys.executable, "-m", "benchmarks.bench_overhead", "run", str(DEMO)]
         runs = []
         for i in range(repeats + 1):     # the first run creates the store and is not counted
