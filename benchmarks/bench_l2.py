@@ -1,20 +1,16 @@
 """L2 (representer) family: path speed against grid search and the eigh floor; memory at scale.
 
-Memory figures are the peak resident set (ru_maxrss) of a fresh child process that runs
-only that workload, so they include the interpreter and imported libraries.
+Memory figures are the peak resident set of a fresh child process that runs only that workload
+(its own VmHWM, see harness.own_peak_mib), so they include the interpreter and imported libraries;
+`rss_before_workload_mib` is what the imports alone hold.
 """
 from __future__ import annotations
 
-import json
-import os
-import resource
-import subprocess
-import sys
 import time
 
 import numpy as np
 
-from benchmarks.harness import memory_record, timed_pair
+from benchmarks.harness import child_main, load_average, memory_record, run_fresh, timed_pair
 
 PATH_N, PATH_P, N_LAMBDAS, BANDWIDTH = 2000, 10, 30, 3.0
 
@@ -24,10 +20,6 @@ def _regression_data(n, p, seed=0):
     X = rng.normal(size=(n, p))
     y = np.sin(X[:, 0]) + X[:, 1] * X[:, 2] + 0.3 * rng.normal(size=n)
     return X, y
-
-
-def _load() -> dict:
-    return {"load_average_1min": os.getloadavg()[0]}
 
 
 def bench_l2_path_vs_gridsearch():
@@ -53,7 +45,7 @@ def bench_l2_path_vs_gridsearch():
 
     return [timed_pair("l2_path_vs_gridsearch", ours, "GridSearchCV(KernelRidge, cv=5)", reference,
                        goal="ratio >= 20 (n=2000, rbf, 30 λ, with LOO)", repeats=3, min_ratio=20.0,
-                       extra={"n": n, "n_lambdas": N_LAMBDAS, **_load()})]
+                       extra={"n": n, "n_lambdas": N_LAMBDAS, **load_average()})]
 
 
 def bench_l2_path_vs_eigh_floor():
@@ -66,7 +58,7 @@ def bench_l2_path_vs_eigh_floor():
     return [timed_pair("l2_path_vs_eigh_floor", lambda: fit_l2_path(K, y, "squared", lambdas),
                        "one numpy.linalg.eigh of the same K", lambda: np.linalg.eigh(K),
                        goal="ratio >= 0.667 (at most 1.5x one eigh)", repeats=5, min_ratio=0.667,
-                       extra={"n": PATH_N, "n_lambdas": N_LAMBDAS, **_load()})]
+                       extra={"n": PATH_N, "n_lambdas": N_LAMBDAS, **load_average()})]
 
 
 # ------------------------------------------------------------- child workloads
@@ -106,30 +98,20 @@ def _child_million_features() -> dict:
             "best_test_mse": float(test_mse.min())}
 
 
-def _peak_in_child(name: str) -> dict:
-    """Run one child workload in a fresh interpreter; return its result and peak RSS."""
-    root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-    out = subprocess.run([sys.executable, "-m", "benchmarks.bench_l2", name], cwd=root,
-                         capture_output=True, text=True, check=True)
-    return json.loads(out.stdout.strip().splitlines()[-1])
-
-
 def bench_l2_nystrom_large_n():
-    r = _peak_in_child("nystrom")
+    r = run_fresh("bench_l2", "nystrom")
     peak = r.pop("peak_mib")
     return [memory_record("l2_nystrom_large_n", peak, goal="peak <= 2048 MiB (n=50000, m=1000, 30 λ)",
-                          limit_mib=2048, extra={**r, **_load()})]
+                          limit_mib=2048, extra={**r, **load_average()})]
 
 
 def bench_l2_million_features_memory():
-    r = _peak_in_child("million")
+    r = run_fresh("bench_l2", "million")
     peak = r.pop("peak_mib")
     return [memory_record("l2_million_features_memory", peak,
                           goal="peak <= 2048 MiB (1e6 random Fourier features, n=2000, fit+predict)",
-                          limit_mib=2048, extra={**r, **_load()})]
+                          limit_mib=2048, extra={**r, **load_average()})]
 
 
 if __name__ == "__main__":
-    result = {"nystrom": _child_nystrom, "million": _child_million_features}[sys.argv[1]]()
-    result["peak_mib"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # KiB on Linux
-    print(json.dumps(result))
+    child_main({"nystrom": _child_nystrom, "million": _child_million_features})

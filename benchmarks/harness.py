@@ -8,7 +8,12 @@ writes `reports/bench/results.json`.
 from __future__ import annotations
 
 import gc
+import json
+import os
+import pathlib
 import statistics
+import subprocess
+import sys
 import time
 from typing import Any, Callable
 
@@ -62,3 +67,45 @@ def memory_record(name: str, ours_peak_mib: float, goal: str, limit_mib: float |
     if extra:
         record.update(extra)
     return record
+
+
+# ------------------------------------------------------------------ fresh processes and their own peaks
+def load_average() -> dict:
+    """The machine's load when a record was taken: a loaded machine distorts timings and speed-ups."""
+    one, five, fifteen = os.getloadavg()
+    return {"load_average_1_5_15min": [round(one, 2), round(five, 2), round(fifteen, 2)], "cores": os.cpu_count()}
+
+
+def own_peak_mib() -> float:
+    """Peak resident set of this process's own address space (VmHWM).
+
+    Not ru_maxrss: Linux carries ru_maxrss over fork and exec, so a child started by a process that
+    once held 854 MiB reports at least 854 MiB whatever it does itself (that is why two unrelated
+    workloads once showed the same figure: the peak of the benchmark runner that started them).
+    VmHWM belongs to the address space, which exec replaces, so it counts only this program.
+    """
+    for line in pathlib.Path("/proc/self/status").read_text().splitlines():
+        if line.startswith("VmHWM:"):
+            return int(line.split()[1]) / 1024.0
+    import resource   # not Linux: the best available, with the caveat above
+
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+
+
+def run_fresh(module: str, workload: str, timeout: float = 3600) -> dict:
+    """Run one workload of benchmarks/<module>.py in a new interpreter; its JSON result, with
+    `peak_mib` (that process's own peak) and `rss_after_imports_mib` (before the workload)."""
+    root = pathlib.Path(__file__).resolve().parent.parent
+    done = subprocess.run([sys.executable, "-m", f"benchmarks.{module}", workload], cwd=root,
+                          capture_output=True, text=True, timeout=timeout)
+    if done.returncode != 0:
+        raise RuntimeError(f"{module} {workload} failed:\n{done.stderr[-3000:]}")
+    return json.loads(done.stdout.strip().splitlines()[-1])
+
+
+def child_main(workloads: dict[str, Callable[[], dict]]) -> None:
+    """Entry point of a fresh process: run the named workload, print its result and this process's peak."""
+    rss = float(pathlib.Path("/proc/self/statm").read_text().split()[1]) * os.sysconf("SC_PAGE_SIZE") / 2**20
+    result = workloads[sys.argv[1]]()
+    result.update(peak_mib=own_peak_mib(), rss_before_workload_mib=rss)
+    print(json.dumps(result))

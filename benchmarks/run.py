@@ -30,7 +30,10 @@ def main(argv: list[str] | None = None) -> int:
                 traceback.print_exc()
                 records.append({"name": attr, "error": f"{type(exc).__name__}: {exc}"})
     OUT.parent.mkdir(parents=True, exist_ok=True)
-    OUT.write_text(json.dumps(records, indent=2))
+    # -k runs a subset: keep the other benchmarks' latest records, replace the ones run now
+    kept = json.loads(OUT.read_text()) if args.k and OUT.is_file() else []
+    names = {r["name"] for r in records}
+    OUT.write_text(json.dumps([r for r in kept if r.get("name") not in names] + records, indent=2))
     print(f"\n{'name':40s} {'ours s':>9s} {'ref s':>9s} {'ratio':>8s} {'peak MiB':>9s}  met  goal")
     for r in records:
         def fmt(key, spec):

@@ -11,9 +11,8 @@ import textwrap
 import time
 import warnings
 
-from .config import ConfigError, load_config
-from .data import DataError
-
+# Verbs import what they use inside their functions, so `penduel --help` and `penduel validate` load
+# neither the tracking library nor the plotting or solver libraries (tests/test_imports.py checks).
 EXIT_USER_ERROR = 2
 
 
@@ -29,6 +28,8 @@ def _fail(message: str) -> int:
 
 def cmd_validate(args) -> int:
     import yaml
+
+    from .config import load_config
 
     spec, _ = load_config(args.config)
     print(f"# {args.config}: valid. Resolved settings (defaults filled in):")
@@ -57,6 +58,7 @@ def _summary_table(result) -> str:
 
 
 def cmd_run(args) -> int:
+    from .config import load_config
     from .report import write_report
     from .runner import run_experiment
     from .tracking import ExecutionLog
@@ -97,6 +99,8 @@ def _store_uri(args) -> str:
     if args.tracking_uri:
         return args.tracking_uri
     if args.config:
+        from .config import load_config
+
         spec, _ = load_config(args.config)
         return spec.tracking.uri
     return "sqlite:///mlflow.db"
@@ -155,6 +159,7 @@ def cmd_ui(args) -> int:
     uri = _store_uri(args)
     print(f"penduel: tracking UI for {uri} at http://{args.host}:{args.port} (Ctrl-C stops it)", file=sys.stderr)
     if args.config:   # the runs table of the config's experiment
+        from .config import load_config
         from .tracking import open_store
 
         spec, _ = load_config(args.config)
@@ -172,6 +177,7 @@ def cmd_ui(args) -> int:
 
 
 def cmd_predict(args) -> int:
+    from .data import DataError
     from .data.loaders import read_table
     from .serving import predict_side_by_side
     from .starter import KINDS
@@ -298,6 +304,9 @@ def _sigterm_as_interrupt():
 
 
 def _dispatch(args) -> int:
+    from .config import ConfigError
+    from .data import DataError
+
     try:
         return args.func(args)
     except (ConfigError, DataError) as exc:

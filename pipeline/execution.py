@@ -89,13 +89,60 @@ def _run_processes(fn, tasks, shared, use_shared, n_jobs, address) -> Iterator[t
         yield from parallel(delayed(_call)(fn, i, t, shared, use_shared) for i, t in enumerate(tasks))
 
 
+CONNECT_SECONDS = 20      # how long to wait for a given scheduler and its first worker
+
+
+def _worker_versions() -> dict[str, str]:
+    """Run on each worker: the versions a fit's bits depend on (penduel itself and the numerics)."""
+    from importlib import metadata
+
+    return {name: metadata.version(name) for name in ("penduel", "numpy", "scipy", "scikit-learn")}
+
+
+def connect_to_cluster(address: str):
+    """A Client of the running Dask cluster at `address` (execution.scheduler_address), checked to have
+    workers that run the same penduel and numerical libraries as this process; else ConfigError."""
+    from distributed import Client
+
+    from .config import ConfigError
+
+    where = f"execution.scheduler_address: '{address}'"
+    try:
+        client = Client(address, set_as_default=False, timeout=CONNECT_SECONDS)
+    except (OSError, TimeoutError, ValueError) as exc:
+        raise ConfigError(f"{where}: no Dask scheduler answered there within {CONNECT_SECONDS} s ({exc}). Give "
+                          f"the address a running `dask scheduler` prints (tcp://HOST:PORT), or leave it "
+                          f"out to start a local cluster of execution.n_jobs workers.") from None
+    try:
+        client.wait_for_workers(1, timeout=CONNECT_SECONDS)
+        found = client.run(_worker_versions)
+    except (OSError, TimeoutError) as exc:
+        client.close()
+        raise ConfigError(f"{where}: the scheduler has no worker ({exc}); start at least one with "
+                          f"`dask worker {address}`.") from None
+    except Exception as exc:   # a worker cannot unpickle pipeline.execution: penduel is not installed there
+        client.close()
+        raise ConfigError(f"{where}: a worker could not run penduel ({type(exc).__name__}: {exc}). Every worker "
+                          f"needs the same penduel version installed in its Python environment.") from None
+    here = _worker_versions()
+    wrong = {w: v for w, v in found.items() if v != here}
+    if wrong:
+        client.close()
+        worker, versions = next(iter(wrong.items()))
+        raise ConfigError(f"{where}: worker {worker} runs {versions}, but this process runs {here}; results "
+                          f"are bit-identical only with the same versions, so install them on every worker.")
+    return client
+
+
 def _run_dask(fn, tasks, shared, use_shared, n_jobs, address) -> Iterator[tuple[int, Any]]:
     from distributed import Client, as_completed
 
     with contextlib.ExitStack() as stack:
         if address is None:
-            address = stack.enter_context(local_dask_cluster(n_jobs))
-        client = stack.enter_context(Client(address, set_as_default=False))
+            client = stack.enter_context(Client(stack.enter_context(local_dask_cluster(n_jobs)),
+                                                set_as_default=False))
+        else:
+            client = stack.enter_context(connect_to_cluster(address))
         # Shared data goes to every worker once instead of once per task; wrapped in a list so
         # a tuple or dict is scattered whole, not element by element.
         shared_ref = client.scatter([shared], broadcast=True)[0] if use_shared else None

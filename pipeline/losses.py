@@ -15,7 +15,6 @@ import difflib
 from dataclasses import dataclass, field
 from typing import Callable
 
-import cvxpy as cp
 import numpy as np
 from scipy.optimize import minimize_scalar
 
@@ -71,6 +70,8 @@ class Loss:
         raise NotImplementedError
 
     def cvxpy_sum(self, y, f_expr):
+        # each loss imports cvxpy inside this method: only the cvxpy solver routes need it, and
+        # `penduel validate` / `--help` must not pay its import
         raise NotImplementedError
 
     def conjugate(self, y, u) -> np.ndarray:
@@ -115,6 +116,7 @@ class SquaredLoss(Loss):
         return np.ones_like(as_float(f))
 
     def cvxpy_sum(self, y, f_expr):
+        import cvxpy as cp
         return 0.5 * cp.sum_squares(y - f_expr)
 
     def conjugate(self, y, u):
@@ -167,6 +169,7 @@ class QuantileLoss(Loss):
         return np.full(shape, -above), np.full(shape, below)
 
     def cvxpy_sum(self, y, f_expr):
+        import cvxpy as cp
         # written with abs and a linear term, not pos/maximum: see the cvxpy/HiGHS
         # bound-propagation defect guarded in tests/test_l1_solvers.py
         above, below = self.slopes
@@ -223,6 +226,7 @@ class HuberLoss(Loss):
         return np.full(shape, -self.delta), np.full(shape, self.delta)
 
     def cvxpy_sum(self, y, f_expr):
+        import cvxpy as cp
         # cvxpy's huber(x, M) is x^2 inside, 2M|x| - M^2 outside: twice ours
         return 0.5 * cp.sum(cp.huber(y - f_expr, self.delta))
 

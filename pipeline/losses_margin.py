@@ -3,7 +3,6 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-import cvxpy as cp
 import numpy as np
 from scipy.special import expit, xlogy
 
@@ -51,6 +50,7 @@ class LogisticLoss(MarginLoss):
         return p * (1.0 - p)
 
     def cvxpy_sum(self, y, f_expr):
+        import cvxpy as cp
         return cp.sum(cp.logistic(-cp.multiply(y, f_expr)))
 
     def conjugate(self, y, u):
@@ -95,6 +95,7 @@ class HingeLoss(MarginLoss):
         return np.zeros_like(as_float(f))
 
     def cvxpy_sum(self, y, f_expr):
+        import cvxpy as cp
         # max(0, 1-m) = 0.5|1-m| + 0.5(1-m): avoids pos() (cvxpy/HiGHS bound defect)
         slack = 1 - cp.multiply(y, f_expr)
         return 0.5 * cp.sum(cp.abs(slack)) + 0.5 * cp.sum(slack)
@@ -126,6 +127,7 @@ class SquaredHingeLoss(MarginLoss):
         return 2.0 * (self._arg(y, f) < 1).astype(float)
 
     def cvxpy_sum(self, y, f_expr):
+        import cvxpy as cp
         return cp.sum_squares(cp.pos(1 - cp.multiply(y, f_expr)))
 
     def conjugate(self, y, u):

@@ -197,23 +197,26 @@ class ExecutionLog:
         return False
 
     # ------------------------------------------------------------ writing
+    # Few store transactions: each run's params, tags and metrics go in one log_batch, and its files
+    # are written to one folder and sent with one log_artifacts call.
     def _log_yaml(self, run_id, data, name):
-        with tempfile.TemporaryDirectory() as tmp:
-            path = os.path.join(tmp, name)
-            with open(path, "w", encoding="utf-8") as fh:
-                yaml.safe_dump(data, fh, sort_keys=False, allow_unicode=True)
-            self.client.log_artifact(run_id, path)
+        self._log_files(run_id, {name: data})
 
-    def _log_frame(self, run_id, frame: pd.DataFrame, name):
+    def _log_files(self, run_id, files: dict) -> None:
+        """name → DataFrame (written as CSV) or YAML-able data, all logged to the run together."""
         with tempfile.TemporaryDirectory() as tmp:
-            path = os.path.join(tmp, name)
-            frame.to_csv(path, index=False)
-            self.client.log_artifact(run_id, path)
+            for name, content in files.items():
+                path = os.path.join(tmp, name)
+                if isinstance(content, pd.DataFrame):
+                    content.to_csv(path, index=False)
+                else:
+                    with open(path, "w", encoding="utf-8") as fh:
+                        yaml.safe_dump(content, fh, sort_keys=False, allow_unicode=True)
+            self.client.log_artifacts(run_id, tmp)
 
     def log_results(self, result) -> None:
-        c = self.client
         ds = result.dataset
-        c.log_batch(self.run_id, params=[
+        self.client.log_batch(self.run_id, params=[
             Param("data_source", ds.source[:500]), Param("n_rows", str(ds.n_samples)),
             Param("n_columns", str(ds.n_features)), Param("n_features_built", str(len(result.feature_names))),
             Param("n_train", str(len(result.train_rows))), Param("n_test", str(len(result.test_rows))),
@@ -265,27 +268,31 @@ class ExecutionLog:
                     Metric("fit_seconds", float(r.fit_seconds), ts, 0),
                     Metric("cv_seconds", float(r.cv_seconds), ts, 0),
                     Metric("n_not_converged", float((~r.path.converged).sum()), ts, 0)]
+        stability_metrics, files = self._stability(result, r)
+        metrics += stability_metrics
         for start in range(0, len(metrics), 900):   # mlflow caps a batch at 1000 entries
             c.log_batch(rid, metrics=metrics[start:start + 900], params=params if start == 0 else [])
-        self._log_yaml(rid, result.spec.resolved(), "config.yaml")
+        files["config.yaml"] = result.spec.resolved()
         if r.coefficients is not None:
-            self._log_frame(rid, pd.DataFrame({"feature": list(result.feature_names),
-                                               "coefficient": r.coefficients}), "coefficients.csv")
-        self._log_frame(rid, predictions_frame(result, r), "predictions.csv")
+            files["coefficients.csv"] = pd.DataFrame({"feature": list(result.feature_names),
+                                                      "coefficient": r.coefficients})
+        files["predictions.csv"] = predictions_frame(result, r)
         cv = pd.DataFrame(r.cv_errors.T, columns=[f"fold{k}" for k in range(r.cv_errors.shape[0])])
         cv.insert(0, "lambda", r.lambdas)
         cv["mean"], cv["se"], cv["path_df"] = r.cv_mean, r.cv_se, r.path.effective_df
         cv["status"] = list(r.path.status)
-        self._log_frame(rid, cv, "cv_table.csv")
-        self._log_stability(rid, result, r)
+        files["cv_table.csv"] = cv
+        self._log_files(rid, files)
         log_model(self.client, rid, result, r, result.spec.tracking.register_as)   # pipeline.serving
 
-    def _log_stability(self, rid, result, r) -> None:
-        """Selection probabilities along the path (sparse family) and the stability summary at the
-        chosen λ, when the resampling stage ran for this loss."""
+    @staticmethod
+    def _stability(result, r) -> tuple[list, dict]:
+        """Metrics of the stability summary at the chosen λ and the selection probabilities along the
+        path (sparse family), when the resampling stage ran for this loss."""
         summary = getattr(result, "stability", {}).get(r.loss_label)
         if not summary:
-            return
+            return [], {}
+        metrics, files = [], {}
         row = summary.get("families", {}).get(r.family)
         if row:
             names = {"stability": "stability_index", "lower": "stability_index_low",
@@ -293,15 +300,12 @@ class ExecutionLog:
                      "sign_agreement": "stability_sign_agreement",
                      "prediction_instability": "prediction_instability"}
             metrics = [Metric(name, float(row[key]), 0, 0) for key, name in names.items() if _finite(row.get(key))]
-            if metrics:
-                self.client.log_batch(rid, metrics=metrics)
         probs = getattr(result, "selection_paths", {}).get((r.loss_label, r.family))   # (L, p), from the stage
         if probs is not None:
-            frame = pd.DataFrame({"feature": list(result.feature_names),
-                                  "at_chosen_lambda": probs[r.chosen_index]})
-            for step, lam in enumerate(r.lambdas):
-                frame[f"lambda_{step}={float(lam):.6g}"] = probs[step]
-            self._log_frame(rid, frame, "selection_probabilities.csv")
+            columns = {"feature": list(result.feature_names), "at_chosen_lambda": probs[r.chosen_index]}
+            columns.update({f"lambda_{step}={float(lam):.6g}": probs[step] for step, lam in enumerate(r.lambdas)})
+            files["selection_probabilities.csv"] = pd.DataFrame(columns)
+        return metrics, files
 
     def log_wall_time(self, seconds: float, result) -> None:
         """The one wall time (start to report written) as `seconds`; with the fit time the results cost

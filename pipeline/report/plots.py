@@ -40,7 +40,7 @@ def coefficient_colours() -> ListedColormap:
 
 def encode_png(fig) -> str:
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
+    fig.savefig(buf, format="png", dpi=110)
     plt.close(fig)
     return base64.b64encode(buf.getvalue()).decode("ascii")
 
@@ -194,7 +194,7 @@ def stability_paths(stab: dict, top: int = 12) -> str:
     """Selection probability of the most often selected features along λ (sparse family)."""
     paths = stab["l1_paths"]
     lambdas = _arr(paths["lambdas"])
-    fig, ax = plt.subplots(figsize=(6.8, 3.6))
+    fig, ax = plt.subplots(figsize=(6.8, 3.6), layout="constrained")
     palette = PALETTE
     styles = ["-", "--", ":", "-."]
     for i, (name, probs) in enumerate(zip(paths["names"], paths["probabilities"])):
@@ -209,7 +209,6 @@ def stability_paths(stab: dict, top: int = 12) -> str:
     ax.set_title(f"Stability paths over {stab['n_resamples']} resamples (dotted: threshold)", fontsize=10)
     ax.grid(alpha=0.3)
     ax.legend(fontsize=7, loc="center left", bbox_to_anchor=(1.01, 0.5), frameon=False)
-    fig.tight_layout()
     return encode_png(fig)
 
 
@@ -218,7 +217,7 @@ def selection_frequency(stab: dict) -> str:
     freq = stab["frequency"]
     names = freq["names"][::-1]
     y = np.arange(len(names))
-    fig, ax = plt.subplots(figsize=(6.8, 0.28 * len(names) + 1.2))
+    fig, ax = plt.subplots(figsize=(6.8, 0.28 * len(names) + 1.2), layout="constrained")
     present = [fam for fam in FAMILIES if fam.key in freq]
     h = 0.8 / len(present)
     for i, fam in enumerate(present):   # bars side by side, the first family on top
@@ -231,5 +230,4 @@ def selection_frequency(stab: dict) -> str:
                  fontsize=10)
     ax.legend(fontsize=7, loc="lower right")
     ax.grid(alpha=0.3, axis="x")
-    fig.tight_layout()
     return encode_png(fig)

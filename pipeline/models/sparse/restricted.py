@@ -15,9 +15,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-import cvxpy as cp
 import numpy as np
-import osqp
 import scipy.sparse as sp
 from scipy.optimize import linprog
 
@@ -39,6 +37,8 @@ def _penalty_split(lam: float, alpha: float) -> tuple[float, float]:
 
 
 def solve_squared_gram(XW, y, lam, alpha, warm=None, tol=1e-9) -> Restricted:
+    import osqp   # solver libraries load only where a fit needs them (penduel validate stays light)
+
     n, k = XW.shape
     x_mean, y_mean = XW.mean(axis=0), y.mean()
     Xc = XW - x_mean
@@ -115,6 +115,8 @@ def solve_cvxpy(XW, y, lam, alpha, loss: Loss, warm=None, tol=1e-9, backends=Non
     """Auxiliary-variable form. The loss is applied to z, never to X_W b directly: with
     cvxpy 1.9.3 bound propagation through multiply/abs/pos of a constant matrix times a
     free variable can hand HiGHS wrong bounds and a wrong "optimal" point."""
+    import cvxpy as cp
+
     n, k = XW.shape
     b = cp.Variable(k)
     b0 = cp.Variable()
