@@ -8,7 +8,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from sklearn.model_selection import train_test_split
 
-from . import seeds
+from . import preflight, seeds
 from .config import ExperimentSpec
 from .data import DataError, Dataset, load_dataset
 from .evaluate import Evaluation, evaluate_results, test_metrics
@@ -70,6 +70,7 @@ class ExperimentResult:
     evaluation: Evaluation | None = None              # fold tests, paired verdicts, ground-truth scores
     stability: dict = field(default_factory=dict)     # loss label -> resampling summary
     selection_paths: dict = field(default_factory=dict)  # (loss label, family) -> (L, p) selection probabilities
+    solver_output: tuple[str, ...] = ()   # what fits printed or warned (solver banners), kept out of the terminal
 
 
 def check_feature_budget(spec: ExperimentSpec, dataset: Dataset, n_train: int) -> int:
@@ -205,31 +206,55 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng) -> list[FamilyResult
     return results
 
 
-def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool = True) -> ExperimentResult:
-    start = time.perf_counter()
+@dataclass(frozen=True)
+class Inputs:
+    """Everything checked before any fit: `penduel validate` stops here, `penduel run` goes on from here."""
+    spec: ExperimentSpec
+    dataset: Dataset
+    train_rows: np.ndarray
+    test_rows: np.ndarray
+    splits: list
+    resamples: list
+    notes: tuple = ()
+
+
+def prepare(spec: ExperimentSpec, base_dir: pathlib.Path) -> Inputs:
     dataset = load_dataset(spec.data, base_dir, spec.task)
     train_rows, test_rows = split_rows(spec, dataset)
+    dataset, notes = preflight.check_split(spec, dataset, train_rows, test_rows)
+    preflight.check_resamples(spec, len(train_rows))
+    splits = plan_splits(spec, dataset, train_rows, test_rows)
+    resamples = resample_splits(spec, train_rows, test_rows, dataset.y[train_rows], dataset.task) \
+        if stability_losses(spec) else []
+    spec, clipped = preflight.clip_centres(spec, min(len(tr) for _, tr, _ in splits + list(resamples)))
     check_feature_budget(spec, dataset, len(train_rows))
+    return Inputs(spec, dataset, train_rows, test_rows, splits, resamples, notes + clipped)
+
+
+def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool = True,
+                   inputs: Inputs | None = None) -> ExperimentResult:
+    start = time.perf_counter()
+    inputs = inputs or prepare(spec, base_dir)
+    spec, dataset, train_rows, test_rows = inputs.spec, inputs.dataset, inputs.train_rows, inputs.test_rows
+    splits, resamples = inputs.splits, inputs.resamples
     shared = Shared(X=dataset.X, y=dataset.y, task=dataset.task, feature_maps=spec.features.maps,
                     feature_seed=spec.seed, input_names=dataset.feature_names,
                     family_options={f.key: f.options(getattr(spec.families, f.key),
                                                      seeds.int_seed(spec.seed, "landmarks"))
                                     for f in FAMILIES})
-    splits = plan_splits(spec, dataset, train_rows, test_rows)
-    resamples = resample_splits(spec, train_rows, test_rows, dataset.y[train_rows], dataset.task) \
-        if stability_losses(spec) else []
     tasks = plan_tasks(spec, shared, train_rows, test_rows, splits, resamples)
     data_hash = dataset.content_hash()
+    cache, output = cache_for(spec, FitOutcome, base_dir), []
     outcomes, reused = run_cached(run_tasks, run_fit, tasks, task_keys(spec, data_hash, tasks),
-                                  cache_for(spec, FitOutcome), backend=spec.execution.backend,
+                                  cache, backend=spec.execution.backend,
                                   n_jobs=spec.execution.n_jobs, progress="fits" if progress else None,
-                                  scheduler_address=spec.execution.scheduler_address, shared=shared)
-    notes = dataset.notes + ((f"reused {reused} of {len(tasks)} finished fit task(s) from the cache "
+                                  scheduler_address=spec.execution.scheduler_address, shared=shared, log=output)
+    notes = dataset.notes + inputs.notes + (cache.drop_note() if cache else ()) + ((f"reused {reused} of {len(tasks)} finished fit task(s) from the cache "
                               f"'{spec.cache.directory}' (refits avoided)",) if reused else ())
     notes += tuple(dict.fromkeys(f"{get_family(o.family).title}: {o.note}" for o in outcomes
                                  if o.note and o.split == "final"))   # e.g. the low-rank route was taken
     results = assemble(spec, shared, tasks, outcomes, test_rows, seeds.generator(spec.seed, "test_intervals"))
-    feature_names = next(o.feature_names for o in outcomes)
+    feature_names = next(o.feature_names for t, o in zip(tasks, outcomes) if t.split == "final")
     fold0 = splits[0]
     evaluation = evaluate_results(results, task=dataset.task, y_test=dataset.y[test_rows],
                                   fold_sizes=(len(fold0[1]), len(fold0[2])), dataset=dataset,
@@ -241,4 +266,4 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
                             results=tuple(results), seconds=time.perf_counter() - start,
                             notes=notes, tasks_reused=reused, tasks_total=len(tasks),
                             evaluation=evaluation, stability=stability.summaries,
-                            selection_paths=stability.selection_paths)
+                            selection_paths=stability.selection_paths, solver_output=tuple(output))

@@ -31,6 +31,7 @@ from mlflow.entities import Metric, Param, RunTag  # noqa: E402
 from mlflow.tracking import MlflowClient  # noqa: E402
 
 from .models.families import get_family  # noqa: E402
+from .store import ensure_store, spreadsheet_safe  # noqa: E402
 
 PACKAGES = ("penduel", "numpy", "scipy", "scikit-learn", "cvxpy", "mlflow", "pandas")
 
@@ -154,7 +155,8 @@ class ExecutionLog:
     def __init__(self, spec, uri: str | None = None):
         self.spec = spec
         self.uri = uri or spec.tracking.uri
-        with store_lock(self.uri):   # the client creates the schema of a new store
+        with store_lock(self.uri):   # a new store's schema is made under a temporary name, then renamed
+            ensure_store(self.uri)
             self.client = LockRetrying(MlflowClient(tracking_uri=self.uri))
         self.experiment_name = spec.tracking.experiment_name or spec.name
         self.run_id: str | None = None
@@ -203,7 +205,7 @@ class ExecutionLog:
     def _log_frame(self, run_id, frame: pd.DataFrame, name):
         with tempfile.TemporaryDirectory() as tmp:
             path = os.path.join(tmp, name)
-            frame.to_csv(path, index=False)
+            spreadsheet_safe(frame).to_csv(path, index=False)
             self.client.log_artifact(run_id, path)
 
     def log_results(self, result) -> None:
@@ -217,13 +219,16 @@ class ExecutionLog:
             Param("selection_rule", result.spec.selection.rule)],
             tags=[RunTag("penduel.data_hash", result.data_hash)])
         c.log_metric(self.run_id, "seconds", result.seconds)
+        if getattr(result, "solver_output", ()):   # solver banners and warnings, kept off the terminal
+            c.log_text(self.run_id, "\n\n".join(result.solver_output), "solver_output.txt")
         for r in result.results:
             self._log_child(result, r)
 
     def _log_child(self, result, r) -> None:
         c = self.client
         name = f"{r.family}-{r.loss_label}"
-        tags = {"mlflow.parentRunId": self.run_id, "penduel.kind": "fit", "penduel.family": r.family,
+        tags = {"mlflow.parentRunId": self.run_id, "penduel.kind": "fit", "penduel.shared_artifacts":
+                f"config.yaml, index.html and report_data.json are stored once, on the parent run {self.run_id}", "penduel.family": r.family,
                 "penduel.loss": r.loss_label, "penduel.config_hash": result.spec.config_hash(),
                 "penduel.data_hash": result.data_hash}
         run = c.create_run(self.experiment_id, tags=tags, run_name=name)
@@ -260,7 +265,6 @@ class ExecutionLog:
                     Metric("n_not_converged", float((~r.path.converged).sum()), ts, 0)]
         for start in range(0, len(metrics), 900):   # mlflow caps a batch at 1000 entries
             c.log_batch(rid, metrics=metrics[start:start + 900], params=params if start == 0 else [])
-        self._log_yaml(rid, result.spec.resolved(), "config.yaml")
         if r.coefficients is not None:
             self._log_frame(rid, pd.DataFrame({"feature": list(result.feature_names),
                                                "coefficient": r.coefficients}), "coefficients.csv")
@@ -296,10 +300,9 @@ class ExecutionLog:
             self._log_frame(rid, frame, "selection_probabilities.csv")
 
     def log_report(self, path) -> None:
-        """The HTML report goes to every run; its data (report_data.json) to the parent, so the report
-        can be rendered again from the store alone."""
-        for rid in [self.run_id, *self.child_ids.values()]:
-            self.client.log_artifact(rid, str(path))
+        """The HTML report and its data (report_data.json) go to the parent run once, so the report can be
+        rendered again from the store alone; children point to it (tag penduel.shared_artifacts)."""
+        self.client.log_artifact(self.run_id, str(path))
         data = pathlib.Path(path).parent / "report_data.json"
         if data.is_file():
             self.client.log_artifact(self.run_id, str(data))
@@ -316,6 +319,7 @@ class StoreError(Exception):
 
 def open_store(uri: str):
     with store_lock(uri):   # a new SQLite store gets its schema here
+        ensure_store(uri)
         return LockRetrying(MlflowClient(tracking_uri=uri))
 
 

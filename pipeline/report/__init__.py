@@ -4,6 +4,7 @@ from __future__ import annotations
 import datetime as dt
 import json
 import pathlib
+import re
 from importlib import resources
 
 import jinja2
@@ -159,17 +160,25 @@ def render(p: dict, run_id: str) -> str:
         versions=", ".join(f"{k} {v}" for k, v in p["versions"].items()), version=p["versions"]["penduel"], css=css)
 
 
-def report_path(base_dir: pathlib.Path, directory: str, name: str, run_id: str) -> pathlib.Path:
-    return pathlib.Path(base_dir) / directory / name / run_id / "index.html"
+def safe_part(text: str, limit: int = 80) -> str:
+    """One path component from a name read from a store or a config: letters, digits, '_', '-', '.', never
+    '..' or a leading dot, so a forged name cannot leave the reports folder."""
+    part = re.sub(r"[^A-Za-z0-9_.-]", "_", str(text))[:limit].lstrip(".")
+    return part or "unnamed"
 
 
-def write_payload_report(payload: dict, run_id: str, base_dir: pathlib.Path) -> pathlib.Path:
-    path = report_path(base_dir, payload["config"]["report"]["directory"], payload["name"], run_id)
+def report_path(reports: pathlib.Path, name: str, run_id: str) -> pathlib.Path:
+    """`reports` is the configured local folder; the stored name and run id are only sanitised components."""
+    return pathlib.Path(reports) / safe_part(name) / safe_part(run_id, 64) / "index.html"
+
+
+def write_payload_report(payload: dict, run_id: str, reports: pathlib.Path) -> pathlib.Path:
+    path = report_path(reports, payload["name"], run_id)
     path.parent.mkdir(parents=True, exist_ok=True)
     path.write_text(render(payload, run_id), encoding="utf-8")
     (path.parent / "report_data.json").write_text(json.dumps(payload, allow_nan=False), encoding="utf-8")
     return path
 
 
-def write_report(result, run_id: str, base_dir: pathlib.Path) -> pathlib.Path:
-    return write_payload_report(build_payload(result), run_id, base_dir)
+def write_report(result, run_id: str, reports: pathlib.Path) -> pathlib.Path:
+    return write_payload_report(build_payload(result), run_id, reports)

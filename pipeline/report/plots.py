@@ -12,6 +12,16 @@ import numpy as np  # noqa: E402
 
 from ..models.families import FAMILIES  # noqa: E402
 
+# Labels come from data (column names, class labels): never read `$…$` as math.
+matplotlib.rcParams["text.parse_math"] = False
+
+
+def plain_text(name, limit: int = 40) -> str:
+    """A name from the data as a literal figure label: no math parsing (a `$` stays a `$`), one line, and
+    shortened with an ellipsis past `limit` characters so a long name cannot push a figure apart."""
+    text = " ".join(str(name).split())
+    return text if len(text) <= limit else text[: limit - 1] + "…"
+
 # Okabe & Ito's colour-blind-safe palette (published colour set; common practice for accessible plots):
 # each family carries its own colour and marker, the rest of the palette is for other lines.
 COLOURS = {f.key: f.colour for f in FAMILIES}
@@ -42,7 +52,7 @@ def cv_curves(families, loss_label: str) -> str:
         ax.set_xscale("log")
         ax.set_xlabel("λ (log scale)")
         ax.set_ylabel("CV held-out loss (mean ± SE)")
-        ax.set_title(f"{f['title']} — {loss_label}", fontsize=10)
+        ax.set_title(plain_text(f"{f['title']} — {loss_label}", 80), fontsize=10)
         ax.grid(alpha=0.3)
     fig.tight_layout()
     return encode_png(fig)
@@ -60,7 +70,7 @@ def error_vs_df(families, loss_label: str) -> str:
     ax.set_xlabel("effective degrees of freedom ("
                   + "; ".join(f"{fam.short}: {fam.df_description}" for fam in FAMILIES) + ")")
     ax.set_ylabel("CV held-out loss")
-    ax.set_title(f"Error against model size — {loss_label}", fontsize=10)
+    ax.set_title(plain_text(f"Error against model size — {loss_label}", 80), fontsize=10)
     ax.grid(alpha=0.3)
     ax.legend(fontsize=8)
     fig.tight_layout()
@@ -78,12 +88,12 @@ def coefficient_path(f, top: int = 12) -> str:
     styles = ["-", "--", ":", "-."]
     for i, (name, vals) in enumerate(zip(names[:top], values[:top])):
         ax.plot(lambdas, _arr(vals), color=palette[i % len(palette)], ls=styles[(i // len(palette)) % 4],
-                lw=1.3, label=name[:40])
+                lw=1.3, label=plain_text(name))
     ax.axvline(f["lambda_chosen"], color="0.3", ls="--", lw=0.9)
     ax.set_xscale("log")
     ax.set_xlabel("λ (log scale)")
     ax.set_ylabel("coefficient")
-    ax.set_title(f"Sparse coefficient path — {f['loss_label']}", fontsize=10)
+    ax.set_title(plain_text(f"Sparse coefficient path — {f['loss_label']}", 80), fontsize=10)
     ax.grid(alpha=0.3)
     ax.legend(fontsize=7, loc="center left", bbox_to_anchor=(1.01, 0.5), frameon=False)
     fig.tight_layout()
@@ -99,7 +109,7 @@ def stability_paths(stab: dict, top: int = 12) -> str:
     styles = ["-", "--", ":", "-."]
     for i, (name, probs) in enumerate(zip(paths["names"], paths["probabilities"])):
         kw = dict(color=palette[i % len(palette)], ls=styles[(i // len(palette)) % 4], lw=1.3,
-                  label=name[:40]) if i < top else dict(color="0.75", lw=0.6)
+                  label=plain_text(name)) if i < top else dict(color="0.75", lw=0.6)
         ax.plot(lambdas, _arr(probs), **kw)
     ax.axhline(stab["threshold"], color="0.2", ls=":", lw=1.0)
     ax.set_xscale("log")
@@ -124,7 +134,7 @@ def selection_frequency(stab: dict) -> str:
     for i, fam in enumerate(present):   # bars side by side, the first family on top
         ax.barh(y + (len(present) - 1 - 2 * i) * h / 2, _arr(freq[fam.key][::-1]), height=h, color=fam.colour,
                 hatch="//" if i else None, label=f"{fam.title}: {fam.selected_phrase}")
-    ax.set_yticks(y, [n[:40] for n in names], fontsize=7)
+    ax.set_yticks(y, [plain_text(n) for n in names], fontsize=7)
     ax.set_xlim(0, 1)
     ax.set_xlabel("share of resamples")
     ax.set_title("Selection frequency at the chosen λ", fontsize=10)
