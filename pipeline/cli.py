@@ -193,7 +193,8 @@ def cmd_ui(args) -> int:
     uri = _store_uri(args)
     print(f"penduel: tracking UI for {uri} at http://{args.host}:{args.port} (Ctrl-C stops it)", file=sys.stderr)
     cmd = [sys.executable, "-m", "mlflow", "server", "--backend-store-uri", uri, "--host", args.host,
-           "--port", str(args.port), "--workers", str(args.workers)]
+           "--port", str(args.port), "--workers", str(args.workers),
+           "--uvicorn-opts", "--log-level warning --no-access-log"]   # no per-request lines
     env = dict(os.environ, PYTHONWARNINGS="ignore")
     # its own process group, so stopping the UI stops the server, its job runner and its workers together
     server = subprocess.Popen(cmd, start_new_session=True, env=env)
@@ -205,7 +206,7 @@ def cmd_ui(args) -> int:
         stop_group(server)
 
 
-def stop_group(proc, grace: float = 10.0) -> None:
+def stop_group(proc, grace: float = 5.0) -> None:
     """SIGTERM to a child's whole process group, SIGKILL after `grace` seconds; waits for the child."""
     if proc.poll() is not None:
         return

@@ -94,6 +94,12 @@ def _number(text: str) -> bool:
         return False
 
 
+def artifact_location(uri: str) -> str | None:
+    """Artifacts of a SQLite store live beside it (FOLDER/mlruns), wherever the command was started."""
+    path = _sqlite_path(uri)
+    return None if path is None else (path.resolve().parent / "mlruns").as_uri()
+
+
 def spreadsheet_safe(frame: pd.DataFrame) -> pd.DataFrame:
     """Text cells that a spreadsheet would run as a formula (=, +, -, @ first) get a leading apostrophe."""
     out = frame.copy()

@@ -31,7 +31,7 @@ from mlflow.entities import Metric, Param, RunTag  # noqa: E402
 from mlflow.tracking import MlflowClient  # noqa: E402
 
 from .models.families import get_family  # noqa: E402
-from .store import ensure_store, spreadsheet_safe  # noqa: E402
+from .store import artifact_location, ensure_store, spreadsheet_safe  # noqa: E402
 
 PACKAGES = ("penduel", "numpy", "scipy", "scikit-learn", "cvxpy", "mlflow", "pandas")
 
@@ -165,7 +165,8 @@ class ExecutionLog:
     def __enter__(self) -> "ExecutionLog":
         with store_lock(self.uri):
             exp = self.client.get_experiment_by_name(self.experiment_name)
-            exp_id = exp.experiment_id if exp else self.client.create_experiment(self.experiment_name)
+            exp_id = exp.experiment_id if exp else self.client.create_experiment(
+                self.experiment_name, artifact_location=artifact_location(self.uri))
         self.abandoned_runs = mark_abandoned_runs(self.client, exp_id, self.spec.config_hash())
         self.experiment_id = exp_id
         tags = {"penduel.config_hash": self.spec.config_hash(), "penduel.kind": "execution",

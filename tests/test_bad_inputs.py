@@ -418,7 +418,19 @@ def test_a_planted_pickle_in_the_cache_is_never_unpickled(tmp_path):
 def test_tracking_ui_binds_to_this_machine_unless_told(monkeypatch):
     import subprocess as sp
     calls = []
-    monkeypatch.setattr(sp, "call", lambda cmd: calls.append(cmd) or 0)
+
+    class Server:                      # stands in for the mlflow server process
+        pid = -1
+
+        def __init__(self, cmd, **kwargs):
+            calls.append(cmd)
+
+        def wait(self, timeout=None):
+            return 0
+
+        def poll(self):
+            return 0
+    monkeypatch.setattr(sp, "Popen", Server)
     assert _in_process(["ui", "--tracking-uri", "sqlite:///x.db"])[0] == 0
     assert _in_process(["ui", "--tracking-uri", "sqlite:///x.db", "--host", "0.0.0.0"])[0] == 0
     hosts = [cmd[cmd.index("--host") + 1] for cmd in calls]

@@ -47,7 +47,10 @@ def test_store_holds_parent_and_children_with_report_numbers(tiny_run, store):
         history = client.get_metric_history(child.info.run_id, "cv_error")
         assert sorted(h.step for h in history) == list(range(8))
         arts = {a.path for a in client.list_artifacts(child.info.run_id)}
-        assert {"config.yaml", "coefficients.csv", "predictions.csv", "index.html"} <= arts
+        assert {"coefficients.csv", "predictions.csv"} <= arts
+        # one copy of each shared artifact, on the parent run; the child points to it
+        assert not {"config.yaml", "index.html"} & arts
+        assert run_id in child.data.tags["penduel.shared_artifacts"]
         if p["family"] == "l1":
             assert m["n_nonzero"] >= 1
             assert f">{int(m['n_nonzero'])}<" in html

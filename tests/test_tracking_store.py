@@ -61,7 +61,7 @@ def test_children_carry_artifacts_stepped_metrics_and_stability(store):
     for child in children:
         rid = child.info.run_id
         assert child.info.status == "FINISHED"
-        assert {"cv_table.csv", "coefficients.csv", "config.yaml"} <= {a.path for a in client.list_artifacts(rid)}
+        assert {"cv_table.csv", "coefficients.csv"} <= {a.path for a in client.list_artifacts(rid)}
         assert [h.step for h in sorted(client.get_metric_history(rid, "cv_error"), key=lambda h: h.step)] \
             == list(range(8))
         m = child.data.metrics
