@@ -104,7 +104,7 @@ def spreadsheet_safe(frame: pd.DataFrame) -> pd.DataFrame:
     """Text cells that a spreadsheet would run as a formula (=, +, -, @ first) get a leading apostrophe."""
     out = frame.copy()
     for col in out.columns:
-        if out[col].dtype == object:
+        if out[col].dtype == object or pd.api.types.is_string_dtype(out[col]):
             out[col] = [("'" + v) if isinstance(v, str) and v.startswith(FORMULA_START) and not _number(v) else v
                         for v in out[col]]
     return out

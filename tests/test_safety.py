@@ -317,3 +317,68 @@ def test_paths_are_relative_to_the_config_folder(tmp_path):
     assert (project / "mlflow.db").is_file() and (project / ".penduel-cache").is_dir()
     assert pathlib.Path(re.search(r"report: (\S+)", done.stdout).group(1)).is_relative_to(project / "reports")
     assert not list(elsewhere.iterdir())
+
+
+# ---------------------------------------------------------------- names from data
+LONG = "very_long_sensor_name_" + "x" * 228            # 250 characters
+HOSTILE_NAMES = ["$\\undefinedmacro{x}$", LONG, "income_$_2020_$", "=HYPERLINK(\"http://x\")", "@sum", "-minus"]
+
+
+def _names_run(folder: pathlib.Path) -> tuple[str, str]:
+    rng = np.random.default_rng(4)
+    X = rng.standard_normal((80, len(HOSTILE_NAMES)))
+    frame = pd.DataFrame(X, columns=HOSTILE_NAMES)
+    frame["y"] = 2 * X[:, 0] + 1.5 * X[:, 1] - X[:, 2] + X[:, 3] + 0.1 * rng.standard_normal(80)
+    (folder / "data.csv").write_text(frame.to_csv(index=False), encoding="utf-8")
+    (folder / "experiment.yaml").write_text(
+        "name: names\ndata: {kind: csv, path: data.csv, target: y}\nstability: {n_resamples: 6}\n"
+        "families: {l1: {n_lambdas: 6}, l2: {n_lambdas: 6}}\nselection: {cv_folds: 3}\n", encoding="utf-8")
+    code, out, err = penduel(["run", "experiment.yaml", "--quiet"], folder)
+    assert code == 0, err
+    return out, re.search(r"run id: ([0-9a-f]{32})", out).group(1)
+
+
+def test_names_from_data_never_break_figures_or_spreadsheets(tmp_path):
+    import html as html_lib
+    out, run_id = _names_run(tmp_path)
+    report = pathlib.Path(re.search(r"report: (\S+)", out).group(1)).read_text(encoding="utf-8")
+    for name in HOSTILE_NAMES[:3]:
+        assert html_lib.escape(name) in report          # shown literally in the tables
+    assert report.count("<img") >= 4                    # every figure was drawn
+    client = MlflowClient(tracking_uri=f"sqlite:///{tmp_path / 'mlflow.db'}")
+    child = next(c for c in client.search_runs([client.get_run(run_id).info.experiment_id],
+                                               filter_string=f"tags.mlflow.parentRunId = '{run_id}'")
+                 if c.data.params["family"] == "l1")
+    text = pathlib.Path(client.download_artifacts(child.info.run_id, "coefficients.csv", str(tmp_path))).read_text()
+    for name in ("=HYPERLINK", "@sum", "-minus"):
+        assert f"'{name}" in text and not re.search(rf"^{re.escape(name)}", text, re.M)
+
+
+def test_figure_labels_are_literal_and_short():
+    import matplotlib.pyplot as plt
+    from pipeline.report.plots import encode_png, plain_text
+    label = plain_text("$\\undefinedmacro{x}$")
+    assert label == "\\$\\undefinedmacro{x}\\$"
+    fig, ax = plt.subplots()
+    ax.plot([0, 1], [0, 1], label=label)
+    ax.legend()
+    ax.set_title(plain_text("income_$_2020_$"))
+    assert encode_png(fig)                               # drawn: no math parsing of the name
+    short = plain_text(LONG)
+    assert len(short) == 40 and short.endswith("…")
+
+
+@pytest.mark.slow
+def test_report_with_hostile_names_renders_in_a_browser(tmp_path):
+    from .test_browser import SCREENSHOTS, Page, chromium_binary
+    if chromium_binary() is None:
+        pytest.skip("chromium is not installed (Debian: apt-get install -y chromium)")
+    out, _ = _names_run(tmp_path)
+    report = pathlib.Path(re.search(r"report: (\S+)", out).group(1))
+    SCREENSHOTS.mkdir(parents=True, exist_ok=True)
+    with Page(chromium_binary()) as page:
+        page.open(report.as_uri())
+        width = page.evaluate("document.documentElement.scrollWidth")
+        view = page.evaluate("window.innerWidth")
+        page.screenshot(SCREENSHOTS / "hostile-names.png")
+    assert width <= view + 2, f"a long name widened the page to {width} px (window {view} px)"

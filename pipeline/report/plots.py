@@ -12,15 +12,13 @@ import numpy as np  # noqa: E402
 
 from ..models.families import FAMILIES  # noqa: E402
 
-# Labels come from data (column names, class labels): never read `$…$` as math.
-matplotlib.rcParams["text.parse_math"] = False
-
-
 def plain_text(name, limit: int = 40) -> str:
-    """A name from the data as a literal figure label: no math parsing (a `$` stays a `$`), one line, and
-    shortened with an ellipsis past `limit` characters so a long name cannot push a figure apart."""
+    """A name from the data as a literal figure label: one line, shortened with an ellipsis past `limit`
+    characters so a long name cannot push a figure apart, and every `$` escaped so matplotlib never reads
+    `$…$` as math (an unknown macro would stop the drawing). Axis ticks keep their own math formatting."""
     text = " ".join(str(name).split())
-    return text if len(text) <= limit else text[: limit - 1] + "…"
+    text = text if len(text) <= limit else text[: limit - 1] + "…"
+    return text.replace("$", r"\$")
 
 # Okabe & Ito's colour-blind-safe palette (published colour set; common practice for accessible plots):
 # each family carries its own colour and marker, the rest of the palette is for other lines.
