@@ -94,7 +94,7 @@ def starter_text(data: pathlib.Path, target: str, config_dir: pathlib.Path) -> s
         f"  rule: min                  # or one_se: the simplest model within one standard error\n"
         f"stability:\n"
         f"  n_resamples: 20            # refits on subsamples to measure selection stability; more is steadier\n"
-        f"tracking:\n"
+        f"tracking:                    # relative paths here are relative to this file's folder\n"
         f"  uri: sqlite:///mlflow.db   # or postgresql://user@host/db, or http://host:port of a tracking server\n"
     )
     parse_config(yaml.safe_load(text), "starter config")     # never write a config that would not load

@@ -114,17 +114,19 @@ class StabilitySpec(Settings):
 
 
 class TrackingSpec(Settings):
-    uri: str = Field("sqlite:///mlflow.db", description="mlflow tracking URI (SQLite file by default).")
+    uri: str = Field("sqlite:///mlflow.db", description="mlflow tracking URI (SQLite file by default; a relative "
+                                                        "file is in the config file's folder).")
     experiment_name: str | None = Field(None, description="Tracking experiment; defaults to the experiment name.")
 
 
 class ReportSpec(Settings):
-    directory: str = Field("reports", description="Folder where reports are written.")
+    directory: str = Field("reports", description="Folder where reports are written, relative to the config "
+                                                  "file's folder.")
 
 
 class CacheSpec(Settings):
-    directory: str = Field(".penduel-cache", description="Folder of finished fit tasks, relative to the current "
-                                                         "folder; a rerun reuses them.")
+    directory: str = Field(".penduel-cache", description="Folder of finished fit tasks, relative to the config "
+                                                         "file's folder; a rerun reuses them.")
     enabled: bool = Field(True, description="Reuse and store finished fit tasks.")
 
 
