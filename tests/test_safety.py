@@ -382,3 +382,10 @@ def test_report_with_hostile_names_renders_in_a_browser(tmp_path):
         view = page.evaluate("window.innerWidth")
         page.screenshot(SCREENSHOTS / "hostile-names.png")
     assert width <= view + 2, f"a long name widened the page to {width} px (window {view} px)"
+
+
+def test_polynomial_terms_keep_names_with_spaces_readable():
+    from pipeline.features.basic import PolynomialTerms
+    X = np.random.default_rng(0).standard_normal((10, 2))
+    names = PolynomialTerms(2).fit(X).get_feature_names_out(["net income", "a"])
+    assert names == ["(net income)^2", "(net income)×a", "a^2"]
