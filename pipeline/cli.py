@@ -97,7 +97,7 @@ def cmd_run(args) -> int:
     for note in result.notes:
         print(f"note: {note}")
     print(_summary_table(result))
-    print(f"\nfinished in {result.seconds:.1f} s")
+    print("" if args.quiet else f"\nfinished in {result.seconds:.1f} s")
     print(f"report: {path}")
     print(f"run id: {log.run_id}")
     return 0

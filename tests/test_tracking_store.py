@@ -83,14 +83,12 @@ def test_children_carry_artifacts_stepped_metrics_and_stability(store):
     assert [round(lookup[n], 12) for n in freq["names"]] == [round(v, 12) for v in freq["l1"]]
 
 
-def test_failed_execution_is_marked_failed_with_its_error(tmp_path):
+def test_a_user_mistake_opens_no_tracking_run(tmp_path):
+    # refused before any fit and before a tracking run is opened, so no FAILED run is left behind
     cwd = scratch_dir("penduel-fail-")
     pd.DataFrame({"a": [1.0, 2.0, 3.0, 4.0], "b": [0.0, 1.0, 0.0, 1.0]}).to_csv(cwd / "t.csv", index=False)
     (cwd / "bad.yaml").write_text("name: broken\ndata: {kind: csv, path: t.csv, target: nope}\n")
     code, _, err = penduel(["run", "bad.yaml", "--quiet"], cwd)
     assert code == 2 and "data.target" in err
     client = open_store(f"sqlite:///{cwd / 'mlflow.db'}")
-    exp = client.get_experiment_by_name("broken")
-    (run,) = client.search_runs([exp.experiment_id])
-    assert run.info.status == "FAILED"
-    assert "nope" in run.data.tags["penduel.error"]
+    assert client.get_experiment_by_name("broken") is None
