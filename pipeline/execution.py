@@ -55,8 +55,16 @@ _WATCHING: list = []
 def _watch_parent(parent_pid: int) -> None:
     """In a worker process: end when the process that dispatched the task is gone (e.g. killed with -9), so
     no worker outlives its run. Polls the parent id once a second on a daemon thread."""
-    if _WATCHING or os.getpid() == parent_pid or os.getppid() != parent_pid:
-        return          # in the main process, or not its direct child (a Dask nanny manages its own)
+    if _WATCHING or os.getpid() == parent_pid:
+        return
+    if os.getppid() != parent_pid:
+        try:
+            os.kill(parent_pid, 0)
+        except ProcessLookupError:
+            os._exit(1)     # the run was killed while this worker was starting
+        except PermissionError:
+            pass
+        return              # not its direct child (a Dask nanny manages its own workers)
     _WATCHING.append(parent_pid)
 
     def watch():
@@ -140,7 +148,9 @@ def _run_processes(fn, tasks, shared, use_shared, n_jobs, address) -> Iterator[t
 
     # loky keeps its worker pool alive between calls, so repeated stages pay start-up once;
     # one thread per worker from start-up on also covers libraries a task loads late.
-    with parallel_config(backend="loky", inner_max_num_threads=1):
+    # each worker watches this process from its start, so a kill -9 of the run ends idle workers too
+    with parallel_config(backend="loky", inner_max_num_threads=1, initializer=_watch_parent,
+                         initargs=(os.getpid(),)):
         parallel = Parallel(n_jobs=n_jobs, return_as="generator_unordered")
         yield from parallel(delayed(_call)(fn, i, t, shared, use_shared, os.getpid()) for i, t in tasks)
 
