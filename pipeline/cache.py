@@ -6,6 +6,10 @@ seed), the data hash, the task id and its row/λ arrays, and the package version
 is one ``.npz`` file holding the result's arrays plus its other fields as JSON text; it is
 read back with ``allow_pickle=False``, so no cache file is ever unpickled. Each entry is
 written to a temporary name and renamed into place, so a kill mid-write leaves no torn entry.
+
+An entry also carries the key it was stored under and a SHA-256 digest of its content. On reading,
+an entry whose key or digest does not match, whose fields have the wrong type, or whose arrays do not
+fit the task (one row per λ, the task's own id) is dropped, refitted and reported in a `note:`.
 """
 from __future__ import annotations
 
@@ -14,6 +18,7 @@ import hashlib
 import json
 import os
 import pathlib
+import shutil
 import tempfile
 import zipfile
 from importlib import metadata
@@ -23,8 +28,9 @@ import numpy as np
 
 from .models.families import KEYS
 
-CACHE_FORMAT = 1
+CACHE_FORMAT = 2
 _META = "__meta__"
+_CHECK = "__check__"
 
 
 def package_version() -> str:
@@ -83,6 +89,21 @@ def encode(value) -> dict[str, np.ndarray]:
     return arrays
 
 
+def _type_ok(annotation: str, value) -> bool:
+    """Does a decoded value match its field's annotation (a string under postponed annotations)?"""
+    kinds = [k.strip() for k in str(annotation).split("|")]
+    checks = {"None": value is None, "str": isinstance(value, str), "bool": isinstance(value, bool),
+              "int": isinstance(value, int) and not isinstance(value, bool),
+              "float": isinstance(value, (int, float)) and not isinstance(value, bool),
+              "np.ndarray": isinstance(value, np.ndarray), "dict": isinstance(value, dict)}
+    for kind in kinds:
+        if kind.startswith("tuple") and isinstance(value, tuple):
+            return True
+        if checks.get(kind, False):
+            return True
+    return not any(k in checks or k.startswith("tuple") for k in kinds)   # an annotation we do not read
+
+
 def decode(cls, arrays) -> Any:
     meta = json.loads(bytes(arrays[_META]).decode())
     values = {}
@@ -92,7 +113,31 @@ def decode(cls, arrays) -> Any:
         else:
             m = meta[f.name]
             values[f.name] = tuple(m["tuple"]) if "tuple" in m else m["plain"]
+        if not _type_ok(f.type, values[f.name]):
+            raise TypeError(f"field {f.name} holds {type(values[f.name]).__name__}, not {f.type}")
     return cls(**values)
+
+
+def content_digest(arrays: dict) -> str:
+    h = hashlib.sha256()
+    for name in sorted(n for n in arrays if n != _CHECK):
+        h.update(name.encode())
+        _digest_arrays(h, arrays[name])
+    return h.hexdigest()
+
+
+def fits_task(value, task) -> str | None:
+    """Why a result cannot belong to `task`, or None: the fields it shares with the task must be equal, and
+    every array has one row per λ of the task."""
+    for f in dataclasses.fields(value):
+        v = getattr(value, f.name)
+        if hasattr(task, f.name) and isinstance(v, str) and v != getattr(task, f.name):
+            return f"its {f.name} is {v!r}, not {getattr(task, f.name)!r}"
+        if isinstance(v, np.ndarray) and (v.ndim == 0 or v.shape[0] != len(task.lambdas)):
+            return f"its {f.name} has shape {v.shape}, not one row per λ ({len(task.lambdas)})"
+        if isinstance(v, tuple) and f.name == "status" and len(v) != len(task.lambdas):
+            return f"its status has {len(v)} entries, not {len(task.lambdas)}"
+    return None
 
 
 class TaskCache:
@@ -101,28 +146,60 @@ class TaskCache:
     def __init__(self, directory: str | os.PathLike, result_type: type):
         self.directory = pathlib.Path(directory)
         self.result_type = result_type
+        self.dropped: list[str] = []      # why entries were dropped in this process, for a note
 
     def path(self, key: str) -> pathlib.Path:
         return self.directory / key[:2] / f"{key}.npz"
 
-    def get(self, key: str):
+    def drop(self, key: str, why: str) -> None:
         path = self.path(key)
+        if path.is_dir() and not path.is_symlink():
+            shutil.rmtree(path, ignore_errors=True)
+        else:
+            path.unlink(missing_ok=True)
+        self.dropped.append(why)
+
+    def get(self, key: str, task=None):
+        """The stored result, or None when absent or when it fails verification (then it is dropped)."""
+        path = self.path(key)
+        if not path.exists() and not path.is_symlink():
+            return None
         try:
             with np.load(path, allow_pickle=False) as data:
-                return decode(self.result_type, {k: data[k] for k in data.files})
+                arrays = {k: data[k] for k in data.files}
+            check = json.loads(bytes(arrays[_CHECK]).decode())
+            if check.get("key") != key:
+                raise ValueError("it was stored under another key (copied from another entry)")
+            if check.get("digest") != content_digest(arrays):
+                raise ValueError("its content does not match its digest (edited)")
+            value = decode(self.result_type, {k: v for k, v in arrays.items() if k != _CHECK})
+            why = None if task is None else fits_task(value, task)
+            if why:
+                raise ValueError(why)
+            return value
         except FileNotFoundError:
             return None
-        except (OSError, ValueError, KeyError, TypeError, EOFError, zipfile.BadZipFile):
-            path.unlink(missing_ok=True)   # unreadable entry: drop it and fit again
+        except (OSError, ValueError, KeyError, TypeError, AttributeError, EOFError, zipfile.BadZipFile) as exc:
+            self.drop(key, str(exc).split(chr(10))[0][:200] or type(exc).__name__)   # then fit again
             return None
+
+    def drop_note(self) -> tuple[str, ...]:
+        if not self.dropped:
+            return ()
+        reasons = "; ".join(dict.fromkeys(self.dropped))
+        return (f"dropped {len(self.dropped)} cache entr{'y' if len(self.dropped) == 1 else 'ies'} of "
+                f"'{self.directory}' that failed verification and fitted again ({reasons[:300]})",)
 
     def put(self, key: str, value) -> None:
         path = self.path(key)
         path.parent.mkdir(parents=True, exist_ok=True)
         fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".tmp-", suffix=".npz")
         try:
+            arrays = encode(value)
+            check = {"key": key, "digest": content_digest(arrays)}
+            arrays[_CHECK] = np.frombuffer(json.dumps(check).encode(), dtype=np.uint8)
             with os.fdopen(fd, "wb") as fh:
-                np.savez(fh, **encode(value))
+                np.savez(fh, **arrays)
             os.replace(tmp, path)
         except BaseException:
             pathlib.Path(tmp).unlink(missing_ok=True)
@@ -148,8 +225,10 @@ def task_keys(spec, data_hash: str, tasks) -> list[str]:
     return [task_key(prefixes[t.family], t) for t in tasks]
 
 
-def cache_for(spec, result_type: type) -> TaskCache | None:
-    return TaskCache(spec.cache.directory, result_type) if spec.cache.enabled else None
+def cache_for(spec, result_type: type, base_dir: str | os.PathLike = ".") -> TaskCache | None:
+    """The cache folder of the config, relative to the config file's folder (`base_dir`)."""
+    folder = pathlib.Path(spec.cache.directory).expanduser()
+    return TaskCache(pathlib.Path(base_dir) / folder, result_type) if spec.cache.enabled else None
 
 
 def run_cached(run_tasks: Callable, fn: Callable, tasks: list, keys: list[str], cache: TaskCache | None,
@@ -157,7 +236,7 @@ def run_cached(run_tasks: Callable, fn: Callable, tasks: list, keys: list[str], 
     """Results of fn over tasks in task order, reusing cached ones; also the number of fits avoided."""
     if cache is None:
         return run_tasks(fn, tasks, **options), 0
-    found = [cache.get(k) for k in keys]
+    found = [cache.get(k, t) for k, t in zip(keys, tasks)]
     todo = [i for i, r in enumerate(found) if r is None]
     storing = StoringFit(fn, str(cache.directory), cache.result_type,
                          {tasks[i].task_id: keys[i] for i in todo})

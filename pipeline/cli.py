@@ -16,8 +16,12 @@ import warnings
 EXIT_USER_ERROR = 2
 
 
+class Terminated(KeyboardInterrupt):
+    """SIGTERM: handled like Ctrl-C (the run is marked KILLED) but exits with 128 + 15."""
+
+
 def _interrupt(signum, frame):
-    raise KeyboardInterrupt
+    raise Terminated
 
 
 def _fail(message: str) -> int:
@@ -26,13 +30,27 @@ def _fail(message: str) -> int:
     return EXIT_USER_ERROR
 
 
+def _prepared(args, uri: str | None = None):
+    """The config, checked against its data and the places it writes to: (spec, folder, inputs, store URI).
+    Every user mistake is raised here, before any fit and before a tracking run is opened."""
+    from .config import load_config
+    from .preflight import anchored_uri, check_places
+    from .runner import prepare
+
+    spec, base_dir = load_config(args.config)
+    uri = uri or anchored_uri(spec.tracking.uri, base_dir)
+    check_places(spec, base_dir, uri)
+    return spec, base_dir, prepare(spec, base_dir), uri
+
+
 def cmd_validate(args) -> int:
     import yaml
 
-    from .config import load_config
-
-    spec, _ = load_config(args.config)
-    print(f"# {args.config}: valid. Resolved settings (defaults filled in):")
+    spec, _, inputs, _ = _prepared(args)
+    for note in inputs.notes + inputs.dataset.notes:   # on stderr: stdout stays the resolved YAML
+        print(f"note: {note}", file=sys.stderr)
+    print(f"# {args.config}: valid; data read ({inputs.dataset.n_samples} rows, {inputs.dataset.n_features} "
+          f"feature columns). Resolved settings (defaults filled in):")
     print(yaml.safe_dump(spec.resolved(), sort_keys=False, allow_unicode=True), end="")
     return 0
 
@@ -58,57 +76,75 @@ def _summary_table(result) -> str:
 
 
 def cmd_run(args) -> int:
-    from .config import load_config
+    from .preflight import anchored
     from .report import write_report
     from .runner import run_experiment
     from .tracking import ExecutionLog
 
     started = time.perf_counter()   # the one wall time runs from here to the report written
-    spec, base_dir = load_config(args.config)
-    if args.tracking_uri:
-        spec = spec.model_copy(update={"tracking": spec.tracking.model_copy(update={"uri": args.tracking_uri})})
-    print(f"penduel: running '{spec.name}' — {len(spec.losses)} loss(es), "
-          f"{spec.selection.cv_folds}-fold CV, tracking store {spec.tracking.uri}", file=sys.stderr)
+    spec, base_dir, inputs, uri = _prepared(args, args.tracking_uri)
+    if not args.quiet:
+        print(f"penduel: running '{spec.name}' — {len(spec.losses)} loss(es), "
+              f"{spec.selection.cv_folds}-fold CV, tracking store {uri}", file=sys.stderr)
 
     def status(text):
         if not args.quiet:
             print(f"penduel: {text} (at {time.perf_counter() - started:.1f} s)", file=sys.stderr, flush=True)
 
-    with ExecutionLog(spec) as log:
+    with ExecutionLog(spec, uri) as log:
         status(f"tracking run {log.run_id} opened")
-        result = run_experiment(spec, base_dir, progress=not args.quiet)
+        result = run_experiment(spec, base_dir, progress=not args.quiet, inputs=inputs)
         status("fits done; logging runs to the tracking store")
         log.log_results(result)
         status("writing the report")
-        path, wall = write_report(result, log.run_id, pathlib.Path.cwd(), started)
+        path, wall = write_report(result, log.run_id, anchored(spec.report.directory, base_dir), started)
         log.log_report(path)
         log.log_wall_time(wall, result)
-    print(_summary_table(result))
     for note in result.notes:
         print(f"note: {note}")
-    reused = (f"; {result.tasks_reused} of {result.tasks_total} fits reused from the cache, which originally took "
-              f"{result.fit_seconds_total:.1f} s of fitting" if result.tasks_reused else "")
-    print(f"\nwall time {wall:.1f} s (start to report written){reused}")
+    print(_summary_table(result))
+    if not args.quiet:
+        reused = (f"; {result.tasks_reused} of {result.tasks_total} fits reused from the cache, which originally "
+                  f"took {result.fit_seconds_total:.1f} s of fitting" if result.tasks_reused else "")
+        print(f"\nwall time {wall:.1f} s (start to report written){reused}")
     print(f"report: {path}")
     print(f"run id: {log.run_id}")
     return 0
 
 
 def _store_uri(args) -> str:
-    """--tracking-uri, else the store named in --config, else the default SQLite file."""
-    if args.tracking_uri:
-        return args.tracking_uri
-    if args.config:
-        from .config import load_config
+    """--tracking-uri, else the store named in --config (relative to its folder), else the default SQLite file."""
+    from .config import load_config
+    from .preflight import anchored_uri, check_store
 
-        spec, _ = load_config(args.config)
-        return spec.tracking.uri
-    return "sqlite:///mlflow.db"
+    if args.tracking_uri:
+        uri = args.tracking_uri
+    elif args.config:
+        spec, base_dir = load_config(args.config)
+        uri = anchored_uri(spec.tracking.uri, base_dir)
+    else:
+        uri = "sqlite:///mlflow.db"
+    check_store(uri, "--tracking-uri" if args.tracking_uri else "tracking.uri")
+    return uri
+
+
+def _reports_folder(args) -> pathlib.Path:
+    """The local reports folder: --config's report.directory (relative to its folder), else ./reports.
+    Never a folder read from the store."""
+    from .config import load_config
+    from .preflight import anchored
+
+    if args.config:
+        spec, base_dir = load_config(args.config)
+        return anchored(spec.report.directory, base_dir)
+    return pathlib.Path.cwd() / "reports"
+
+
 
 
 def cmd_report(args) -> int:
     from .report import write_payload_report
-    from .tracking import StoreError, execution_runs, latest_execution, open_store, read_payload
+    from .stored_runs import StoreError, execution_runs, latest_execution, open_store, read_payload
 
     if bool(args.run_id) == bool(args.latest):
         return _fail("report: give either a RUN_ID or --latest (the newest finished execution).")
@@ -120,7 +156,7 @@ def cmd_report(args) -> int:
         payload = read_payload(client, run_id)
     except StoreError as exc:
         return _fail(str(exc))
-    path = write_payload_report(payload, run_id, pathlib.Path.cwd())
+    path = write_payload_report(payload, run_id, _reports_folder(args))
     print(f"report: {path}")
     print(f"run id: {run_id}")
     return 0
@@ -129,7 +165,7 @@ def cmd_report(args) -> int:
 def cmd_compare(args) -> int:
     from .compare import comparison_payload, gather
     from .report.comparison import write_comparison
-    from .tracking import StoreError, open_store
+    from .stored_runs import StoreError, open_store
 
     if args.last is not None and args.last < 1:
         return _fail(f"compare: --last must be 1 or more, found {args.last}.")
@@ -138,7 +174,8 @@ def cmd_compare(args) -> int:
         executions = gather(open_store(_store_uri(args)), args.experiment, tuple(args.runs or ()), last)
     except StoreError as exc:
         return _fail(str(exc))
-    path = write_comparison(comparison_payload(executions), pathlib.Path.cwd())
+    reports = _reports_folder(args)
+    path = write_comparison(comparison_payload(executions), reports.parent, reports.name)
     for i, e in enumerate(executions):
         print(f"E{i + 1}: {e['run_id']}  {e['name']}")
     print(f"comparison: {path}")
@@ -160,7 +197,7 @@ def cmd_ui(args) -> int:
     print(f"penduel: tracking UI for {uri} at http://{args.host}:{args.port} (Ctrl-C stops it)", file=sys.stderr)
     if args.config:   # the runs table of the config's experiment
         from .config import load_config
-        from .tracking import open_store
+        from .stored_runs import open_store
 
         spec, _ = load_config(args.config)
         name = spec.tracking.experiment_name or spec.name
@@ -169,11 +206,19 @@ def cmd_ui(args) -> int:
             print(f"penduel: runs of '{name}': http://{args.host}:{args.port}/#/experiments/{exp.experiment_id}/runs"
                   f"?workflowType=machine_learning", file=sys.stderr)
     cmd = [sys.executable, "-m", "mlflow", "server", "--backend-store-uri", uri, "--host", args.host,
-           "--port", str(args.port), "--workers", str(args.workers)]
+           "--port", str(args.port), "--workers", str(args.workers),
+           "--uvicorn-opts", "--log-level warning --no-access-log"]   # no per-request lines
+    env = dict(os.environ, PYTHONWARNINGS="ignore")
+    # its own process group, so stopping the UI stops the server, its job runner and its workers together
+    server = subprocess.Popen(cmd, start_new_session=True, env=env)
     try:
-        return subprocess.call(cmd)
-    except KeyboardInterrupt:
-        return 0
+        return server.wait()
+    except KeyboardInterrupt as exc:
+        return 143 if isinstance(exc, Terminated) else 0
+    finally:
+        from .execution import stop_group
+
+        stop_group(server)
 
 
 def cmd_predict(args) -> int:
@@ -181,7 +226,7 @@ def cmd_predict(args) -> int:
     from .data.loaders import read_table
     from .serving import predict_side_by_side
     from .starter import KINDS
-    from .tracking import StoreError, latest_execution, open_store
+    from .stored_runs import StoreError, latest_execution, open_store
 
     if bool(args.run_id) == bool(args.experiment):
         return _fail("predict: give either a RUN_ID (an execution or one of its fit runs) or --experiment NAME "
@@ -228,14 +273,24 @@ def _store_options(p) -> None:
     p.add_argument("--tracking-uri", help="tracking store URI (default sqlite:///mlflow.db)")
 
 
+def _version() -> str:
+    from importlib import metadata
+
+    try:
+        return metadata.version("penduel")
+    except metadata.PackageNotFoundError:
+        return "unknown"
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="penduel", description="Compare sparse (L1) and ridge-type (L2) "
                                      "penalised models on identical splits, log them and write a report.")
+    parser.add_argument("--version", action="version", version=f"penduel {_version()}")
     sub = parser.add_subparsers(dest="verb", required=True)
     p = sub.add_parser("run", help="run one experiment file")
     p.add_argument("config")
     p.add_argument("--tracking-uri", help="override tracking.uri of the config")
-    p.add_argument("--quiet", action="store_true", help="no progress bar")
+    p.add_argument("--quiet", action="store_true", help="print only the results table and the paths")
     p.set_defaults(func=cmd_run)
     p = sub.add_parser("validate", help="check an experiment file and print it with defaults filled in")
     p.add_argument("config")
@@ -315,9 +370,15 @@ def _dispatch(args) -> int:
         return _fail(f"ran out of memory ({exc or 'no detail'}). Use fewer rows, features (features.maps) or "
                      f"λ values, lower features.memory_budget_mib so the size check refuses it before "
                      f"starting, or run on a larger machine; finished fits are kept in the cache.")
-    except KeyboardInterrupt:
+    except Exception as exc:
+        execution = sys.modules.get("pipeline.execution")
+        if execution is None or not isinstance(exc, execution.TaskFailed):
+            raise
+        print(textwrap.fill(f"penduel: {exc.paragraph()}", width=100, break_long_words=False), file=sys.stderr)
+        return 1
+    except KeyboardInterrupt as exc:
         print("penduel: interrupted; the tracking run is marked KILLED.", file=sys.stderr)
-        return 130
+        return 143 if isinstance(exc, Terminated) else 130
 
 
 if __name__ == "__main__":

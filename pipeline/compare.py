@@ -12,7 +12,7 @@ import math
 
 from .evaluate import PRIMARY, advantage_winner, winner
 from .models.families import compared_pair
-from .tracking import StoreError, child_runs, execution_runs, read_config, read_payload
+from .stored_runs import StoreError, child_runs, execution_runs, read_config, read_payload
 
 MISSING = "(not set)"
 

@@ -6,9 +6,16 @@ thread, so a result is bit-identical whichever backend or worker computed it.
 from __future__ import annotations
 
 import contextlib
+import io
 import logging
+import os
+import signal
 import sys
+import tempfile
+import threading
+import time
 import traceback
+import warnings
 from dataclasses import dataclass
 from typing import Any, Callable, Iterator, Sequence
 
@@ -18,7 +25,7 @@ from threadpoolctl import ThreadpoolController
 from tqdm import tqdm
 
 class TaskFailed(RuntimeError):
-    """A task raised; the message names the task and carries the worker's traceback."""
+    """A task raised (or its worker died); the message names the task and carries the worker's traceback."""
 
     def __init__(self, index: int, task_repr: str, detail: str):
         super().__init__(index, task_repr, detail)
@@ -29,25 +36,86 @@ class TaskFailed(RuntimeError):
     def __str__(self) -> str:
         return f"task {self.index} ({self.task_repr}) failed:\n{self.detail}"
 
+    def paragraph(self) -> str:
+        """One paragraph for the terminal: the task, the last line of what went wrong, what is kept."""
+        lines = [ln.strip() for ln in self.detail.strip().splitlines() if ln.strip()]
+        last = lines[-1] if lines else "no detail"
+        return (f"fit task {self.index + 1} ({self.task_repr}) failed twice, on its first attempt and on one retry: "
+                f"{last[:400]}. Finished fits are kept in the cache, so a rerun continues from them; the tracking "
+                f"run is marked FAILED with this message.")
+
 
 def _short_repr(task: Any, limit: int = 200) -> str:
-    text = repr(task)
+    text = str(getattr(task, "task_id", "") or "") or repr(task)
     return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
 _THREADPOOLS: list = []   # one controller per process: building one scans the loaded libraries (~6 ms)
+_WATCHING: list = []
 
 
-def _call(fn: Callable, index: int, task: Any, shared: Any, use_shared: bool) -> tuple[int, Any]:
+def _watch_parent(parent_pid: int) -> None:
+    """In a worker process: end when the process that dispatched the task is gone (e.g. killed with -9), so
+    no worker outlives its run. Polls the parent id once a second on a daemon thread."""
+    if _WATCHING or os.getpid() == parent_pid:
+        return
+    if os.getppid() != parent_pid:
+        try:
+            os.kill(parent_pid, 0)
+        except ProcessLookupError:
+            os._exit(1)     # the run was killed while this worker was starting
+        except PermissionError:
+            pass
+        return              # not its direct child (a Dask nanny manages its own workers)
+    _WATCHING.append(parent_pid)
+
+    def watch():
+        while os.getppid() == parent_pid:
+            time.sleep(1.0)
+        os._exit(1)
+
+    threading.Thread(target=watch, name="penduel-parent-watch", daemon=True).start()
+
+
+@contextlib.contextmanager
+def _captured_output(sink: list):
+    """Solver banners and library warnings during a task: written to a temporary file instead of the terminal
+    (file descriptor 1, so C libraries are caught too), then appended to `sink` as text."""
+    sys.stdout.flush()
+    printed = io.StringIO()
+    with tempfile.TemporaryFile(mode="w+b") as tmp, warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        saved = os.dup(1)
+        os.dup2(tmp.fileno(), 1)
+        try:
+            with contextlib.redirect_stdout(printed):
+                yield
+        finally:
+            os.dup2(saved, 1)
+            os.close(saved)
+            tmp.seek(0)
+            text = (tmp.read().decode("utf-8", "replace") + printed.getvalue()).strip()
+        lines = [text] if text else []
+        lines += [f"{w.category.__name__}: {w.message}" for w in caught
+                  if not issubclass(w.category, (FutureWarning, DeprecationWarning))]
+        if lines:
+            sink.append("\n".join(dict.fromkeys(lines)))
+
+
+def _call(fn: Callable, index: int, task: Any, shared: Any, use_shared: bool,
+          parent_pid: int | None = None) -> tuple[int, Any, str]:
     # One BLAS thread everywhere: thread count can change floating-point summation order.
-    if not _THREADPOOLS:
-        _THREADPOOLS.append(ThreadpoolController())
+    if parent_pid is not None:
+        _watch_parent(parent_pid)
+    output: list = []
     try:
-        with _THREADPOOLS[0].limit(limits=1):
+        if not _THREADPOOLS:
+            _THREADPOOLS.append(ThreadpoolController())
+        with _THREADPOOLS[0].limit(limits=1), _captured_output(output):
             result = fn(task, shared) if use_shared else fn(task)
     except Exception as exc:
         raise TaskFailed(index, _short_repr(task), traceback.format_exc()) from exc
-    return index, result
+    return index, result, "\n".join(output)
 
 
 def task_seeds(root: np.random.SeedSequence, n: int) -> list[np.random.SeedSequence]:
@@ -75,7 +143,7 @@ def local_dask_cluster(n_workers: int = 1) -> Iterator[str]:
 
 
 def _run_local(fn, tasks, shared, use_shared, n_jobs, address) -> Iterator[tuple[int, Any]]:
-    for i, task in enumerate(tasks):
+    for i, task in tasks:
         yield _call(fn, i, task, shared, use_shared)
 
 
@@ -84,9 +152,11 @@ def _run_processes(fn, tasks, shared, use_shared, n_jobs, address) -> Iterator[t
 
     # loky keeps its worker pool alive between calls, so repeated stages pay start-up once;
     # one thread per worker from start-up on also covers libraries a task loads late.
-    with parallel_config(backend="loky", inner_max_num_threads=1):
+    # each worker watches this process from its start, so a kill -9 of the run ends idle workers too
+    with parallel_config(backend="loky", inner_max_num_threads=1, initializer=_watch_parent,
+                         initargs=(os.getpid(),)):
         parallel = Parallel(n_jobs=n_jobs, return_as="generator_unordered")
-        yield from parallel(delayed(_call)(fn, i, t, shared, use_shared) for i, t in enumerate(tasks))
+        yield from parallel(delayed(_call)(fn, i, t, shared, use_shared, os.getpid()) for i, t in tasks)
 
 
 CONNECT_SECONDS = 20      # how long to wait for a given scheduler and its first worker
@@ -147,7 +217,7 @@ def _run_dask(fn, tasks, shared, use_shared, n_jobs, address) -> Iterator[tuple[
         # a tuple or dict is scattered whole, not element by element.
         shared_ref = client.scatter([shared], broadcast=True)[0] if use_shared else None
         futures = [client.submit(_call, fn, i, t, shared_ref, use_shared, pure=False)
-                   for i, t in enumerate(tasks)]
+                   for i, t in tasks]
         try:
             for future in as_completed(futures, loop=client.loop):
                 yield future.result()
@@ -172,7 +242,7 @@ BACKENDS: dict[str, Backend] = {b.name: b for b in (
 
 def run_tasks(fn: Callable, tasks: Sequence, *, backend: str = "local", n_jobs: int = 1,
               progress: str | None = None, scheduler_address: str | None = None,
-              shared: Any = None) -> list:
+              shared: Any = None, log: list | None = None) -> list:
     """fn(task) for every task (or fn(task, shared) when `shared` is given), results in task order.
 
     backend: "local" (loop in this process), "processes" (joblib loky, n_jobs workers) or
@@ -180,7 +250,9 @@ def run_tasks(fn: Callable, tasks: Sequence, *, backend: str = "local", n_jobs: 
     started and closed here when the address is None). fn and tasks must be picklable (a
     module-level fn). `shared` is sent to each worker once (large arrays are memory-mapped
     by joblib); fn must not modify it. A tqdm bar on stderr counts finished tasks when
-    progress is a description. A failing task raises TaskFailed naming the task.
+    progress is a description. A failing task, or a worker that dies, gets one retry of the unfinished
+    tasks; a second failure raises TaskFailed naming the task. What tasks print (solver banners) and the
+    warnings they raise are captured; with `log`, each task's capture is appended to it as text.
     """
     if backend not in BACKENDS:
         raise ValueError(f"backend must be one of {tuple(BACKENDS)}, got {backend!r}")
@@ -189,11 +261,43 @@ def run_tasks(fn: Callable, tasks: Sequence, *, backend: str = "local", n_jobs: 
     tasks = list(tasks)
     use_shared = shared is not None
     results: list = [None] * len(tasks)
+    done = [False] * len(tasks)
     with tqdm(total=len(tasks), desc=progress, file=sys.stderr, disable=progress is None) as bar:
-        if not tasks:
-            return results
-        stream = BACKENDS[backend].run(fn, tasks, shared, use_shared, int(n_jobs), scheduler_address)
-        for index, result in stream:
-            results[index] = result
-            bar.update(1)
+        for attempt in (1, 2):     # a failed task or a dead worker: the unfinished tasks are tried once more
+            todo = [(i, tasks[i]) for i in range(len(tasks)) if not done[i]]
+            if not todo:
+                break
+            try:
+                stream = BACKENDS[backend].run(fn, todo, shared, use_shared, int(n_jobs), scheduler_address)
+                for index, result, output in stream:
+                    results[index], done[index] = result, True
+                    if output and log is not None:
+                        log.append(f"task {index + 1} ({_short_repr(tasks[index])}):\n{output}")
+                    bar.update(1)
+            except Exception as exc:
+                if attempt == 2:
+                    if isinstance(exc, TaskFailed):
+                        raise
+                    first = todo[0][0] if not all(done) else 0
+                    first = next((i for i in range(len(tasks)) if not done[i]), first)
+                    raise TaskFailed(first, _short_repr(tasks[first]),
+                                     f"a worker process stopped ({type(exc).__name__}: {exc})") from exc
     return results
+
+
+def stop_group(proc, grace: float = 5.0) -> None:
+    """SIGTERM to a child's whole process group, SIGKILL after `grace` seconds; waits for the child."""
+    if proc.poll() is not None:
+        return
+    for sig, wait in ((signal.SIGTERM, grace), (signal.SIGKILL, None)):
+        try:
+            os.killpg(proc.pid, sig)
+        except ProcessLookupError:
+            return
+        try:
+            proc.wait(timeout=wait)
+            break
+        except Exception:   # subprocess.TimeoutExpired: escalate
+            continue
+    with contextlib.suppress(ProcessLookupError):
+        os.killpg(proc.pid, signal.SIGKILL)   # anything the server left behind in its group

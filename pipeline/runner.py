@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import seeds
+from . import preflight, seeds
 from .config import ExperimentSpec
 from .data import DataError, Dataset, load_dataset
 from .evaluate import Evaluation, decisions_for, evaluate_results, test_metrics
@@ -75,6 +75,7 @@ class ExperimentResult:
     stability: dict = field(default_factory=dict)     # loss label -> resampling summary
     selection_paths: dict = field(default_factory=dict)  # (loss label, family) -> (L, p) selection probabilities
     design: str = ""                                  # one line: how test rows and CV folds were formed
+    solver_output: tuple[str, ...] = ()   # what fits printed or warned (solver banners), kept out of the terminal
 
 
 def check_feature_budget(spec: ExperimentSpec, dataset: Dataset, n_train: int) -> int:
@@ -294,14 +295,39 @@ def shared_inputs(spec: ExperimentSpec, dataset: Dataset, n_train: int) -> Share
                                   for f in FAMILIES})
 
 
-def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool = True) -> ExperimentResult:
-    start = time.perf_counter()
+@dataclass(frozen=True)
+class Inputs:
+    """Everything checked before any fit: `penduel validate` stops here, `penduel run` goes on from here."""
+    spec: ExperimentSpec
+    dataset: Dataset
+    train_rows: np.ndarray
+    test_rows: np.ndarray
+    splits: list
+    resamples: list
+    notes: tuple = ()
+
+
+def prepare(spec: ExperimentSpec, base_dir: pathlib.Path) -> Inputs:
     dataset = load_dataset(spec.data, base_dir, spec.task, spec.split)
     train_rows, test_rows = split_rows(spec, dataset)
-    check_feature_budget(spec, dataset, len(train_rows))
-    shared = shared_inputs(spec, dataset, len(train_rows))
+    dataset, notes = preflight.check_split(spec, dataset, train_rows, test_rows)
+    preflight.check_resamples(spec, len(train_rows))
     splits = plan_splits(spec, dataset, train_rows, test_rows)
+    resamples = plan_resamples(spec, dataset, train_rows, test_rows) if stability_losses(spec) else []
+    spec, clipped = preflight.clip_centres(spec, min(len(tr) for _, tr, _ in splits + list(resamples)))
+    check_feature_budget(spec, dataset, len(train_rows))
+    return Inputs(spec, dataset, train_rows, test_rows, splits, resamples, notes + clipped)
+
+
+def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool = True,
+                   inputs: Inputs | None = None) -> ExperimentResult:
+    start = time.perf_counter()
+    inputs = inputs or prepare(spec, base_dir)
+    spec, dataset, train_rows, test_rows = inputs.spec, inputs.dataset, inputs.train_rows, inputs.test_rows
+    splits = inputs.splits
+    shared = shared_inputs(spec, dataset, len(train_rows))
     data_hash = dataset.content_hash()
+    cache, output = cache_for(spec, FitOutcome, base_dir), []
     reused_total, n_tasks = 0, 0
 
     def run(tasks):
@@ -309,21 +335,22 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
         if not tasks:
             return []
         outcomes, reused = run_cached(run_tasks, run_fit, tasks, task_keys(spec, data_hash, tasks),
-                                      cache_for(spec, FitOutcome), backend=spec.execution.backend,
+                                      cache, backend=spec.execution.backend,
                                       n_jobs=spec.execution.n_jobs, progress="fits" if progress else None,
-                                      scheduler_address=spec.execution.scheduler_address, shared=shared)
+                                      scheduler_address=spec.execution.scheduler_address, shared=shared, log=output)
         reused_total, n_tasks = reused_total + reused, n_tasks + len(tasks)
         return outcomes
 
     wanted = set(stability_losses(spec))
     tasks, outcomes, grids, widened = fit_with_widening(spec, shared, train_rows, splits, run)
     if wanted:   # resamples on each family's settled grid
-        resamples = plan_resamples(spec, dataset, train_rows, test_rows)
-        more = plan_tasks(spec, {k: g for k, g in grids.items() if k[0] in wanted}, resamples, selection_only=True)
+        more = plan_tasks(spec, {k: g for k, g in grids.items() if k[0] in wanted}, inputs.resamples,
+                          selection_only=True)
         tasks, outcomes = tasks + more, outcomes + run(more)
     reused = reused_total
-    notes = dataset.notes + ((f"reused {reused} of {n_tasks} finished fit task(s) from the cache "
-                              f"'{spec.cache.directory}' (refits avoided)",) if reused else ())
+    notes = dataset.notes + inputs.notes + (cache.drop_note() if cache else ()) + (
+        (f"reused {reused} of {n_tasks} finished fit task(s) from the cache '{spec.cache.directory}' "
+         f"(refits avoided)",) if reused else ())
     notes += tuple(dict.fromkeys(f"{get_family(o.family).title}: {o.note}" for o in outcomes
                                  if o.note and o.split == "final"))   # e.g. the low-rank route was taken
     notes += route_notes(shared, train_rows, tasks)
@@ -332,7 +359,7 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     results = assemble(spec, shared, tasks, outcomes, test_rows, seeds.generator(spec.seed, "test_intervals"),
                        decisions, scale, widened, len(train_rows))
     notes += grid_notes(results)
-    feature_names = next(o.feature_names for o in outcomes)
+    feature_names = next(o.feature_names for t, o in zip(tasks, outcomes) if t.split == "final")
     fold0 = splits[0]
     evaluation = evaluate_results(results, task=dataset.task, y_test=dataset.y[test_rows],
                                   fold_sizes=(len(fold0[1]), len(fold0[2])), dataset=dataset,
@@ -347,4 +374,4 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
                             fit_seconds_total=float(sum(o.fit_seconds for o in outcomes)),
                             evaluation=evaluation, stability=stability.summaries,
                             design=describe_design(spec, dataset, train_rows, test_rows, splits),
-                            selection_paths=stability.selection_paths)
+                            selection_paths=stability.selection_paths, solver_output=tuple(output))

@@ -107,7 +107,7 @@ def _store_model(client, run_id: str, result, r, register_as: str | None) -> dic
 def stored_models(client, run_id: str) -> tuple[str, list]:
     """The execution of `run_id` (an execution or one of its child runs) and its child runs that hold a
     model, in the order they were logged."""
-    from .tracking import StoreError, child_runs
+    from .stored_runs import StoreError, child_runs
 
     try:
         run = client.get_run(run_id)

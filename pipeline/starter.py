@@ -100,7 +100,7 @@ def starter_text(data: pathlib.Path, target: str, config_dir: pathlib.Path) -> s
         f"  rule: least_error          # or one_standard_error: the simplest model within one standard error\n"
         f"stability:\n"
         f"  n_resamples: 20            # refits on subsamples to measure selection stability; more is steadier\n"
-        f"tracking:\n"
+        f"tracking:                    # relative paths here are relative to this file's folder\n"
         f"  uri: sqlite:///mlflow.db   # or postgresql://user@host/db, or http://host:port of a tracking server\n"
         f"  experiment_name: {_q(experiment_name(data))}   # named after the data file: every config for it shares\n"
         f"                             # one tracking experiment, its runs side by side; name another to separate\n"

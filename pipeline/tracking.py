@@ -32,6 +32,7 @@ from mlflow.tracking import MlflowClient  # noqa: E402
 
 from .models.families import get_family  # noqa: E402
 from .serving import log_model  # noqa: E402
+from .store import artifact_location, ensure_store, spreadsheet_safe  # noqa: E402
 
 EXPERIMENT_KIND = ("mlflow.experimentKind", "custom_model_development")   # mlflow's tag for model training
 
@@ -157,7 +158,8 @@ class ExecutionLog:
     def __init__(self, spec, uri: str | None = None):
         self.spec = spec
         self.uri = uri or spec.tracking.uri
-        with store_lock(self.uri):   # the client creates the schema of a new store
+        with store_lock(self.uri):   # a new store's schema is made under a temporary name, then renamed
+            ensure_store(self.uri)
             self.client = LockRetrying(MlflowClient(tracking_uri=self.uri))
         self.experiment_name = spec.tracking.experiment_name or spec.name
         self.run_id: str | None = None
@@ -166,7 +168,8 @@ class ExecutionLog:
     def __enter__(self) -> "ExecutionLog":
         with store_lock(self.uri):
             exp = self.client.get_experiment_by_name(self.experiment_name)
-            exp_id = exp.experiment_id if exp else self.client.create_experiment(self.experiment_name)
+            exp_id = exp.experiment_id if exp else self.client.create_experiment(
+                self.experiment_name, artifact_location=artifact_location(self.uri))
             self.client.set_experiment_tag(exp_id, *EXPERIMENT_KIND)   # the UI opens on the runs table
         self.abandoned_runs = mark_abandoned_runs(self.client, exp_id, self.spec.config_hash())
         self.experiment_id = exp_id
@@ -208,7 +211,7 @@ class ExecutionLog:
             for name, content in files.items():
                 path = os.path.join(tmp, name)
                 if isinstance(content, pd.DataFrame):
-                    content.to_csv(path, index=False)
+                    spreadsheet_safe(content).to_csv(path, index=False)
                 else:
                     with open(path, "w", encoding="utf-8") as fh:
                         yaml.safe_dump(content, fh, sort_keys=False, allow_unicode=True)
@@ -223,13 +226,16 @@ class ExecutionLog:
             Param("seed", str(result.spec.seed)), Param("cv_folds", str(result.spec.selection.cv_folds)),
             Param("selection_rule", result.spec.selection.rule)],
             tags=[RunTag("penduel.data_hash", result.data_hash)])
+        if getattr(result, "solver_output", ()):   # solver banners and warnings, kept off the terminal
+            self.client.log_text(self.run_id, "\n\n".join(result.solver_output), "solver_output.txt")
         for r in result.results:
             self._log_child(result, r)
 
     def _log_child(self, result, r) -> None:
         c = self.client
         name = f"{r.family}-{r.loss_label}"
-        tags = {"mlflow.parentRunId": self.run_id, "penduel.kind": "fit", "penduel.family": r.family,
+        tags = {"mlflow.parentRunId": self.run_id, "penduel.kind": "fit", "penduel.shared_artifacts":
+                f"config.yaml, index.html and report_data.json are stored once, on the parent run {self.run_id}", "penduel.family": r.family,
                 "penduel.loss": r.loss_label, "penduel.config_hash": result.spec.config_hash(),
                 "penduel.data_hash": result.data_hash}
         run = c.create_run(self.experiment_id, tags=tags, run_name=name)
@@ -272,7 +278,6 @@ class ExecutionLog:
         metrics += stability_metrics
         for start in range(0, len(metrics), 900):   # mlflow caps a batch at 1000 entries
             c.log_batch(rid, metrics=metrics[start:start + 900], params=params if start == 0 else [])
-        files["config.yaml"] = result.spec.resolved()
         if r.coefficients is not None:
             files["coefficients.csv"] = pd.DataFrame({"feature": list(result.feature_names),
                                                       "coefficient": r.coefficients})
@@ -315,95 +320,10 @@ class ExecutionLog:
             Metric("tasks_reused", float(result.tasks_reused), 0, 0), Metric("tasks_total", float(result.tasks_total), 0, 0)])
 
     def log_report(self, path) -> None:
-        """The HTML report goes to every run; its data (report_data.json) to the parent, so the report
-        can be rendered again from the store alone."""
-        for rid in [self.run_id, *self.child_ids.values()]:
-            self.client.log_artifact(rid, str(path))
+        """The HTML report and its data (report_data.json) go to the parent run once, so the report can be
+        rendered again from the store alone; children point to it (tag penduel.shared_artifacts)."""
+        self.client.log_artifact(self.run_id, str(path))
         data = pathlib.Path(path).parent / "report_data.json"
         if data.is_file():
             self.client.log_artifact(self.run_id, str(data))
         self.client.set_tag(self.run_id, "penduel.report", str(path))
-
-
-# ---------------------------------------------------------------- reading the store back
-EXECUTION_FILTER = "tags.`penduel.kind` = 'execution'"
-
-
-class StoreError(Exception):
-    """The tracking store does not hold what was asked for (a user mistake: exit 2)."""
-
-
-def open_store(uri: str):
-    with store_lock(uri):   # a new SQLite store gets its schema here
-        return LockRetrying(MlflowClient(tracking_uri=uri))
-
-
-def _experiment_ids(client: MlflowClient, experiment: str | None) -> list[str]:
-    if experiment is None:
-        return [e.experiment_id for e in client.search_experiments()]
-    exp = client.get_experiment_by_name(experiment)
-    if exp is None:
-        known = sorted(e.name for e in client.search_experiments())
-        raise StoreError(f"--experiment: no experiment named '{experiment}' in the tracking store; "
-                         f"it holds {known or 'no experiments'}.")
-    return [exp.experiment_id]
-
-
-def execution_runs(client: MlflowClient, experiment: str | None = None, run_ids=(), last: int | None = None,
-                   finished_only: bool = True) -> list:
-    """Parent runs: the given ids in the given order, or the newest `last` executions (all when
-    `last` is None) of one experiment or of the whole store, newest first."""
-    if run_ids:
-        runs = []
-        for rid in run_ids:
-            try:
-                run = client.get_run(rid)
-            except Exception:   # mlflow raises its own exception type for an unknown id
-                raise StoreError(f"run id '{rid}' is not in the tracking store.") from None
-            if run.data.tags.get("penduel.kind") != "execution":
-                parent = run.data.tags.get("mlflow.parentRunId")
-                hint = f" (it is a child run; its execution is {parent})" if parent else ""
-                raise StoreError(f"run id '{rid}' is not a penduel execution{hint}.")
-            runs.append(run)
-        return runs
-    ids = _experiment_ids(client, experiment)
-    if not ids:
-        return []
-    filt = EXECUTION_FILTER + (" and attributes.status = 'FINISHED'" if finished_only else "")
-    runs = client.search_runs(ids, filter_string=filt, order_by=["attributes.start_time DESC"],
-                              max_results=last or 1000)
-    return list(runs)
-
-
-def child_runs(client: MlflowClient, parent) -> list:
-    return list(client.search_runs([parent.info.experiment_id],
-                                   filter_string=f"tags.mlflow.parentRunId = '{parent.info.run_id}'"))
-
-
-def latest_execution(client: MlflowClient, experiment: str | None = None):
-    runs = execution_runs(client, experiment, last=1)
-    if not runs:
-        where = f"experiment '{experiment}'" if experiment else "the tracking store"
-        raise StoreError(f"--latest: {where} holds no finished penduel execution yet; run one with "
-                         f"`penduel run CONFIG` first.")
-    return runs[0]
-
-
-def read_artifact(client: MlflowClient, run_id: str, name: str) -> str:
-    """Text of one artifact of a run, downloaded from the store (local or remote) to a temporary folder."""
-    with tempfile.TemporaryDirectory() as tmp:
-        try:
-            path = client.download_artifacts(run_id, name, tmp)
-        except Exception as exc:   # missing artifact: mlflow's error type depends on the store
-            raise StoreError(f"run {run_id} has no artifact '{name}' in the tracking store ({exc}).") from None
-        return pathlib.Path(path).read_text(encoding="utf-8")
-
-
-def read_payload(client: MlflowClient, run_id: str) -> dict:
-    import json
-
-    return json.loads(read_artifact(client, run_id, "report_data.json"))
-
-
-def read_config(client: MlflowClient, run_id: str) -> dict:
-    return yaml.safe_load(read_artifact(client, run_id, "config.yaml"))

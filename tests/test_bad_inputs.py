@@ -66,13 +66,13 @@ CASES = {
         {"data.csv": _csv(_frame(n=60, city=[f"town{i}" for i in range(60)]))}, _file_config(),
         ["column 'city'", "60 distinct values", "at most 50 levels"]),
     "NaN in a feature": ({"data.csv": _csv(_with(_frame(), "b", 7, np.nan))}, _file_config(),
-                         ["feature column 'b'", "data row 7", "missing or infinite"]),
+                         ["feature column 'b'", "data row 8", "missing or infinite"]),
     "infinity in a feature": ({"data.csv": _csv(_with(_frame(), "a", 3, "-inf"))}, _file_config(),
-                              ["feature column 'a'", "-inf at data row 3"]),
+                              ["feature column 'a'", "-inf at data row 4"]),
     "NaN in the target": ({"data.csv": _csv(_with(_frame(), "y", 5, np.nan))}, _file_config(),
-                          ["column 'y'", "missing value", "data row 5"]),
+                          ["column 'y'", "missing value", "data row 6"]),
     "infinity in the target": ({"data.csv": _csv(_with(_frame(), "y", 4, "inf"))}, _file_config(),
-                               ["column 'y'", "inf at data row 4", "only finite"]),
+                               ["column 'y'", "inf at data row 5", "only finite"]),
     "values whose spread overflows": ({"data.csv": _csv(_with(_with(_frame(), "a", 0, 1e308), "a", 1, -1e308))},
                                       _file_config(), ["feature column 'a'", "1e+308", "rescale"]),
     "every feature constant": ({"data.csv": _csv(_frame(a=1.0, b=2.0))}, _file_config(),
@@ -85,7 +85,7 @@ CASES = {
     "three classes": ({"data.csv": _csv(_frame(y=["a", "b", "c"] * 10))}, _file_config(losses="[hinge]"),
                       ["exactly two classes", "has 3"]),
     "regression loss on string labels": ({"data.csv": _csv(_frame(y=["cat", "dog"] * 15))}, _file_config(),
-                                         ["numeric target", "'cat' at data row 0", "classification loss"]),
+                                         ["numeric target", "'cat' at data row 1", "classification loss"]),
     "zero lambda ratio": ({}, "name: bad\n" + SCENARIO + SMALL.replace("l1: {path: {points: 4}}", "l1: {path: {smallest_share: 0}}"),
                           ["families.l1.path.smallest_share", "value 0", "greater than 0"]),
     "negative lambda ratio": ({}, "name: bad\n" + SCENARIO + SMALL.replace("l1: {path: {points: 4}}",
@@ -117,6 +117,142 @@ CASES = {
 }
 
 
+def _parquet(frame: pd.DataFrame) -> bytes:
+    buf = io.BytesIO()
+    frame.to_parquet(buf, index=False)
+    return buf.getvalue()
+
+
+def _split_test_rows(n: int, test_fraction: float = 0.25, seed: int = 0) -> np.ndarray:
+    """The held-out rows `penduel run` draws for n rows (the runner's own split, so the case is exact)."""
+    from pipeline import seeds
+    from sklearn.model_selection import train_test_split
+    _, test = train_test_split(np.arange(n), test_size=max(1, int(round(test_fraction * n))),
+                               random_state=seeds.int_seed(seed, "split"))
+    return np.sort(test)
+
+
+def _constant_on_training_rows(n=40) -> pd.DataFrame:
+    frame = _frame(n=n)
+    frame["y"] = 0.0
+    frame.loc[_split_test_rows(n), "y"] = 1.0      # the target varies only on held-out rows
+    return frame
+
+
+ALIAS_BOMB = "name: bad\na: &a [1, 2, 3, 4, 5, 6, 7, 8, 9]\n" + "".join(
+    f"{c}: &{c} [{', '.join(['*' + p] * 9)}]\n" for p, c in zip("abcdefgh", "bcdefghi")) + SCENARIO
+STAB = "stability: {n_resamples: 4, %s}\nfamilies: {l1: {path: {points: 4}}, l2: {path: {points: 4}}}\nselection: {cv_folds: 3}\n"
+PLAIN = "name: bad\n" + SCENARIO + SMALL
+
+
+def _plain(extra: str) -> str:
+    return PLAIN + extra
+
+
+CASES.update({
+    # ------------------------------------------------------------ data the loader must not accept silently
+    "header repeats the target": ({"data.csv": "y,a,y\n" + "".join(f"{i},{i % 3},{i}\n" for i in range(30))},
+                                  _file_config(), ["column 'y' twice", "columns 1 and 3"]),
+    "header repeats a feature": ({"data.csv": "a,a,y\n" + "".join(f"{i % 5},{i % 3},{i}\n" for i in range(30))},
+                                 _file_config(), ["column 'a' twice", "columns 1 and 2"]),
+    "a copy of the target under another name": ({"data.csv": _csv(_frame(leak=_frame()["y"]))}, _file_config(),
+                                                ["column 'leak'", "copy of the target 'y'"]),
+    # a 0/1 target would read as class labels under data.task: auto; declared a quantity here
+    "target constant on the training rows": ({"data.csv": _csv(_constant_on_training_rows())},
+                                             _file_config().replace("target: y}", "target: y, task: regression}"),
+                                             ["data.target", "same value 0", "training rows"]),
+    "list-valued parquet column": ({"data.parquet": _parquet(_frame(tags=[[1, 2]] * 30))},
+                                   _file_config("data.parquet", kind="parquet"),
+                                   ["column 'tags'", "data row 1", "Flatten it"]),
+    "text column with a missing value": ({"data.csv": _csv(_with(_frame(soil=["clay", "sand"] * 15), "soil", 4,
+                                                                 np.nan))}, _file_config(),
+                                         ["text column 'soil'", "data row 5"]),
+    "numeric target with a logistic loss": ({"data.csv": _csv(_frame())}, _file_config(losses="[logistic]"),
+                                            ["data.task", "30 distinct numbers", "classification"]),
+    "class too small for the folds": ({"data.csv": _csv(_frame(n=40, y=["a"] * 38 + ["b"] * 2))},
+                                      _file_config(losses="[logistic]"), ["selection.cv_folds", "smaller class"]),
+    "one test row": ({"data.csv": _csv(_frame(n=40))}, _file_config() + "split: {test_fraction: 0.02}\n",
+                     ["split.test_fraction", "1 test row(s)", "at least 5"]),
+    # ------------------------------------------------------------ numbers that are not numbers
+    "huber delta infinite": ({}, _plain("losses: [{name: huber, delta: .inf}]\n"), ["losses[1].delta", "inf",
+                                                                                   "only finite numbers"]),
+    "scenario noise infinite": ({}, "name: bad\ndata: {kind: scenario, name: spectral_bands, n_samples: 40, "
+                                    "n_features: 8, n_informative: 2, noise: .inf}\n" + SMALL,
+                                ["data.noise", "inf", "only finite numbers"]),
+    "bandwidth not a number": ({}, "name: bad\n" + SCENARIO + "families: {l2: {kernel: rbf, bandwidth: .nan}}\n",
+                               ["families.l2.bandwidth", "nan"]),
+    "false-selection target infinite": ({}, "name: bad\n" + SCENARIO + STAB % "target_false_selections: .inf",
+                                        ["stability.target_false_selections", "inf"]),
+    "lambda ratio not a number": ({}, "name: bad\n" + SCENARIO + "families: {l1: {path: {smallest_share: .NaN}}}\n",
+                                  ["families.l1.path.smallest_share", "nan"]),
+    "test fraction negative infinity": ({}, _plain("split: {test_fraction: -.inf}\n"), ["split.test_fraction",
+                                                                                      "-inf"]),
+    "feature-map setting infinite": ({}, _plain("features: {maps: [{kind: polynomial, degree: .inf}]}\n"),
+                                     ["features.maps[1].degree", "inf"]),
+    # ------------------------------------------------------------ degenerate or contradictory settings
+    "subsample fraction of one": ({}, "name: bad\n" + SCENARIO + STAB % "fraction: 1.0",
+                                  ["stability.fraction", "stability is 1 by construction"]),
+    "subsample fraction leaving no rows": ({}, "name: bad\n" + SCENARIO + STAB % "fraction: 0.001",
+                                           ["stability.fraction", "0 row(s) per subsample"]),
+    "stability loss not listed": ({}, "name: bad\n" + SCENARIO + STAB % "losses: [absolute]",
+                                  ["stability.losses", "'absolute'", "squared"]),
+    "osqp solver with the huber loss": ({}, _plain("losses: [huber]\n").replace("l1: {path: {points: 4}}",
+                                                                               "l1: {path: {points: 4}, solver: osqp}"),
+                                        ["families.l1.solver", "'osqp'", "'huber_delta1'"]),
+    "highs solver with the squared loss": ({}, PLAIN.replace("l1: {path: {points: 4}}", "l1: {path: {points: 4}, solver: highs}"),
+                                           ["families.l1.solver", "'highs'", "'squared'"]),
+    "both families disabled": ({}, "name: bad\n" + SCENARIO + "families: {l1: {enabled: false}, l2: {enabled: "
+                                                              "false}}\n", ["both families are disabled"]),
+    "losses of two kinds": ({}, _plain("losses: [squared, logistic]\n"), ["losses mix"]),
+    "a loss listed twice": ({}, _plain("losses: [squared, squared]\n"), ["listed twice"]),
+    "no losses": ({}, _plain("losses: []\n"), ["at least one loss"]),
+    "one fold": ({}, "name: bad\n" + SCENARIO + "selection: {cv_folds: 1}\n", ["selection.cv_folds",
+                                                                              "greater than or equal to 2"]),
+    "odd complementary pairs": ({}, "name: bad\n" + SCENARIO + "stability: {scheme: complementary_pairs, "
+                                                               "n_resamples: 5}\n", ["even n_resamples"]),
+    "negative seed": ({}, _plain("seed: -1\n"), ["field 'seed'", "greater than or equal to 0"]),
+    "unknown top-level setting": ({}, _plain("colour: blue\n"), ["field 'colour' is not a known setting"]),
+    "name with spaces": ({}, PLAIN.replace("name: bad", "name: my run!"),
+                         ["field 'name'", "'my run!'", "^[A-Za-z0-9][A-Za-z0-9_.-]*$"]),
+    "name missing": ({}, "data: {kind: bundled, name: diabetes}\n", ["field 'name' is required"]),
+    "unknown data kind": ({}, "name: bad\ndata: {kind: exel, path: x.xlsx, target: y}\n",
+                          ["field 'data'", "'exel'"]),
+    # ------------------------------------------------------------ files that are not what the config says
+    "config is a folder": ({"experiment.yaml/": ""}, None, ["is a folder", "experiment file itself"]),
+    "config is a list": ({}, "- name: bad\n- data: x\n", ["must hold a mapping"]),
+    "YAML alias bomb": ({}, ALIAS_BOMB, ["expands to more than 20,000 values"]),
+    "value that contains itself": ({}, "name: &n [*n]\n" + SCENARIO, ["contains itself"]),
+    "huge value described shortly": ({}, "name: [" + ", ".join(["x"] * 50_000) + "]\n" + SCENARIO,
+                                     ["expands to more than"]),
+    "long list described shortly": ({}, "name: [" + ", ".join(["x"] * 500) + "]\n" + SCENARIO,
+                                    ["field 'name'", "a list of 500 item(s)"]),
+    # ------------------------------------------------------------ places a run writes to or talks to
+    "store of an unknown kind": ({}, _plain("tracking: {uri: 'ftp://x'}\n"),
+                                 ["tracking.uri", "'ftp://x'", "sqlite:///FILE"]),
+    "store under /proc": ({}, _plain("tracking: {uri: 'sqlite:////proc/penduel/store.db'}\n"),
+                          ["tracking.uri", "cannot write the SQLite store", "/proc/penduel"]),
+    "store path is a folder": ({"storefolder/": ""}, _plain("tracking: {uri: 'sqlite:///storefolder'}\n"),
+                               ["tracking.uri", "is a folder"]),
+    "PostgreSQL server not answering": ({}, _plain("tracking: {uri: 'postgresql://u:p@127.0.0.1:9/db'}\n"),
+                                        ["tracking.uri", "127.0.0.1:9", "does not answer within 3 s"]),
+    "tracking server not answering": ({}, _plain("tracking: {uri: 'http://127.0.0.1:9'}\n"),
+                                      ["tracking.uri", "does not answer"]),
+    "database URL without a host": ({}, _plain("tracking: {uri: 'postgresql:///db'}\n"),
+                                    ["tracking.uri", "names no host"]),
+    "report folder is a file": ({"afile": "x"}, _plain("report: {directory: afile}\n"),
+                                ["report.directory", "is a file, not a folder"]),
+    "report folder not writable": ({}, _plain("report: {directory: /proc/penduel-reports}\n"),
+                                   ["report.directory", "cannot write reports"]),
+    "cache folder not writable": ({}, _plain("cache: {directory: /proc/penduel-cache}\n"),
+                                  ["cache.directory", "cannot write finished fits"]),
+    "cache folder is a file": ({"cachefile": "x"}, _plain("cache: {directory: cachefile}\n"),
+                               ["cache.directory", "is a file"]),
+    "Dask scheduler not answering": ({}, _plain("execution: {backend: dask, scheduler_address: "
+                                                "'tcp://127.0.0.1:9'}\n"),
+                                     ["execution.scheduler_address", "does not answer within 3 s"]),
+})
+
+
 def _write(folder: pathlib.Path, case: str) -> pathlib.Path:
     files, config, _ = CASES[case]
     for name, content in files.items():
@@ -126,7 +262,8 @@ def _write(folder: pathlib.Path, case: str) -> pathlib.Path:
             (folder / name).write_bytes(content)
         else:
             (folder / name).write_text(content, encoding="utf-8")
-    path = folder / ("nowhere.yaml" if config is None else "experiment.yaml")
+    path = folder / ("experiment.yaml" if config is not None or (folder / "experiment.yaml").is_dir()
+                     else "nowhere.yaml")
     if config is not None:
         path.write_text(config, encoding="utf-8")
     return path
@@ -157,11 +294,29 @@ def store(tmp_path_factory):
     return f"sqlite:///{tmp_path_factory.mktemp('store') / 'bad.db'}"
 
 
+def _store_args(case: str, folder: pathlib.Path) -> list:
+    config = CASES[case][1] or ""
+    return [] if "tracking:" in config else ["--tracking-uri", f"sqlite:///{folder / 'case.db'}"]
+
+
+def test_the_table_is_large_enough():
+    assert len(CASES) >= 60
+
+
 @pytest.mark.parametrize("case", list(CASES))
-def test_bad_input_gets_one_clear_paragraph(case, tmp_path, store, monkeypatch):
+def test_bad_input_gets_one_clear_paragraph(case, tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)
     config = _write(tmp_path, case)
-    code, stderr = _in_process(["run", config, "--quiet", "--tracking-uri", store])
+    code, stderr = _in_process(["run", config, "--quiet", *_store_args(case, tmp_path)])
+    _check(case, code, stderr)
+    # refused before any tracking run was opened: the store was never even created
+    assert not (tmp_path / "case.db").exists() and not (tmp_path / "mlflow.db").exists()
+
+
+@pytest.mark.parametrize("case", list(CASES))
+def test_validate_refuses_the_same_inputs(case, tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    code, stderr = _in_process(["validate", _write(tmp_path, case)])
     _check(case, code, stderr)
 
 
@@ -169,7 +324,7 @@ def test_bad_input_gets_one_clear_paragraph(case, tmp_path, store, monkeypatch):
 @pytest.mark.parametrize("case", list(CASES))
 def test_bad_input_through_the_installed_command(case, tmp_path, cli):
     config = _write(tmp_path, case)
-    done = cli(["run", config, "--quiet", "--tracking-uri", f"sqlite:///{tmp_path / 'store.db'}"], tmp_path)
+    done = cli(["run", config, "--quiet", *_store_args(case, tmp_path)], tmp_path)
     _check(case, done.returncode, done.stderr)
 
 
@@ -265,7 +420,19 @@ def test_a_planted_pickle_in_the_cache_is_never_unpickled(tmp_path):
 def test_tracking_ui_binds_to_this_machine_unless_told(monkeypatch):
     import subprocess as sp
     calls = []
-    monkeypatch.setattr(sp, "call", lambda cmd: calls.append(cmd) or 0)
+
+    class Server:                      # stands in for the mlflow server process
+        pid = -1
+
+        def __init__(self, cmd, **kwargs):
+            calls.append(cmd)
+
+        def wait(self, timeout=None):
+            return 0
+
+        def poll(self):
+            return 0
+    monkeypatch.setattr(sp, "Popen", Server)
     assert _in_process(["ui", "--tracking-uri", "sqlite:///x.db"])[0] == 0
     assert _in_process(["ui", "--tracking-uri", "sqlite:///x.db", "--host", "0.0.0.0"])[0] == 0
     hosts = [cmd[cmd.index("--host") + 1] for cmd in calls]

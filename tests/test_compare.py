@@ -10,7 +10,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from pipeline.compare import MISSING, config_differences, flatten, loss_tables
-from pipeline.tracking import open_store
+from pipeline.stored_runs import open_store
 
 from .conftest import penduel
 

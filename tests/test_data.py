@@ -54,14 +54,14 @@ def test_scenario_is_reproducible_and_seeded():
 
 
 def test_categorical_columns_are_one_hot_encoded_with_a_note():
-    frame = pd.DataFrame({"site": ["n", "s", "e", "n"] * 5, "x": np.arange(20.0), "y": np.arange(20.0)})
+    frame = pd.DataFrame({"site": ["n", "s", "e", "n"] * 5, "x": np.arange(20.0), "y": np.arange(20.0) % 7})
     d = frame_to_dataset(frame, "y", "regression", "test.csv")
     assert d.feature_names == ("site=n", "site=s", "x")
     assert any("one-hot" in n for n in d.notes)
 
 
 def test_constant_columns_dropped_with_note():
-    frame = pd.DataFrame({"c": [1.0] * 10, "x": np.arange(10.0), "y": np.arange(10.0)})
+    frame = pd.DataFrame({"c": [1.0] * 10, "x": np.arange(10.0), "y": np.arange(10.0) % 4})
     d = frame_to_dataset(frame, "y", "regression", "t.csv")
     assert d.feature_names == ("x",) and any("constant" in n for n in d.notes)
 

@@ -48,7 +48,10 @@ def test_store_holds_parent_and_children_with_report_numbers(tiny_run, store):
         # one step per λ of the grid finally fitted (8, more where CV chose an end and the grid was widened)
         assert int(p["path_points"]) >= 8 and sorted(h.step for h in history) == list(range(int(p["path_points"])))
         arts = {a.path for a in client.list_artifacts(child.info.run_id)}
-        assert {"config.yaml", "coefficients.csv", "predictions.csv", "index.html"} <= arts
+        assert {"coefficients.csv", "predictions.csv"} <= arts
+        # one copy of each shared artifact, on the parent run; the child points to it
+        assert not {"config.yaml", "index.html"} & arts
+        assert run_id in child.data.tags["penduel.shared_artifacts"]
         if p["family"] == "l1":
             assert m["n_nonzero"] >= 1
             assert f">{int(m['n_nonzero'])}<" in html

@@ -17,7 +17,7 @@ def test_widths_and_names():
     Z = fb.transform(X)
     assert Z.shape == (20, 3 + 6 + 7) == (20, sum(output_width(m, 3) for m in maps))
     names = list(fb.get_feature_names_out())
-    assert names[:3] == ["a", "b", "c"] and "a*b" in names and "a^2" in names
+    assert names[:3] == ["a", "b", "c"] and "a×b" in names and "a^2" in names
     np.testing.assert_allclose(Z.mean(0), 0, atol=1e-10)
 
 

@@ -14,7 +14,7 @@ import subprocess
 
 import pytest
 
-from pipeline.tracking import open_store
+from pipeline.stored_runs import open_store
 
 from .conftest import CONFIGS, free_port, penduel, scratch_dir, without_written_time
 

@@ -140,7 +140,7 @@ def test_one_level_stated_once_and_one_wall_time(runs):
     assert f"{wall:.1f} s (start of the run to this report written)" in html
     assert runs["sparse"]["data"]["seconds"] == pytest.approx(wall, abs=0.05)
     assert "finished in" not in out
-    from pipeline.tracking import open_store   # the same number in the tracking store
+    from pipeline.stored_runs import open_store   # the same number in the tracking store
 
     stored = open_store(f"sqlite:///{runs['folder'] / 'mlflow.db'}").get_run(runs["sparse"]["run_id"]).data.metrics
     assert stored["seconds"] == pytest.approx(wall, abs=0.05) and stored["tasks_reused"] == 0

@@ -15,6 +15,37 @@ from .sections import (CacheSpec, ExecutionSpec, FamiliesSpec, FeaturesSpec, Rep
 from .sources import DataSource
 
 
+def _check_solver(spec) -> None:
+    """A forced sparse solver must handle every listed loss (asked of the solver table, as the fit would)."""
+    from ..losses import get_loss
+    from ..models.sparse.routing import route
+
+    l1 = spec.families.l1
+    if not l1.enabled:
+        return
+    for loss in spec.losses:
+        try:
+            route(get_loss(loss.name, **loss.params()), l1.l1_share, l1.solver)
+        except ValueError as exc:
+            raise ValueError(f"families.l1.solver: {exc}, but losses lists '{loss.label}'; use solver: auto, "
+                             f"or a solver that handles every listed loss") from None
+
+
+def _check_stability(spec) -> None:
+    st = spec.stability
+    if not st.enabled:
+        return
+    labels = [loss.label for loss in spec.losses]
+    unknown = [w for w in st.losses or () if w not in labels]
+    if unknown:
+        raise ValueError(f"stability.losses: {', '.join(map(repr, unknown))} not among the experiment's losses "
+                         f"({', '.join(labels)}); use the labels of the losses listed")
+    if st.scheme == "subsample" and st.fraction >= 1.0:
+        raise ValueError("stability.fraction: 1.0 draws every training row in every subsample, so every "
+                         "resample is the same fit and stability is 1 by construction; use a fraction below 1 "
+                         "(0.5 is the usual choice) or scheme: bootstrap")
+
+
 class ExperimentSpec(Settings):
     name: str = Field(description="Experiment name, used for the tracking experiment and report folder.",
                       min_length=1, max_length=120, pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
@@ -74,6 +105,8 @@ class ExperimentSpec(Settings):
                 raise ValueError(f"verdict.metric is '{self.verdict.metric}', a {METRICS[self.verdict.metric].task} "
                                  f"metric, but the losses are {self.task} losses; allowed: "
                                  f"{', '.join(n for n in METRICS if METRICS[n].task == self.task)}")
+        _check_solver(self)
+        _check_stability(self)
         if self.data.kind == "scenario":   # checked before the rows are drawn
             mib = self.data.n_samples * self.data.n_features * 8 / 2**20
             if mib > self.features.memory_budget_mib:

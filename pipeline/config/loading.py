@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import difflib
+import math
 import pathlib
 from typing import Any
 
@@ -42,15 +43,44 @@ def field_path(loc, model: type[BaseModel] = ExperimentSpec) -> str:
 
 
 def _describe(value: Any) -> str:
+    """A short description: containers by kind and size, never rendered whole (they may be huge or recursive)."""
+    if isinstance(value, dict):
+        return f"a mapping of {len(value)} setting(s)"
+    if isinstance(value, (list, tuple)):
+        return f"a list of {len(value)} item(s)"
     text = repr(value)
     return text if len(text) <= 80 else text[:77] + "..."
+
+
+MAX_NODES = 20_000       # values in an expanded config file; a real experiment has a few hundred
+
+
+def _check_values(value: Any, source: str) -> None:
+    """Refuse alias bombs and recursive values (bounded walk) and non-finite numbers (named by setting)."""
+    count, stack = 0, [(value, "", 0)]
+    while stack:
+        node, where, depth = stack.pop()
+        count += 1
+        if count > MAX_NODES or depth > 50:
+            raise ConfigError(f"{source}: the file expands to more than {MAX_NODES:,} values or nests deeper than "
+                              f"50 levels (YAML aliases (*name) repeating large blocks, or a value that contains "
+                              f"itself); an experiment file holds a few hundred settings. Write the settings out "
+                              f"plainly.")
+        if isinstance(node, float) and not math.isfinite(node):
+            raise ConfigError(f"{source}: field '{where or '(top level)'}' has value {node!r}; only finite numbers "
+                              f"are allowed (.inf, .nan and their variants are not settings).")
+        if isinstance(node, dict):
+            stack += [(v, f"{where}.{k}" if where else str(k), depth + 1) for k, v in node.items()]
+        elif isinstance(node, (list, tuple)):
+            stack += [(v, f"{where}[{i + 1}]", depth + 1) for i, v in enumerate(node)]
 
 
 def _allowed(model_error: dict) -> str:
     ctx = model_error.get("ctx") or {}
     if "expected" in ctx:
         return f"allowed: {ctx['expected']}"
-    return model_error["msg"].lower()
+    msg = model_error["msg"]
+    return msg[:1].lower() + msg[1:]   # lower-casing all of it would garble a quoted pattern
 
 
 def _closest(word: str, choices) -> str:
@@ -96,6 +126,7 @@ def parse_config(mapping: Any, source: str = "config") -> ExperimentSpec:
     retired = retired_message(mapping, source)
     if retired:
         raise ConfigError(retired)
+    _check_values(mapping, source)
     try:
         return ExperimentSpec.model_validate(mapping)
     except ValidationError as err:
@@ -104,6 +135,9 @@ def parse_config(mapping: Any, source: str = "config") -> ExperimentSpec:
 
 def load_yaml(path: str | pathlib.Path) -> Any:
     path = pathlib.Path(path)
+    if path.is_dir():
+        raise ConfigError(f"{path}: is a folder; give the experiment file itself (a .yaml file, e.g. one written "
+                          f"by `penduel init`).")
     if not path.is_file():
         raise ConfigError(f"{path}: config file not found (looked for it at {path.resolve()}).")
     try:

@@ -160,7 +160,8 @@ class StabilitySpec(Settings):
 
 
 class TrackingSpec(Settings):
-    uri: str = Field("sqlite:///mlflow.db", description="mlflow tracking URI (SQLite file by default).")
+    uri: str = Field("sqlite:///mlflow.db", description="mlflow tracking URI (SQLite file by default; a relative "
+                                                        "file is in the config file's folder).")
     experiment_name: str | None = Field(None, description="Tracking experiment; defaults to the experiment name.")
     register_as: str | None = Field(None, pattern=r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,100}$",
                                     description="Also register each chosen model in the model registry as "
@@ -168,7 +169,8 @@ class TrackingSpec(Settings):
 
 
 class ReportSpec(Settings):
-    directory: str = Field("reports", description="Folder where reports are written.")
+    directory: str = Field("reports", description="Folder where reports are written, relative to the config "
+                                                  "file's folder.")
     level: float = Field(0.9, ge=0.5, lt=1.0, description="Confidence level of every interval in the report "
                                                         "(held-out metrics, differences, fold tests).")
 
@@ -181,8 +183,8 @@ class VerdictSpec(Settings):
 
 
 class CacheSpec(Settings):
-    directory: str = Field(".penduel-cache", description="Folder of finished fit tasks, relative to the current "
-                                                         "folder; a rerun reuses them.")
+    directory: str = Field(".penduel-cache", description="Folder of finished fit tasks, relative to the config "
+                                                         "file's folder; a rerun reuses them.")
     enabled: bool = Field(True, description="Reuse and store finished fit tasks.")
 
 

@@ -72,7 +72,26 @@ def read_table(path: pathlib.Path, kind: str) -> pd.DataFrame:
     if frame.shape[0] == 0 or frame.shape[1] == 0:
         raise DataError(f"data.path: '{path}' holds no rows or no columns (found {frame.shape[0]} rows, "
                         f"{frame.shape[1]} columns).")
+    if kind == "csv":
+        _check_header(path, frame)
     return frame
+
+
+def _check_header(path: pathlib.Path, frame: pd.DataFrame) -> None:
+    """pandas renames a repeated header name (`y` again becomes `y.1`) without a word: refuse it instead."""
+    import csv
+
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            header = next(csv.reader(fh), [])
+    except (OSError, UnicodeDecodeError, csv.Error):
+        return
+    seen: dict[str, int] = {}
+    for i, name in enumerate(header):
+        if name in seen:
+            raise DataError(f"data.path: the header of '{path}' names column '{name}' twice (columns {seen[name] + 1} "
+                            f"and {i + 1}); every column needs its own name. Rename or drop one of them.")
+        seen[name] = i
 
 
 def frame_to_dataset(frame: pd.DataFrame, target: str, task: str, source: str) -> Dataset:
@@ -83,15 +102,64 @@ def frame_to_dataset(frame: pd.DataFrame, target: str, task: str, source: str) -
         hint = f" Did you mean '{match[0]}'?" if match else ""
         shown = ", ".join(repr(c) for c in frame.columns[:10]) + (" ..." if frame.shape[1] > 10 else "")
         raise DataError(f"data.target: column '{target}' is not in {source} (columns: {shown}).{hint}")
+    _check_names(frame, source)
     y_raw = frame.pop(target)
     if frame.shape[1] == 0:
         raise DataError(f"data.target: {source} has no column besides the target '{target}'.")
     notes: list[str] = []
     inputs: list[InputColumn] = []
+    frame = _drop_row_index(frame, notes)
+    _check_cells(frame, source)
+    _check_target_copy(frame, y_raw, target, source)
     y, labels = _target(y_raw, target, task, source)
     X, names = _features(frame, source, notes, inputs)
     return Dataset(X=X, y=y, feature_names=tuple(names), target_name=target, task=task, source=source,
                    class_labels=labels, notes=tuple(notes), inputs=tuple(inputs))
+
+
+def _check_names(frame: pd.DataFrame, source: str) -> None:
+    counts = pd.Index(frame.columns).value_counts()
+    if (counts > 1).any():
+        name = str(counts.index[counts > 1][0])
+        where = [i + 1 for i, c in enumerate(frame.columns) if c == name]
+        raise DataError(f"data: {source} has {len(where)} columns named '{name}' (columns "
+                        f"{', '.join(map(str, where))}); every column needs its own name.")
+
+
+def _drop_row_index(frame: pd.DataFrame, notes: list[str]) -> pd.DataFrame:
+    """An unnamed first column counting 0, 1, 2, ... (or 1, 2, 3, ...) is a row index written with the data,
+    not a measurement: it is dropped with a note."""
+    col = frame.columns[0]
+    if not (col == "" or str(col).startswith("Unnamed: ")) or frame.shape[1] < 2:
+        return frame
+    values = pd.to_numeric(frame[col], errors="coerce").to_numpy(dtype=float)
+    start = values[0] if len(values) else 0
+    if start in (0, 1) and np.array_equal(values, np.arange(len(values)) + start):
+        notes.append(f"dropped the unnamed first column '{col}': it counts the rows ({start:g}, {start + 1:g}, "
+                     f"...), a row index saved with the data, not a feature")
+        return frame.drop(columns=[col])
+    return frame
+
+
+def _check_cells(frame: pd.DataFrame, source: str) -> None:
+    """Lists, mappings or arrays in a cell (nested Parquet columns) cannot be features."""
+    for col in frame.columns:
+        if frame[col].dtype != object:
+            continue
+        nested = frame[col].map(lambda v: isinstance(v, (list, tuple, dict, set, np.ndarray))).to_numpy()
+        if nested.any():
+            row = int(np.flatnonzero(nested)[0])
+            raise DataError(f"data: column '{col}' of {source} holds a {type(frame[col].iloc[row]).__name__} at "
+                            f"data row {row + 1}, not a number or a text label; allowed are numeric, boolean and "
+                            f"text columns. Flatten it into separate columns or drop it.")
+
+
+def _check_target_copy(frame: pd.DataFrame, y_raw: pd.Series, target: str, source: str) -> None:
+    """A feature column equal to the target would be selected as a perfect, meaningless predictor."""
+    for col in frame.columns:
+        if frame[col].dtype == y_raw.dtype and frame[col].equals(y_raw):
+            raise DataError(f"data: column '{col}' of {source} is a copy of the target '{target}' (equal in every "
+                            f"row); it would predict the target perfectly and meaninglessly. Drop it from the data.")
 
 
 def _target(y_raw: pd.Series, target: str, task: str, source: str):
@@ -99,7 +167,7 @@ def _target(y_raw: pd.Series, target: str, task: str, source: str):
     if missing.any():
         row = int(np.flatnonzero(missing)[0])
         raise DataError(f"data.target: column '{target}' has {int(missing.sum())} missing value(s) in "
-                        f"{source}, first at data row {row}; remove or fill those rows.")
+                        f"{source}, first at data row {row + 1}; remove or fill those rows.")
     if task == "classification":
         classes = sorted(pd.unique(y_raw).tolist(), key=str)
         if len(classes) != 2:
@@ -117,12 +185,12 @@ def _target(y_raw: pd.Series, target: str, task: str, source: str):
     if bad.any():
         row = int(np.flatnonzero(bad)[0])
         raise DataError(f"data.target: regression losses need a numeric target, but column '{target}' has "
-                        f"non-numeric value {y_raw.iloc[row]!r} at data row {row}. Use a classification "
+                        f"non-numeric value {y_raw.iloc[row]!r} at data row {row + 1}. Use a classification "
                         f"loss ({', '.join(loss_names(CLASSIFICATION))}) for labels.")
     y = values.to_numpy(dtype=float)
     if not np.isfinite(y).all():
         row = int(np.flatnonzero(~np.isfinite(y))[0])
-        raise DataError(f"data.target: column '{target}' has value {y[row]} at data row {row}; only finite "
+        raise DataError(f"data.target: column '{target}' has value {y[row]} at data row {row + 1}; only finite "
                         f"numbers are allowed.")
     _check_spread(y[:, None], [target], source, "data.target: column")
     if np.ptp(y) == 0:
@@ -151,7 +219,7 @@ def _features(frame: pd.DataFrame, source: str, notes: list[str], inputs: list):
             if bad.any():
                 row = int(np.flatnonzero(bad)[0])
                 raise DataError(f"data: feature column '{col}' has {int(bad.sum())} missing or infinite "
-                                f"value(s) in {source}, first {values[row]} at data row {row}; remove or "
+                                f"value(s) in {source}, first {values[row]} at data row {row + 1}; remove or "
                                 f"impute them before running.")
             blocks.append(values[:, None])
             names.append(col)
@@ -159,7 +227,7 @@ def _features(frame: pd.DataFrame, source: str, notes: list[str], inputs: list):
             continue
         if series.isna().any():
             row = int(np.flatnonzero(series.isna().to_numpy())[0])
-            raise DataError(f"data: text column '{col}' has a missing value at data row {row} in {source}.")
+            raise DataError(f"data: text column '{col}' has a missing value at data row {row + 1} in {source}.")
         levels = sorted(pd.unique(series).tolist(), key=str)
         if len(levels) > MAX_CATEGORY_LEVELS:
             raise DataError(f"data: column '{col}' is not numeric and has {len(levels)} distinct values "

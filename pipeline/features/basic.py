@@ -70,8 +70,14 @@ class PolynomialTerms(TransformerMixin, BaseEstimator):
         return self.poly_.transform(X)[:, self.keep_]
 
     def get_feature_names_out(self, input_features):
-        names = self.poly_.get_feature_names_out(list(input_features))
-        return [n.replace(" ", "*") for n, k in zip(names, self.keep_) if k]
+        """Factors joined by '×'; a column name holding a space, '×' or '^' is bracketed, so a term's factors
+        can always be read back (a name like 'net income' never looks like two factors)."""
+        def factor(name, power):
+            name = f"({name})" if any(c in name for c in " ×^") else name
+            return name if power == 1 else f"{name}^{power}"
+        inputs = [str(n) for n in input_features]
+        return ["×".join(factor(inputs[j], int(p)) for j, p in enumerate(row) if p)
+                for row, k in zip(self.poly_.powers_, self.keep_) if k]
 
 
 @dataclass(frozen=True)

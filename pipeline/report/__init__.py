@@ -4,6 +4,7 @@ from __future__ import annotations
 import datetime as dt
 import json
 import pathlib
+import re
 import time
 from importlib import resources
 
@@ -236,15 +237,23 @@ def render(p: dict, run_id: str) -> str:
         versions=", ".join(f"{k} {v}" for k, v in p["versions"].items()), version=p["versions"]["penduel"], css=css)
 
 
-def report_path(base_dir: pathlib.Path, directory: str, name: str, run_id: str) -> pathlib.Path:
-    return pathlib.Path(base_dir) / directory / name / run_id / "index.html"
+def safe_part(text: str, limit: int = 80) -> str:
+    """One path component from a name read from a store or a config: letters, digits, '_', '-', '.', never
+    '..' or a leading dot, so a forged name cannot leave the reports folder."""
+    part = re.sub(r"[^A-Za-z0-9_.-]", "_", str(text))[:limit].lstrip(".")
+    return part or "unnamed"
 
 
-def write_payload_report(payload: dict, run_id: str, base_dir: pathlib.Path, started: float | None = None) -> pathlib.Path:
+def report_path(reports: pathlib.Path, name: str, run_id: str) -> pathlib.Path:
+    """`reports` is the configured local folder; the stored name and run id are only sanitised components."""
+    return pathlib.Path(reports) / safe_part(name) / safe_part(run_id, 64) / "index.html"
+
+
+def write_payload_report(payload: dict, run_id: str, reports: pathlib.Path, started: float | None = None) -> pathlib.Path:
     """Render and write the report. With `started` (a time.perf_counter() reading at the start of the run)
     the wall time — start to report written — is measured after rendering and put in both files."""
     payload = upgrade_payload(payload)
-    path = report_path(base_dir, payload["config"]["report"]["directory"], payload["name"], run_id)
+    path = report_path(reports, payload["name"], run_id)
     path.parent.mkdir(parents=True, exist_ok=True)
     html = render(payload, run_id)
     if started is not None:
@@ -255,9 +264,9 @@ def write_payload_report(payload: dict, run_id: str, base_dir: pathlib.Path, sta
     return path
 
 
-def write_report(result, run_id: str, base_dir: pathlib.Path, started: float | None = None) -> tuple[pathlib.Path, float]:
+def write_report(result, run_id: str, reports: pathlib.Path, started: float | None = None) -> tuple[pathlib.Path, float]:
     """(report path, wall seconds from `started` to the report written; the run's own time without it)."""
     payload = build_payload(result)
-    path = write_payload_report(payload, run_id, base_dir, started if started is not None else
+    path = write_payload_report(payload, run_id, reports, started if started is not None else
                                 time.perf_counter() - result.seconds)
     return path, payload["seconds"]

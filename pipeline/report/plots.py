@@ -17,6 +17,14 @@ from matplotlib.patches import Patch, Rectangle  # noqa: E402
 from ..models.families import FAMILIES, get_family  # noqa: E402
 from ..selection import RULE_TABLE, rule_choices  # noqa: E402
 
+def plain_text(name, limit: int = 40) -> str:
+    """A name from the data as a literal figure label: one line, shortened with an ellipsis past `limit`
+    characters so a long name cannot push a figure apart, and every `$` escaped so matplotlib never reads
+    `$…$` as math (an unknown macro would stop the drawing). Axis ticks keep their own math formatting."""
+    text = " ".join(str(name).split())
+    text = text if len(text) <= limit else text[: limit - 1] + "…"
+    return text.replace("$", r"\$")
+
 # Okabe & Ito's colour-blind-safe palette (published colour set; common practice for accessible plots):
 # each family carries its own colour and marker, the rest of the palette is for other lines.
 COLOURS = {f.key: f.colour for f in FAMILIES}
@@ -112,7 +120,7 @@ def cv_figure(families, loss_label: str):
         _mark_models(ax, f, col, annotate=True)
         ax.set_xlabel(f"effective degrees of freedom ({fam.df_description})", fontsize=8.5)
         ax.set_ylabel("CV held-out loss", fontsize=8.5)
-        ax.set_title(f"{f['title']} — {loss_label}", fontsize=10, loc="left")
+        ax.set_title(plain_text(f"{f['title']} — {loss_label}", 80), fontsize=10, loc="left")
         style_axes(ax)
     key = [Patch(color="0.6", alpha=0.35, label="mean CV loss ± 1 standard error"),
            Line2D([], [], color=INK, ls=LEVEL_STYLE, lw=0.9, label="least error + 1 standard error")]
@@ -133,7 +141,7 @@ def error_vs_df(families, loss_label: str) -> str:
         _mark_models(ax, f, col, annotate=False)
     ax.set_xlabel(_df_label({f["family"] for f in families}), fontsize=8.5)
     ax.set_ylabel("CV held-out loss (band: ± 1 SE)", fontsize=8.5)
-    ax.set_title(f"Error against model size — {loss_label}", fontsize=10, loc="left")
+    ax.set_title(plain_text(f"Error against model size — {loss_label}", 80), fontsize=10, loc="left")
     style_axes(ax)
     ax.legend(handles=handles + _key_handles(), fontsize=7.5, frameon=False, loc="center left",
               bbox_to_anchor=(1.01, 0.5))
@@ -166,7 +174,7 @@ def coefficient_figure(f, top: int = 20):
         ax.imshow(np.where(failed, 1.0, np.nan), aspect="auto", cmap=ListedColormap(["0.8"]), interpolation="nearest")
     image = ax.imshow(np.ma.masked_where(~np.isfinite(grid) | (grid == 0), grid), aspect="auto",
                       cmap=coefficient_colours(), vmin=-reach, vmax=reach, interpolation="nearest")
-    ax.set_yticks(range(shown), [n[:36] for n in names[:shown]], fontsize=7)
+    ax.set_yticks(range(shown), [plain_text(n, 36) for n in names[:shown]], fontsize=7)
     ticks = _tick_positions(len(df))
     ax.set_xticks(ticks, [f"{df[i]:.3g}" for i in ticks], fontsize=7.5)
     ax.set_xlabel("effective degrees of freedom along the path →", fontsize=8.5)
@@ -184,7 +192,7 @@ def coefficient_figure(f, top: int = 20):
     bar.set_label("coefficient (feature-map output scale; white = 0)", fontsize=7.5)
     bar.ax.tick_params(labelsize=7)
     more = len(names) - shown
-    ax.set_title(f"Sparse coefficient map — {f['loss_label']}\n{frames}"
+    ax.set_title(plain_text(f"Sparse coefficient map — {f['loss_label']}", 80) + f"\n{frames}"
                  + (f"; {more} later-entering features not shown" if more else ""), fontsize=9, loc="left")
     fig.tight_layout()
     return fig
@@ -199,7 +207,7 @@ def stability_paths(stab: dict, top: int = 12) -> str:
     styles = ["-", "--", ":", "-."]
     for i, (name, probs) in enumerate(zip(paths["names"], paths["probabilities"])):
         kw = dict(color=palette[i % len(palette)], ls=styles[(i // len(palette)) % 4], lw=1.3,
-                  label=name[:40]) if i < top else dict(color="0.75", lw=0.6)
+                  label=plain_text(name)) if i < top else dict(color="0.75", lw=0.6)
         ax.plot(lambdas, _arr(probs), **kw)
     ax.axhline(stab["threshold"], color="0.2", ls=":", lw=1.0)
     ax.set_xscale("log")
@@ -223,7 +231,7 @@ def selection_frequency(stab: dict) -> str:
     for i, fam in enumerate(present):   # bars side by side, the first family on top
         ax.barh(y + (len(present) - 1 - 2 * i) * h / 2, _arr(freq[fam.key][::-1]), height=h, color=fam.colour,
                 hatch="//" if i else None, label=f"{fam.title}: {fam.selected_phrase}")
-    ax.set_yticks(y, [n[:40] for n in names], fontsize=7)
+    ax.set_yticks(y, [plain_text(n) for n in names], fontsize=7)
     ax.set_xlim(0, 1)
     ax.set_xlabel("share of resamples")
     ax.set_title("Selection frequency at the chosen λ" + ("" if len(present) > 1 else f" — {present[0].title} only"),

@@ -13,6 +13,8 @@ a status text. Three formulations, chosen for speed with a convex solver:
 """
 from __future__ import annotations
 
+import warnings
+
 from dataclasses import dataclass
 
 import numpy as np
@@ -132,12 +134,18 @@ def solve_cvxpy(XW, y, lam, alpha, loss: Loss, warm=None, tol=1e-9, backends=Non
         used = name
         try:
             opts = _BACKEND_OPTIONS.get(name, lambda t: {})(tol)
-            problem.solve(solver=name, **opts)
+            with warnings.catch_warnings(record=True) as caught:   # e.g. "Solution may be inaccurate"
+                warnings.simplefilter("always")
+                problem.solve(solver=name, **opts)
             status = problem.status
+            said = "; ".join(dict.fromkeys(str(w.message).strip() for w in caught
+                                           if not issubclass(w.category, (FutureWarning, DeprecationWarning))))
+            if said and (status != "optimal" or "inaccurate" in said.lower()):   # then not meeting tolerance
+                status = f"{'optimal_inaccurate' if status == 'optimal' else status} ({name}: {said[:200]})"
         except cp.error.SolverError as exc:
             status = f"{name}: {exc}"
             continue
-        if status in ("optimal", "optimal_inaccurate") and b.value is not None:
+        if (status == "optimal" or status.startswith("optimal_inaccurate")) and b.value is not None:
             break
     if b.value is None:
         return Restricted(np.zeros(k), 0.0, np.zeros(n), str(status), used)
