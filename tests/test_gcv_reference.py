@@ -83,6 +83,7 @@ def test_gcv_classical_chooses_lambda_in_a_run(tmp_path):
         "name: longley-gcv\nseed: 1\ndata: {kind: csv, path: longley.csv, target: TOTEMP}\n"
         "losses: [squared]\nfamilies:\n  l1: {path: {points: 6}}\n  l2: {path: {points: 8}}\n"
         "selection: {cv_folds: 3, l2_criterion: gcv_classical}\nstability: {enabled: false}\n"
+        "split: {test_fraction: 0.32}\n"   # 5 of the 16 rows: the fewest a held-out interval is given for
         f"tracking: {{uri: sqlite:///{tmp_path / 'store.db'}}}\nreport: {{directory: {tmp_path / 'out'}}}\n")
     done = run_cli(["run", "run.yaml"], cwd=tmp_path)
     assert done.returncode == 0, done.stderr[-2000:]

@@ -34,7 +34,7 @@ def _write(folder, name, data, losses, **extra):
 
 
 def _run(folder, config):
-    code, out, err = penduel(["run", config, "--quiet"], folder)
+    code, out, err = penduel(["run", config], folder)   # not --quiet: the wall-time line is checked
     assert code == 0, err
     report = pathlib.Path(re.search(r"^report: (.+)$", out, re.M).group(1))
     data = json.loads((report.parent / "report_data.json").read_text(encoding="utf-8"))
@@ -167,11 +167,22 @@ def test_verdict_metric_override_and_a_metric_of_the_wrong_task(runs, tmp_path):
     assert code == 2 and "verdict.metric" in err and "Traceback" not in err
 
 
-def test_comparison_ranks_by_cv_keeps_tasks_apart_and_lists_failures(runs):
+def test_comparison_ranks_by_cv_keeps_tasks_apart_and_lists_failures(runs, monkeypatch):
+    import pipeline.runner as runner
+
     folder = runs["folder"]
-    broken = _write(folder, "broken", {"kind": "csv", "path": "dense.csv", "target": "no_such_column"}, ["squared"])
+    mistake = _write(folder, "mistake", {"kind": "csv", "path": "dense.csv", "target": "no_such_column"}, ["squared"])
+    code, _, _ = penduel(["run", mistake], folder)
+    assert code == 2                 # a user mistake is refused before any tracking run is opened
+    broken = _write(folder, "broken", {"kind": "csv", "path": "dense.csv", "target": "y"}, ["squared"],
+                    cache={"enabled": False})
+
+    def failing_fit(task, shared):   # a failure after the run opened: the execution ends FAILED
+        raise RuntimeError("injected failure")
+    monkeypatch.setattr(runner, "run_fit", failing_fit)
     code, _, _ = penduel(["run", broken], folder)
-    assert code == 2
+    monkeypatch.undo()
+    assert code == 1
     uri = f"sqlite:///{folder / 'mlflow.db'}"
     code, out, err = penduel(["compare", "--last", "8", "--tracking-uri", uri], folder)
     assert code == 0, err
@@ -189,4 +200,4 @@ def test_comparison_ranks_by_cv_keeps_tasks_apart_and_lists_failures(runs):
     hinge = next(b for b in payload["losses"] if b["loss"] == "hinge")
     assert all(r["metric"] == "balanced_accuracy" for r in hinge["rows"])
     statuses = {e["name"]: e["status"] for e in payload["executions"]}
-    assert statuses["broken"] == "FAILED" and "<strong>failed</strong>" in page
+    assert statuses["broken"] == "FAILED" and "<strong>failed</strong>" in page and "mistake" not in statuses
