@@ -162,6 +162,13 @@ def _check_target_copy(frame: pd.DataFrame, y_raw: pd.Series, target: str, sourc
                             f"row); it would predict the target perfectly and meaninglessly. Drop it from the data.")
 
 
+def class_text(label) -> str:
+    """A class label as a spreadsheet shows it: 1 rather than 1.0, text quoted."""
+    if isinstance(label, (float, np.floating)) and float(label).is_integer():
+        return str(int(label))
+    return repr(label) if isinstance(label, str) else str(label)
+
+
 def _target(y_raw: pd.Series, target: str, task: str, source: str):
     missing = y_raw.isna().to_numpy()
     if missing.any():
@@ -171,7 +178,7 @@ def _target(y_raw: pd.Series, target: str, task: str, source: str):
     if task == "classification":
         classes = sorted(pd.unique(y_raw).tolist(), key=str)
         if len(classes) != 2:
-            shown = ", ".join(repr(c) for c in classes[:6]) + (" ..." if len(classes) > 6 else "")
+            shown = ", ".join(class_text(c) for c in classes[:6]) + (" ..." if len(classes) > 6 else "")
             more = ("Multi-class classification is not supported yet: " if len(classes) > 2 else "")
             raise DataError(f"data.target: {more}classification losses need exactly two classes, but column "
                             f"'{target}' has {len(classes)} ({shown}). "
