@@ -68,6 +68,7 @@ def test_abandoned_running_runs_are_marked_killed_live_ones_kept(monkeypatch):
     assert client.get_run(live.run_id).info.status == "FINISHED"
 
 
+@pytest.mark.slow   # ~18 s; make test-all (test_four_concurrent_executions is slow too)
 @pytest.mark.parametrize("n_runs", [2])
 def test_concurrent_executions_share_one_new_store(n_runs):
     tmp_path = scratch_dir("penduel-concurrent-")       # tmpfs: the store's fsyncs do not decide the time

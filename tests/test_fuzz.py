@@ -203,6 +203,7 @@ def test_fuzzed_data_and_configs_through_run(workdir, config, frame, monkeypatch
     _run_examples(workdir, config, frame, monkeypatch)
 
 
+@pytest.mark.slow   # ~13 s of full runs; make test-all
 @settings(max_examples=6, **QUIET)
 @given(example=good_examples())
 def test_fuzzed_good_experiments_run_through(workdir, example, monkeypatch):

@@ -76,6 +76,7 @@ def test_the_two_gcv_choices_differ_on_small_n(mass_scaled):
     assert classical == pytest.approx(0.0028) and with_intercept == pytest.approx(0.0032)
 
 
+@pytest.mark.slow   # ~8 s through the CLI; make test-all
 def test_gcv_classical_chooses_lambda_in_a_run(tmp_path):
     d = longley.load_pandas()
     d.data.to_csv(tmp_path / "longley.csv", index=False)

@@ -104,7 +104,9 @@ TAMPERING = {"edited value": _edit_value, "shortened array": _shorten, "wrong fi
              "entry replaced by a folder": _folder, "another entry copied over it": None}
 
 
-@pytest.mark.parametrize("how", list(TAMPERING))
+# one kind of tampering in the fast suite, every kind in make test-all (~5 s each)
+@pytest.mark.parametrize("how", [h if h == "edited value" else pytest.param(h, marks=pytest.mark.slow)
+                                 for h in TAMPERING])
 def test_a_tampered_cache_entry_is_dropped_refitted_and_noted(how, tmp_path):
     (tmp_path / "experiment.yaml").write_text(TINY, encoding="utf-8")
     code, first, err = penduel(["run", "experiment.yaml", "--quiet"], tmp_path)
@@ -312,6 +314,7 @@ def test_version_and_sigterm_exit_status(tmp_path, monkeypatch):
     assert run.info.status == "KILLED"
 
 
+@pytest.mark.slow   # ~10 s; make test-all
 def test_paths_are_relative_to_the_config_folder(tmp_path):
     project = tmp_path / "project"
     project.mkdir()

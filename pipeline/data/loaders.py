@@ -293,7 +293,7 @@ def encode_rows(frame: pd.DataFrame, inputs, feature_names, source: str, unseen:
             bad = ~np.isfinite(values)
             if bad.any():
                 row = int(np.flatnonzero(bad)[0])
-                raise DataError(f"{source}: column '{c.name}' was numeric in the training data, but row {row} holds "
+                raise DataError(f"{source}: column '{c.name}' was numeric in the training data, but data row {row + 1} holds "
                                 f"{series.iloc[row]!r}; only finite numbers are allowed there.")
             columns[c.name] = values
             continue
@@ -301,7 +301,7 @@ def encode_rows(frame: pd.DataFrame, inputs, feature_names, source: str, unseen:
         unknown = ~np.isin(text, c.levels) | series.isna().to_numpy()
         if unknown.any() and unseen != "reference":
             row = int(np.flatnonzero(unknown)[0])
-            raise DataError(f"{source}: column '{c.name}' holds {series.iloc[row]!r} at row {row}, a value not seen "
+            raise DataError(f"{source}: column '{c.name}' holds {series.iloc[row]!r} at data row {row + 1}, a value not seen "
                             f"in the training data; allowed are {', '.join(repr(v) for v in c.levels)} (or pass "
                             f"--unseen reference to treat unseen values as the reference level {c.levels[0]!r}).")
         for level in c.levels[1:]:
