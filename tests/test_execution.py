@@ -117,6 +117,7 @@ def _assert_bit_identical(reference, other):
         assert coef_a.tobytes() == coef_b.tobytes()
 
 
+@pytest.mark.slow   # ~7 s starting a Dask cluster; make test-all (test_cluster.py runs a real one)
 def test_local_processes_and_dask_give_identical_results(capsys):
     seeds = task_seeds(np.random.SeedSequence(2024), 6)
     local = run_tasks(_subsample_lasso, seeds)
