@@ -78,7 +78,7 @@ def _watch_parent(parent_pid: int) -> None:
 
 
 @contextlib.contextmanager
-def _captured_output(sink: list):
+def captured_output(sink: list):
     """Solver banners and library warnings during a task: written to a temporary file instead of the terminal
     (file descriptor 1, so C libraries are caught too), then appended to `sink` as text."""
     sys.stdout.flush()
@@ -111,7 +111,7 @@ def _call(fn: Callable, index: int, task: Any, shared: Any, use_shared: bool,
     try:
         if not _THREADPOOLS:
             _THREADPOOLS.append(ThreadpoolController())
-        with _THREADPOOLS[0].limit(limits=1), _captured_output(output):
+        with _THREADPOOLS[0].limit(limits=1), captured_output(output):
             result = fn(task, shared) if use_shared else fn(task)
     except Exception as exc:
         raise TaskFailed(index, _short_repr(task), traceback.format_exc()) from exc

@@ -68,6 +68,7 @@ def export_state(result, r) -> tuple[dict[str, np.ndarray], dict]:
     from .fitting import build_features, target_scaling
     from .losses import get_loss
     from .models.families import get_family
+    from .execution import captured_output
     from .runner import shared_inputs
 
     spec, ds = result.spec, result.dataset
@@ -75,7 +76,7 @@ def export_state(result, r) -> tuple[dict[str, np.ndarray], dict]:
     family = get_family(r.family)
     loss = get_loss(r.loss_name, **r.loss_params)
     rows = result.train_rows
-    with threadpool_limits(limits=1):
+    with threadpool_limits(limits=1), captured_output([]):   # solver banners stay off the terminal
         builder = build_features(shared, rows)
         center, scale = target_scaling(shared, ds.y[rows])
         fit = family.fit_path(builder.transform(ds.X[rows]), (ds.y[rows] - center) / scale, loss, r.lambdas,

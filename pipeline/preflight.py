@@ -25,7 +25,7 @@ STORE_SCHEMES = {"sqlite": 1433, "postgresql": 5432, "mysql": 3306, "mssql": 143
 def anchored(path: str, base_dir: pathlib.Path) -> pathlib.Path:
     """A folder or file setting of the config, relative to the config file's folder."""
     p = pathlib.Path(path).expanduser()
-    return p if p.is_absolute() else pathlib.Path(base_dir) / p
+    return p if p.is_absolute() else pathlib.Path(os.path.normpath(pathlib.Path(base_dir) / p))
 
 
 def anchored_uri(uri: str, base_dir: pathlib.Path) -> str:
