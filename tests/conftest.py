@@ -51,6 +51,20 @@ def scratch_dir(prefix: str) -> pathlib.Path:
     return path
 
 
+def run_demo_copy(prefix: str = "penduel-demo-") -> tuple[pathlib.Path, dict, int, str, str]:
+    """configs/demo.yaml run from a copy in a scratch folder, its store, reports and cache beside the copy
+    (the shipped file points them at the checkout): (folder, config, exit code, stdout, stderr)."""
+    import yaml
+
+    cwd = scratch_dir(prefix)
+    config = yaml.safe_load((ROOT / "configs" / "demo.yaml").read_text())
+    for key in ("tracking", "report", "cache"):
+        config.pop(key, None)
+    (cwd / "demo.yaml").write_text(yaml.safe_dump(config))
+    code, out, err = penduel(["run", "demo.yaml", "--quiet"], cwd)
+    return cwd, config, code, out, err
+
+
 def penduel(args, cwd) -> tuple[int, str, str]:
     """The command line in this process (imports are paid once per test session). mlflow keeps one
     store per URI string in a process, so a run gets its folder's store by absolute path."""

@@ -129,9 +129,8 @@ import re  # noqa: E402
 
 import pandas as pd  # noqa: E402
 import pytest  # noqa: E402
-import yaml  # noqa: E402
 
-from .conftest import ROOT, penduel, scratch_dir  # noqa: E402
+from .conftest import ROOT, penduel, run_demo_copy, scratch_dir  # noqa: E402
 
 SCREENSHOTS = ROOT / "reports" / "screenshots"
 HOSTILE = "<script>window.__pwned = 1</script>"
@@ -224,12 +223,7 @@ def test_markup_in_column_names_runs_no_script():
 @needs_chromium
 @pytest.mark.slow
 def test_demo_report_is_clean_and_small():
-    cwd = scratch_dir("penduel-demo-")
-    config = yaml.safe_load((ROOT / "configs" / "demo.yaml").read_text())
-    for key in ("tracking", "report", "cache"):   # the demo's own point at the checkout; here: beside the copy
-        config.pop(key, None)
-    (cwd / "demo.yaml").write_text(yaml.safe_dump(config))
-    code, out, err = penduel(["run", "demo.yaml", "--quiet"], cwd)
+    cwd, _, code, out, err = run_demo_copy()
     assert code == 0, err
     report = pathlib.Path(re.search(r"report: (\S+)", out).group(1))
     assert report.stat().st_size < 5 * 2**20

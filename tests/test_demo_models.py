@@ -7,9 +7,8 @@ import re
 import time
 
 import pytest
-import yaml
 
-from .conftest import ROOT, _Server, penduel, scratch_dir
+from .conftest import _Server, run_demo_copy
 from .test_browser import SCREENSHOTS, Page, chromium_binary
 from .test_models import fresh_process_check, scenario_rows
 
@@ -18,12 +17,7 @@ pytestmark = pytest.mark.slow
 
 @pytest.fixture(scope="module")
 def demo():
-    cwd = scratch_dir("penduel-demo-")
-    config = yaml.safe_load((ROOT / "configs" / "demo.yaml").read_text())
-    for key in ("tracking", "report", "cache"):   # the demo's own point at the checkout; here: beside the copy
-        config.pop(key, None)
-    (cwd / "demo.yaml").write_text(yaml.safe_dump(config))
-    code, out, err = penduel(["run", "demo.yaml", "--quiet"], cwd)
+    cwd, config, code, out, err = run_demo_copy()
     assert code == 0, err
     return {"cwd": cwd, "uri": f"sqlite:///{cwd / 'mlflow.db'}", "config": config,
             "run_id": re.search(r"run id: ([0-9a-f]{32})", out).group(1)}
