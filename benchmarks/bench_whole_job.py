@@ -48,8 +48,9 @@ def _write_config(folder: pathlib.Path) -> pathlib.Path:
     config = {"name": "whole-job", "seed": 1,
               "data": {"kind": "csv", "path": "job.csv", "target": "y"},
               "split": {"test_fraction": 0.25}, "losses": ["squared"],
-              "families": {"l1": {"n_lambdas": 30, "lambda_ratio": 0.01}, "l2": {"kernel": "linear", "n_lambdas": 30}},
-              "selection": {"cv_folds": 5, "rule": "min"},
+              "families": {"l1": {"path": {"points": 30, "smallest_share": 0.01}},
+                           "l2": {"kernel": "linear", "path": {"points": 30}}},
+              "selection": {"cv_folds": 5, "rule": "least_error"},
               "stability": {"n_resamples": 50, "fraction": 0.5},
               "execution": {"backend": "processes", "n_jobs": 2},
               "cache": {"enabled": False}}
