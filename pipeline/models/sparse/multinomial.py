@@ -26,11 +26,13 @@ import time
 from dataclasses import dataclass, field
 
 import numpy as np
+import scipy.linalg
 from scipy.special import xlogy
 from threadpoolctl import ThreadpoolController
 
 from pipeline.models.sparse.certificate import gap_scale
 
+FISTA_ITER = 400           # proximal-gradient iterations between Newton attempts on the current signs
 _THREADPOOLS: list = []   # one controller per process (building one scans the loaded libraries)
 
 
@@ -151,9 +153,11 @@ class _Restricted:
     def __init__(self, Zw, Y, lam, alpha, reference):
         self.Z, self.Y, self.lam, self.alpha, self.ref = Zw, Y, lam, alpha, reference
         self.n = Zw.shape[0]
-        top = np.linalg.norm(np.hstack([np.ones((self.n, 1)), Zw]), 2) if Zw.shape[1] else np.sqrt(self.n)
-        # Böhning: diag(p) − ppᵀ ⪯ ½ I, so the smooth part's gradient is Lipschitz with this constant
-        self.step = 1.0 / (0.5 * top**2 / self.n + lam * (1 - alpha))
+        A = np.hstack([np.ones((self.n, 1)), Zw])
+        small = A.T @ A if A.shape[1] < self.n else A @ A.T
+        top = float(scipy.linalg.eigvalsh(small, subset_by_index=[small.shape[0] - 1] * 2)[0])
+        # Böhning: diag(p) − ppᵀ ⪯ ½ I, so the smooth part's gradient is Lipschitz with ||A||²/(2n)
+        self.step = 1.0 / (0.5 * top / self.n + lam * (1 - alpha))
 
     def smooth_grad(self, B, b):
         R = np.exp(log_softmax(self.Z @ B + b, axis=1)) - self.Y
@@ -188,7 +192,18 @@ class _Restricted:
         return xB, xb - xb.mean(), gap
 
     def newton_on_signs(self, B, b, max_iter=30):
-        """Newton on (b, nonzero entries of B) with their signs fixed; a step stops at the first sign change."""
+        """Newton on (b, nonzero entries of B) with their signs fixed; a step stops at the first sign change,
+        the coordinates reaching zero leave, and Newton goes on with the smaller support."""
+        used = 0
+        while used < max_iter and np.any(B):
+            B, b, shrank, its = self._sign_pass(B, b, max_iter - used)
+            used += its
+            if not shrank:
+                break
+        return B, b
+
+    def _sign_pass(self, B, b, max_iter):
+        """One support's Newton iterations; returns (B, b, the support shrank, iterations)."""
         mask = B != 0
         Z, Y, lam, alpha, n = self.Z, self.Y, self.lam, self.alpha, self.n
         K = Y.shape[1]
@@ -212,7 +227,8 @@ class _Restricted:
             return primal_objective(Z, Y, Bn, bn, lam, alpha), Bn, bn
 
         fval, Bc, bc = value(theta)
-        for _ in range(max_iter):
+        its = 0
+        for its in range(1, max_iter + 1):
             P = np.exp(log_softmax(Z @ Bc + bc, axis=1))
             R = P - Y
             g = np.concatenate([blocks[k].T @ R[:, k] for k in range(K)]) / n
@@ -246,13 +262,13 @@ class _Restricted:
             if fc >= fval:
                 break
             theta, fval, Bc, bc = cand, fc, Bn, bn
-            if t == tmax:   # the support shrank: rebuild on the new signs next time
-                return Bc, bc - bc.mean()
+            if t == tmax:   # the support shrank: rebuild on the new signs
+                return Bc, bc - bc.mean(), True, its
             if float(g @ step) <= 1e-16 * max(1.0, abs(fval)):
                 break
-        return Bc, bc - bc.mean()
+        return Bc, bc - bc.mean(), False, its
 
-    def solve(self, B, b, target, max_rounds=40, fista_iter=400):
+    def solve(self, B, b, target, max_rounds=40, fista_iter=FISTA_ITER):
         gap = self.gap(B, b)
         for _ in range(max_rounds):
             if gap <= target:
@@ -267,11 +283,16 @@ class _Restricted:
         return B, b, gap
 
 
-def _strong_set(grad, active, lam, prev_lam, alpha):
-    """Features kept by the sequential strong rule on max_k |grad_jk|, with the current support."""
+def _seed_set(grad, active, lam, prev_lam, alpha):
+    """Working set to start λ with: the support plus the features the sequential strong rule keeps (on
+    max_k |grad_jk|), the strongest first, at most max(10, 2·|support|) in all; violators join later."""
     if prev_lam is None:
         return active
-    return np.union1d(active, np.flatnonzero(np.abs(grad).max(axis=1) >= alpha * (2 * lam - prev_lam)))
+    score = np.abs(grad).max(axis=1)
+    score[active] = -np.inf
+    strong = np.flatnonzero(score >= alpha * (2 * lam - prev_lam))
+    room = max(10, 2 * active.size) - active.size
+    return np.union1d(active, strong[np.argsort(-score[strong])[:max(room, 0)]])
 
 
 def fit_multinomial_l1_path(Z, codes, n_classes, lambdas, alpha=1.0, tol=1e-7, *,
@@ -308,7 +329,7 @@ def _fit_path(Z, codes, n_classes, lambdas, alpha, tol, max_working_set_rounds):
     statuses = []
     for i, lam in enumerate(lambdas):
         try:
-            W = _strong_set(grad, np.flatnonzero(np.any(B != 0, axis=1)), lam, prev, alpha)
+            W = _seed_set(grad, np.flatnonzero(np.any(B != 0, axis=1)), lam, prev, alpha)
             target = 0.1 * tol
             for _ in range(max_working_set_rounds):
                 sub = _Restricted(Z[:, W], Y, lam, alpha, reference)
