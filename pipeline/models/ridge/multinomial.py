@@ -98,16 +98,22 @@ class _Problem:
         return H
 
     def system(self, H, lam):
-        """H + R (+ unit curvature on the common intercept shift), Cholesky-factored."""
+        """M = H + R (+ unit curvature on the common intercept shift), Cholesky-factored; also diag(M) − H."""
         M = H + np.diag(lam * self.pen)
         if self.with_intercept:
             M[np.ix_(self.intercepts, self.intercepts)] += 1.0 / self.K
         M[np.diag_indices_from(M)] += 1e-13 * max(1.0, float(np.trace(M)) / M.shape[0])
-        return scipy.linalg.cho_factor(M, check_finite=False)
+        return scipy.linalg.cho_factor(M, check_finite=False), M - H
 
-    def df(self, H, chol):
-        """tr[(H + R)⁺H] − (K − 1): the common intercept shift is in the null space of both H and R."""
-        trace = float(np.trace(scipy.linalg.cho_solve(chol, H, check_finite=False)))
+    def df(self, chol, extra):
+        """tr[(H + R)⁺H] − (K − 1), from the inverse of M = H + extra (extra = R, the intercept-shift fill and
+        the rounding ridge): tr[M⁻¹H] = q − tr[M⁻¹ extra]. The intercept-shift direction is in the null
+        space of H, so what it adds is removed with it."""
+        inv, info = scipy.linalg.lapack.dpotri(chol[0], lower=chol[1])
+        if info != 0:
+            raise np.linalg.LinAlgError(f"dpotri failed with info={info}")
+        inv = np.triu(inv) + np.triu(inv, 1).T if not chol[1] else np.tril(inv) + np.tril(inv, -1).T
+        trace = inv.shape[0] - float(np.sum(inv * extra))
         return trace - (self.K - 1 if self.with_intercept else 0)
 
 
@@ -118,10 +124,9 @@ def _newton(prob: _Problem, theta, lam, tol, max_iter):
         P = np.exp(logp)
         grad = prob.gradient(P, theta, lam)
         gnorm = float(np.max(np.abs(grad)))
-        H = prob.loss_hessian(P)
-        chol = prob.system(H, lam)
+        chol, extra = prob.system(prob.loss_hessian(P), lam)
         if gnorm <= tol or it == max_iter:
-            return theta, obj, gnorm, prob.df(H, chol), it, gnorm <= tol
+            return theta, obj, gnorm, prob.df(chol, extra), it, gnorm <= tol
         step = scipy.linalg.cho_solve(chol, grad, check_finite=False)
         decrement = float(grad @ step)
         t = 1.0
@@ -132,7 +137,7 @@ def _newton(prob: _Problem, theta, lam, tol, max_iter):
                 break
             t *= 0.5
         if new_obj > obj:      # no descent left at rounding level
-            return theta, obj, gnorm, prob.df(H, chol), it, gnorm <= tol
+            return theta, obj, gnorm, prob.df(chol, extra), it, gnorm <= tol
         theta, obj, logp = cand, new_obj, new_logp
     raise AssertionError("unreachable")
 
