@@ -109,6 +109,10 @@ def test_gap_certifies_every_fit_of_a_path(wine):
     assert np.all(np.diff(path.n_nonzero[:4]) >= 0) and path.n_nonzero[-1] > path.n_nonzero[0]
     assert path.coef.shape == (12, Z.shape[1], 3) and path.intercept.shape == (12, 3)
     assert np.allclose(path.intercept.sum(axis=1), 0, atol=1e-12)
+    # warm starts change the route, not the optimum: a cold fit at the last λ reaches the same objective
+    cold = fit_multinomial_l1_path(Z, y, 3, path.lambdas[-1:], tol=1e-7)
+    assert cold.converged[0]
+    assert cold.objective[0] == pytest.approx(path.objective[-1], rel=2e-7)
 
 
 def test_balanced_dual_is_feasible():
