@@ -359,7 +359,8 @@ def _fit_path(Z, codes, n_classes, lambdas, alpha, tol, max_working_set_rounds):
     return MultinomialL1Path(
         lambdas=lambdas, coef=coefs, intercept=icpts,
         n_nonzero=np.count_nonzero(np.any(coefs != 0, axis=2), axis=1), certificate=gaps,
-        certificate_kind="duality_gap", converged=gaps <= tol, status=tuple(statuses),
+        certificate_kind="duality_gap", converged=(gaps <= tol) & np.array([st == "optimal" for st in statuses], bool),
+        status=tuple(statuses),
         solver="working-set FISTA + sign-fixed Newton", fit_seconds=time.perf_counter() - start,
         alpha=float(alpha), objective=objs, working_set_size=sizes)
 
