@@ -183,3 +183,37 @@ def test_starter_folds_follow_the_smallest_class():
     y = np.array([0] * 30 + [1] * 30 + [2] * 6, float)
     assert cv_folds(y, "classification", 50) == 2
     assert cv_folds(np.array([-1.0] * 40 + [1.0] * 40), "classification", 60) == 5
+
+
+# ---------------------------------------------------------------- the multinomial hook
+class _TogetherFamily(type(SPARSE)):
+    """A family that declares a multinomial fitter (here the one-versus-rest fits handed back through the
+    hook, enough to see which route each loss takes and what the callers read)."""
+    fits_multinomial = True
+
+    def multinomial_grid(self, Z, codes, n_classes, loss, options, widen=(0, 0)):
+        return SeveralClasses(SPARSE, n_classes).grid(Z, codes, get_loss("hinge"), options, widen=widen)
+
+    def fit_multinomial(self, Z, codes, n_classes, loss, lambdas, options):
+        from pipeline.models.multiclass import multinomial_pathfit
+        inner = SeveralClasses(SPARSE, n_classes).fit_path(Z, codes, get_loss("hinge"), lambdas, options)
+        return multinomial_pathfit(lambdas, inner, effective_df=inner.effective_df, df_kind="test", model=inner)
+
+    def predict_multinomial(self, fit, Z):
+        return SeveralClasses(SPARSE, 3).predict(fit.model, Z)
+
+
+def test_a_family_with_a_multinomial_fitter_takes_it_for_losses_declared_multinomial():
+    Z, codes = _blobs()
+    opts = {"tol": 1e-8, "solver": "auto", "alpha": 1.0, "n_lambdas": 4, "lambda_ratio": 0.1}
+    several = for_classes(_TogetherFamily(), 3)
+    logistic, hinge = get_loss("logistic"), get_loss("hinge")
+    assert several.strategy(logistic) == MULTINOMIAL and several.strategy(hinge) == ONE_VERSUS_REST
+    fit = several.fit_path(Z, codes, logistic, several.grid(Z, codes, logistic, opts), opts)
+    assert fit.multiclass == MULTINOMIAL and "fitted multinomial (softmax)" in fit.note
+    F = several.predict(fit, Z)
+    assert F.shape == (4, len(codes), 3)
+    # the held-out loss of a multinomial fit is the softmax cross-entropy
+    assert np.allclose(path_losses(logistic, codes, F, fit.multiclass),
+                       [skm.log_loss(codes, softmax(f, axis=1), labels=[0, 1, 2]) for f in F])
+    assert several.fit_path(Z, codes, hinge, several.grid(Z, codes, hinge, opts), opts).multiclass == ONE_VERSUS_REST

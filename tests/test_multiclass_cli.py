@@ -55,6 +55,7 @@ def _check(cwd, out, html, losses):
     assert html.count("Confusion matrix of the test rows") == 2 * len(losses)    # one per family and loss
     assert "a feature counts as selected when its weight is nonzero in any class" in html
     assert "4 classes fitted one versus the rest" in html
+    assert "read the softmax of the class scores as probabilities" in html
     client = open_store(f"sqlite:///{cwd / 'mlflow.db'}")
     parent = client.get_run(run_id)
     children = client.search_runs([parent.info.experiment_id],

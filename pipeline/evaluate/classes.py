@@ -17,6 +17,11 @@ from scipy.special import softmax
 from sklearn import metrics as skm
 
 _EPS = np.finfo(float).eps
+# what the report says about the class probabilities behind log-loss, Brier score and ROC AUC
+PROBABILITY_SENTENCE = ("Log-loss, Brier score and ROC AUC (the macro average of each class's AUC against the rest) "
+                        "read the softmax of the class scores as probabilities: exact for a multinomial (softmax) fit, "
+                        "a convention for classes fitted one versus the rest, whose scores are not calibrated "
+                        "probabilities; the predicted class is the one of the largest score.")
 
 
 def predicted(F) -> np.ndarray:

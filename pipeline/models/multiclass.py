@@ -81,6 +81,19 @@ def pack(fits, note: str = "") -> PathFit:
         note="; ".join(t for t in (note, first.note) if t), model=ClassFits(tuple(fits)), multiclass=ONE_VERSUS_REST)
 
 
+def multinomial_pathfit(lambdas, path, *, effective_df, df_kind: str, coef=None, model=None, note: str = "") -> PathFit:
+    """A multinomial solver's path (fields as agreed for them: intercept (L, K), converged, status, fit_seconds,
+    and where it has them coef (L, p, K), n_nonzero, certificate, certificate_kind, solver) as the PathFit
+    every caller reads; `model` is what the family's predict_multinomial reads back (default: the path)."""
+    return PathFit(
+        lambdas=np.asarray(lambdas, float), intercept=np.asarray(path.intercept, float),
+        coef=coef if coef is not None else getattr(path, "coef", None), n_nonzero=getattr(path, "n_nonzero", None),
+        effective_df=np.asarray(effective_df, float), df_kind=df_kind, certificate=getattr(path, "certificate", None),
+        certificate_kind=getattr(path, "certificate_kind", ""), converged=np.asarray(path.converged, bool),
+        status=tuple(path.status), solver=getattr(path, "solver", MULTINOMIAL), fit_seconds=float(path.fit_seconds),
+        note=note, model=path if model is None else model, multiclass=MULTINOMIAL)
+
+
 class SeveralClasses:
     """A model family fitted on K > 2 classes; every other property is the family's own."""
 

@@ -11,6 +11,7 @@ import math
 import numpy as np
 
 from ..evaluate import INTERVAL_SOURCES, N_BOOT
+from ..evaluate.classes import PROBABILITY_SENTENCE, confusion
 from ..models.families import get_family
 from ..models.multiclass import SELECTED_SENTENCE, selection_weights
 
@@ -82,7 +83,6 @@ def _family(result, r) -> dict:
                                if weights[j] != 0]
         out["truth"] = _clean(result.evaluation.truth.get((r.loss_label, r.family)))
     if np.ndim(r.test_pred) == 2:   # K > 2 classes: the confusion matrix of the test rows
-        from ..evaluate.classes import confusion
         out["confusion"] = confusion(result.y_test, r.test_pred, r.test_pred.shape[1]).tolist()
         out["multiclass"] = r.path.multiclass
     return out
@@ -109,7 +109,7 @@ def build_payload(result) -> dict:
         "n_rows": result.dataset.n_samples, "n_train": len(result.train_rows), "n_test": len(result.test_rows),
         "dataset": result.dataset.summary(), "notes": list(result.notes),
         "class_labels": list(result.dataset.class_labels or ()),
-        "several_classes": SELECTED_SENTENCE if result.dataset.n_classes > 2 else "",
+        "several_classes": f"{SELECTED_SENTENCE} {PROBABILITY_SENTENCE}" if result.dataset.n_classes > 2 else "",
         "design": getattr(result, "design", ""),
         "feature_maps": [m.kind for m in spec.features.maps], "n_features_built": len(result.feature_names),
         "families": [_family(result, r) for r in result.results],
