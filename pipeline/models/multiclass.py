@@ -112,8 +112,9 @@ class SeveralClasses:
 
     def note(self, loss) -> str:
         text = f"{self.n_classes} classes fitted {STRATEGY_TEXT[self.strategy(loss)]}"
-        if self.strategy(loss) != loss.multiclass:
-            text += (f" (the {loss.name} loss is declared {STRATEGY_TEXT[loss.multiclass]}, but this family has "
+        declared = loss.multiclass or ONE_VERSUS_REST     # a loss that declares nothing: one versus the rest
+        if self.strategy(loss) != declared:
+            text += (f" (the {loss.name} loss is declared {STRATEGY_TEXT[declared]}, but this family has "
                      f"no multinomial fitter yet, so each class is fitted against the rest on one shared λ grid)")
         elif self.strategy(loss) == ONE_VERSUS_REST:
             text += " on one shared λ grid"
