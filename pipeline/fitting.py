@@ -13,6 +13,7 @@ import numpy as np
 from .features import FeatureBuilder
 from .losses import get_loss
 from .models.families import get_family
+from .models.multiclass import for_classes, output_scale, path_losses
 
 
 @dataclass(frozen=True)
@@ -25,6 +26,7 @@ class Shared:
     feature_seed: int
     input_names: tuple[str, ...]
     family_options: dict               # family key -> that family's options (Family.options)
+    n_classes: int = 0                 # classification: number of classes (K > 2: targets are codes 0..K−1)
 
 
 @dataclass(frozen=True)
@@ -51,9 +53,11 @@ class FitOutcome:
     family: str
     loss_label: str
     eval_loss: np.ndarray          # (L,) mean held-out loss on the fitting scale
-    eval_pred: np.ndarray          # (L, m) predictions on eval rows, original target scale (decision values)
-    coef: np.ndarray | None        # (L, p_features) on the feature-output scale; None without per-feature weights
-    intercept: np.ndarray          # (L,) matching coef
+    eval_pred: np.ndarray          # (L, m) predictions on eval rows, original target scale (decision values);
+    #                                (L, m, K) for K > 2 classes
+    coef: np.ndarray | None        # (L, p_features) on the feature-output scale; None without per-feature weights;
+    #                                (L, p_features, K) for K > 2 classes
+    intercept: np.ndarray          # (L,) matching coef; (L, K) for K > 2 classes
     n_nonzero: np.ndarray | None   # (L,) families with exact zeros only
     effective_df: np.ndarray       # (L,)
     certificate: np.ndarray | None
@@ -67,6 +71,7 @@ class FitOutcome:
     gcv: np.ndarray | None = None
     df_kind: str = ""                      # what effective_df counts
     note: str = ""                         # how the family fitted the path, when worth saying (low rank)
+    multiclass: str = ""                   # K > 2 classes: how they were fitted (models.multiclass)
 
 
 def build_features(shared: Shared, train_idx):
@@ -91,7 +96,7 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
     y_tr, y_ev = shared.y[task.train_idx], shared.y[task.eval_idx]
     center, scale = target_scaling(shared, y_tr)
     t_tr, t_ev = (y_tr - center) / scale, (y_ev - center) / scale
-    family = get_family(task.family)
+    family = for_classes(get_family(task.family), shared.n_classes)
     start = time.perf_counter()
     options = shared.family_options[task.family]
     if task.selection_only:
@@ -100,13 +105,13 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
     f_ev = family.predict(fit, Z_ev)
     coef, intercept = fit.coef, fit.intercept
     seconds = time.perf_counter() - start
-    eval_loss = np.array([loss.value(t_ev, f).mean() for f in f_ev])
+    eval_loss = path_losses(loss, t_ev, f_ev, fit.multiclass)
     if coef is not None:
-        coef, intercept = builder.to_output_scale(coef * scale, intercept * scale + center)
+        coef, intercept = output_scale(builder, coef * scale, intercept * scale + center)
     return FitOutcome(
         task_id=task.task_id, split=task.split, family=task.family, loss_label=task.loss_label,
         eval_loss=eval_loss, eval_pred=center + scale * f_ev, coef=coef, intercept=np.asarray(intercept),
         n_nonzero=fit.n_nonzero, effective_df=np.asarray(fit.effective_df, float), certificate=fit.certificate,
         certificate_kind=fit.certificate_kind, converged=np.asarray(fit.converged), status=tuple(fit.status),
         solver=fit.solver, fit_seconds=seconds, feature_names=tuple(builder.get_feature_names_out()),
-        loo_error=fit.loo_error, gcv=fit.gcv, df_kind=fit.df_kind, note=fit.note)
+        loo_error=fit.loo_error, gcv=fit.gcv, df_kind=fit.df_kind, note=fit.note, multiclass=fit.multiclass)

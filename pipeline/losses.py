@@ -62,6 +62,9 @@ class Loss:
     cvxpy_solvers: tuple[str, ...] = field(init=False, default=("CLARABEL", "OSQP", "SCS"))
     # sigmoid(f) is the fitted probability of the +1 class (a stored model then also gives probabilities)
     gives_probabilities: bool = field(init=False, default=False)
+    # classification losses: how the loss goes beyond two classes, "multinomial" (one fit of all classes
+    # together, softmax cross-entropy) or "one_versus_rest" (one binary fit per class against the others)
+    multiclass: str = field(init=False, default="")
 
     def value(self, y, f) -> np.ndarray:
         raise NotImplementedError

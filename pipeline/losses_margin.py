@@ -15,6 +15,7 @@ class MarginLoss(Loss):
 
     def __post_init__(self):
         object.__setattr__(self, "task", CLASSIFICATION)
+        object.__setattr__(self, "multiclass", "one_versus_rest")
 
     def _arg(self, y, f):
         return as_float(y) * as_float(f)
@@ -36,6 +37,7 @@ class LogisticLoss(MarginLoss):
         super().__post_init__()
         object.__setattr__(self, "name", "logistic")
         object.__setattr__(self, "gives_probabilities", True)
+        object.__setattr__(self, "multiclass", "multinomial")   # softmax cross-entropy beyond two classes
         object.__setattr__(self, "cvxpy_solvers", ("CLARABEL", "SCS"))
 
     def value(self, y, f):

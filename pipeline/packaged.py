@@ -17,7 +17,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy.special import expit
+from scipy.special import expit, softmax
 from sklearn.base import BaseEstimator
 from threadpoolctl import threadpool_limits
 
@@ -68,12 +68,13 @@ def export_state(result, r) -> tuple[dict[str, np.ndarray], dict]:
     from .fitting import build_features, target_scaling
     from .losses import get_loss
     from .models.families import get_family
+    from .models.multiclass import ClassFits, for_classes
     from .execution import captured_output
     from .runner import shared_inputs
 
     spec, ds = result.spec, result.dataset
     shared = shared_inputs(spec, ds, len(result.train_rows))
-    family = get_family(r.family)
+    family = for_classes(get_family(r.family), ds.n_classes)
     loss = get_loss(r.loss_name, **r.loss_params)
     rows = result.train_rows
     with threadpool_limits(limits=1), captured_output([]):   # solver banners stay off the terminal
@@ -83,19 +84,26 @@ def export_state(result, r) -> tuple[dict[str, np.ndarray], dict]:
                               shared.family_options[family.key])
     arrays = {"X_train": np.asarray(ds.X[rows], float), "lambdas": np.asarray(fit.lambdas, float),
               "intercept": np.asarray(fit.intercept, float)}
-    basis = getattr(fit.model, "basis", None)      # the representer form keeps its basis rows
+    # the representer form keeps its basis rows; K > 2 classes fitted one versus the rest: one path per
+    # class on the same basis, stored with the class axis last
+    per_class = fit.model.fits if isinstance(fit.model, ClassFits) else None
+    basis = getattr(per_class[0].model if per_class else fit.model, "basis", None)
     meta = {"format": FORMAT, "family": family.key, "family_title": family.title, "loss": r.loss_name,
             "loss_label": r.loss_label, "loss_params": dict(r.loss_params), "chosen_index": int(r.chosen_index),
             "lambda_chosen": float(r.lambda_chosen), "center": center, "scale": scale, "task": ds.task,
             "class_labels": list(ds.class_labels) if ds.class_labels else None,
-            "probabilities": bool(loss.gives_probabilities), "feature_names": list(ds.feature_names),
+            # probabilities from K > 2 classes only where they were fitted together (softmax)
+            "probabilities": bool(loss.gives_probabilities) and fit.multiclass in ("", "multinomial"),
+            "feature_names": list(ds.feature_names),
             "target": ds.target_name,
             "inputs": [{"name": c.name, "levels": None if c.levels is None else list(c.levels),
                         "boolean": c.boolean} for c in ds.inputs],
             "maps": [m.model_dump(mode="json") for m in spec.features.maps], "seed": int(spec.seed)}
     if basis is not None:
-        arrays.update(basis=np.asarray(basis, float), dual_coef=np.asarray(fit.model.path.dual_coef, float))
-        meta.update(kernel=fit.model.kernel, kernel_params=dict(fit.model.kernel_params))
+        models = [f.model for f in per_class] if per_class else [fit.model]
+        dual = [np.asarray(m.path.dual_coef, float) for m in models]
+        arrays.update(basis=np.asarray(basis, float), dual_coef=np.stack(dual, axis=-1) if per_class else dual[0])
+        meta.update(kernel=models[0].kernel, kernel_params=dict(models[0].kernel_params))
     else:
         arrays["coef"] = np.asarray(fit.coef, float)
     return arrays, meta
@@ -160,17 +168,32 @@ class PackagedModel(BaseEstimator):
         m, p = self.meta, self.path_
         with threadpool_limits(limits=1):
             Z = self.builder_.transform(np.asarray(X, float))
-            if p.basis is not None:
-                f = representer_predict(p, gram(Z, p.basis, kernel=m["kernel"], **m["kernel_params"]))
+            G = None if p.basis is None else gram(Z, p.basis, kernel=m["kernel"], **m["kernel_params"])
+
+            def one(path):
+                return representer_predict(path, G) if path.basis is not None else linear_predict(path, Z)
+            if np.ndim(p.intercept) == 2:   # K > 2 classes: one path per class, scores (L, m, K)
+                def part(a, k):   # contiguous, as each class's path was when the experiment predicted
+                    return None if a is None else np.ascontiguousarray(a[..., k])
+                f = np.stack([one(StoredPath(p.lambdas, part(p.intercept, k), part(p.coef, k), part(p.dual_coef, k),
+                                             p.basis)) for k in range(p.intercept.shape[1])], axis=-1)
             else:
-                f = linear_predict(p, Z)
+                f = one(p)
             return (m["center"] + m["scale"] * f)[m["chosen_index"]]
 
     def decision_function(self, frame) -> np.ndarray:
         return self.decision_encoded(self.encode(frame))
 
     def _labels(self, f) -> np.ndarray:
+        if np.ndim(f) == 2:   # K > 2 classes: the class of the largest decision value
+            return self.classes_[np.argmax(f, axis=1)].astype(object)
         return np.where(f > 0, self.classes_[1], self.classes_[0]).astype(object)
+
+    def _probabilities(self, f) -> np.ndarray:
+        if np.ndim(f) == 2:
+            return softmax(f, axis=1)
+        p = expit(f)
+        return np.column_stack([1.0 - p, p])
 
     def predict(self, frame) -> np.ndarray:
         f = self.decision_function(frame)
@@ -180,14 +203,21 @@ class PackagedModel(BaseEstimator):
         if not self.meta["probabilities"]:
             raise AttributeError(f"a {self.meta['loss']}-loss model gives no probabilities (its decision values "
                                  f"are margins, not logits)")
-        p = expit(self.decision_function(frame))
-        return np.column_stack([1.0 - p, p])
+        return self._probabilities(self.decision_function(frame))
 
     def table(self, f: np.ndarray) -> pd.DataFrame:
         """Decision values → the output table: `prediction` (regression), or `label`, `decision` and, for
         a loss that gives them, `probability` of the second class (classification)."""
         if not self.meta["class_labels"]:
             return pd.DataFrame({"prediction": f})
+        if np.ndim(f) == 2:   # K > 2 classes: a decision value (and probability) per class
+            out = pd.DataFrame({"label": self._labels(f)})
+            probs = self._probabilities(f) if self.meta["probabilities"] else None
+            for k, label in enumerate(self.classes_):
+                out[f"decision_{label}"] = f[:, k]
+                if probs is not None:
+                    out[f"probability_{label}"] = probs[:, k]
+            return out
         out = pd.DataFrame({"label": self._labels(f), "decision": f})
         if self.meta["probabilities"]:
             out["probability"] = expit(f)

@@ -17,6 +17,7 @@ from .features import output_width
 from .fitting import FitOutcome, FitTask, Shared, build_features, run_fit, target_scaling
 from .losses import get_loss
 from .models.families import FAMILIES, get_family
+from .models.multiclass import for_classes
 from .selection import L2_CRITERIA, choose_lambda_index, cv_summary, nested_estimate
 from .splits import describe_design, plan_resamples, plan_splits, split_rows
 from .stability import stability_losses, stability_stage
@@ -35,7 +36,7 @@ class FamilyResult:
     chosen_index: int
     lambda_chosen: float
     path: FitOutcome               # the full-training-set path
-    test_pred: np.ndarray          # (m,) at the chosen λ
+    test_pred: np.ndarray          # (m,) at the chosen λ; (m, K) decision values for K > 2 classes
     metrics: dict                  # test_* metrics
     intervals: dict                # metric -> (low, high)
     n_nonzero: int | None
@@ -43,7 +44,7 @@ class FamilyResult:
     fit_seconds: float             # path fit on the whole training set
     cv_seconds: float              # all fold fits together
     coefficients: np.ndarray | None  # (p_features,) at the chosen λ, on the feature-output scale
-    intercept: float
+    intercept: float                 # (K,) array for K > 2 classes
     selected_by: str = ""
     nested: dict | None = None       # nested-CV estimate of the select-then-fit procedure
     resamples: tuple = ()            # FitOutcome per resample (stability stage)
@@ -122,7 +123,7 @@ def family_grids(spec, shared, train_rows, losses) -> list[dict]:
         grids = {}
         for f in enabled_families(spec):
             if f.key not in shared_grid:
-                grids[f.key] = f.grid(Z, t, loss, shared.family_options[f.key])
+                grids[f.key] = for_classes(f, shared.n_classes).grid(Z, t, loss, shared.family_options[f.key])
                 if not f.grid_reads_loss:
                     shared_grid[f.key] = grids[f.key]
             else:
@@ -197,7 +198,7 @@ def fit_with_widening(spec, shared, train_rows, splits, run) -> tuple[list, list
             widened[key][END_NAMES.index(end)] += 1
             if problem is None:
                 problem = training_problem(shared, train_rows)
-            fam = get_family(key[1])
+            fam = for_classes(get_family(key[1]), shared.n_classes)
             pending[key] = fam.grid(*problem, loss_of[key[0]], shared.family_options[key[1]],
                                     widen=tuple(widened[key]))
             grids[key] = pending[key]
@@ -234,7 +235,8 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng, decisions=None, scal
         loss = get_loss(final_task.loss_name, **dict(final_task.loss_params))
         pred = final.eval_pred[idx]
         metrics, intervals = test_metrics(shared.task, y_test, pred, loss, rng, level=spec.report.level,
-                                          decision=(decisions or {}).get(label), scale=scale)
+                                          decision=(decisions or {}).get(label), scale=scale,
+                                          strategy=final.multiclass)
         results.append(FamilyResult(
             family=family, loss_label=label, loss_name=final_task.loss_name,
             loss_params=dict(final_task.loss_params), lambdas=final_task.lambdas, cv_errors=cv_errors,
@@ -244,7 +246,8 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng, decisions=None, scal
             effective_df=float(final.effective_df[idx]), fit_seconds=final.fit_seconds,
             cv_seconds=float(sum(o.fit_seconds for o in folds)),
             coefficients=None if final.coef is None else final.coef[idx],
-            intercept=float(final.intercept[idx]), selected_by=how,
+            intercept=final.intercept[idx] if np.ndim(final.intercept) > 1 else float(final.intercept[idx]),
+            selected_by=how,
             nested=nested_estimate({k: o.eval_loss for k, (_, o) in splits.items()}, spec.selection.cv_folds,
                                    spec.selection.rule) if spec.selection.nested else None,
             resamples=tuple(o for k, (_, o) in sorted(splits.items()) if k.startswith("resample")),
@@ -292,7 +295,7 @@ def shared_inputs(spec: ExperimentSpec, dataset: Dataset, n_train: int) -> Share
                   family_options={f.key: f.for_training_rows(f.options(getattr(spec.families, f.key),
                                                                        seeds.int_seed(spec.seed, "landmarks")),
                                                              n_train)
-                                  for f in FAMILIES})
+                                  for f in FAMILIES}, n_classes=dataset.n_classes)
 
 
 @dataclass(frozen=True)

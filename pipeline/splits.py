@@ -25,8 +25,9 @@ def split_rows(spec: ExperimentSpec, dataset: Dataset):
     if len(tr) < spec.selection.cv_folds:
         raise DataError(f"selection.cv_folds: {spec.selection.cv_folds} folds need at least that many training "
                         f"rows, but only {len(tr)} remain after holding out {len(te)} test rows of {n}.")
-    if classify and np.min([np.sum(dataset.y[tr] > 0), np.sum(dataset.y[tr] < 0)]) < spec.selection.cv_folds:
-        raise DataError(f"selection.cv_folds: the smaller class has fewer training rows than the "
+    classes = np.unique(dataset.y) if classify else ()
+    if classify and min(np.sum(dataset.y[tr] == c) for c in classes) < spec.selection.cv_folds:
+        raise DataError(f"selection.cv_folds: the {'smaller' if len(classes) == 2 else 'smallest'} class has fewer training rows than the "
                         f"{spec.selection.cv_folds} folds; use fewer folds or more data.")
     return tr, te
 

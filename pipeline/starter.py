@@ -6,6 +6,7 @@ import os
 import pathlib
 import re
 
+import numpy as np
 import pandas as pd
 import yaml
 
@@ -38,7 +39,7 @@ def experiment_name(path: pathlib.Path) -> str:
 
 def cv_folds(y, task: str, n_train: int) -> int:
     """Five folds unless the training rows (or the smaller class) are too few for them."""
-    smallest = n_train if task == "regression" else int(min((y > 0).sum(), (y < 0).sum()) * 0.75)
+    smallest = n_train if task == "regression" else int(min(np.unique(y, return_counts=True)[1]) * 0.75)
     return max(2, min(5, smallest // 2))
 
 
@@ -64,7 +65,12 @@ def starter_text(data: pathlib.Path, target: str, config_dir: pathlib.Path) -> s
     folds = cv_folds(ds.y, task, n_train)
     rel = os.path.relpath(data.resolve(), config_dir.resolve())
     losses = f"losses: [{', '.join(STARTER_LOSSES[task])}]   # also: {other_losses(task)}, or fewer to run faster\n"
-    if ds.class_labels is not None:
+    if ds.class_labels is not None and len(ds.class_labels) > 2:
+        from .losses import get_loss
+        from .models.multiclass import STRATEGY_TEXT
+        ways = ", ".join(f"{name} {STRATEGY_TEXT[get_loss(name).multiclass]}" for name in STARTER_LOSSES[task])
+        losses += f"# {len(ds.class_labels)} classes ({', '.join(map(_q, ds.class_labels))}); declared fits: {ways}\n"
+    elif ds.class_labels is not None:
         losses += f"# classes: {_q(ds.class_labels[0])} is coded -1, {_q(ds.class_labels[1])} is +1\n"
     text = (
         f"# Starter experiment for {_q(data.name)}: {ds.n_samples} rows, {ds.n_features} feature column(s) after\n"

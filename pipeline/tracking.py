@@ -68,6 +68,13 @@ def _finite(x) -> bool:
 def predictions_frame(result, r) -> pd.DataFrame:
     """Held-out rows; `row` is the row's position in the input data. Classification labels are
     mapped back to the data's own labels, with the decision value beside them."""
+    if np.ndim(r.test_pred) == 2:   # K > 2 classes: codes 0..K−1, the predicted class is the argmax
+        labels = np.asarray(result.dataset.class_labels, dtype=object)
+        frame = pd.DataFrame({"row": result.test_rows, "y_true": labels[result.y_test.astype(int)],
+                              "y_pred": labels[np.argmax(r.test_pred, axis=1)]})
+        for k, label in enumerate(labels):
+            frame[f"decision_{label}"] = r.test_pred[:, k]
+        return frame
     if result.dataset.task == "classification":
         neg, pos = result.dataset.class_labels or ("-1", "+1")
         to_label = np.vectorize(lambda v: pos if v > 0 else neg)
@@ -278,7 +285,11 @@ class ExecutionLog:
         metrics += stability_metrics
         for start in range(0, len(metrics), 900):   # mlflow caps a batch at 1000 entries
             c.log_batch(rid, metrics=metrics[start:start + 900], params=params if start == 0 else [])
-        if r.coefficients is not None:
+        if r.coefficients is not None and np.ndim(r.coefficients) == 2:   # one column per class
+            files["coefficients.csv"] = pd.DataFrame(
+                {"feature": list(result.feature_names),
+                 **{f"coefficient_{label}": r.coefficients[:, k] for k, label in enumerate(result.dataset.class_labels)}})
+        elif r.coefficients is not None:
             files["coefficients.csv"] = pd.DataFrame({"feature": list(result.feature_names),
                                                       "coefficient": r.coefficients})
         files["predictions.csv"] = predictions_frame(result, r)

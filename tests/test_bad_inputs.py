@@ -82,8 +82,6 @@ CASES = {
                               ["selection.cv_folds", "3 folds", "only 2 remain"]),
     "one class only": ({"data.csv": _csv(_frame(y="yes"))}, _file_config(losses="[logistic]"),
                        ["exactly two classes", "has 1 ('yes')"]),
-    "three classes": ({"data.csv": _csv(_frame(y=["a", "b", "c"] * 10))}, _file_config(losses="[hinge]"),
-                      ["exactly two classes", "has 3"]),
     "regression loss on string labels": ({"data.csv": _csv(_frame(y=["cat", "dog"] * 15))}, _file_config(),
                                          ["numeric target", "'cat' at data row 1", "classification loss"]),
     "zero lambda ratio": ({}, "name: bad\n" + SCENARIO + SMALL.replace("l1: {path: {points: 4}}", "l1: {path: {smallest_share: 0}}"),

@@ -52,7 +52,6 @@ def test_starter_for_parquet_classification_names_the_class_coding():
 
 @pytest.mark.parametrize("args, needle", [
     (["--target", "yeild"], "Did you mean 'yield'"),
-    (["--target", "site"], "exactly two classes"),
 ])
 def test_init_mistakes_exit_2(args, needle):
     cwd = scratch_dir("penduel-init-")

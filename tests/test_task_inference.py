@@ -1,4 +1,5 @@
-"""data.task: declared, or inferred with care (auto); `init` writes the choice; more than two classes refused."""
+"""data.task: declared, or inferred with care (auto); `init` writes the choice (four codes run
+as four classes: tests/test_multiclass_cli.py)."""
 from __future__ import annotations
 
 import numpy as np
@@ -53,17 +54,6 @@ def test_declared_regression_runs_the_codes_as_a_quantity(tmp_path):
     code, out, err = penduel(["run", "c.yaml", "--quiet"], tmp_path)
     assert code == 0, err
     assert "report: " in out
-
-
-def test_four_class_codes_are_classification_and_multiclass_is_refused_in_one_paragraph(tmp_path):
-    _frame().to_csv(tmp_path / "d.csv", index=False)
-    (tmp_path / "c.yaml").write_text("name: codes\ndata: {kind: csv, path: d.csv, target: grade}\n"
-                                     "losses: [logistic]\n" + SMALL)
-    for args in (["run", "c.yaml", "--quiet"], ["init", "--data", "d.csv", "--target", "grade"]):
-        code, _, err = penduel(args, tmp_path)
-        assert code == 2 and "Traceback" not in err, err
-        assert "Multi-class classification is not supported yet" in err and "has 4" in err
-        assert err.strip().count("\n\n") == 0
 
 
 def test_declared_task_must_match_the_losses(tmp_path):

@@ -44,12 +44,12 @@ class InputColumn:
 @dataclass(frozen=True)
 class Dataset:
     X: np.ndarray                       # (n, p) float64
-    y: np.ndarray                       # (n,) float64; classification targets are −1/+1
+    y: np.ndarray                       # (n,) float64; two classes are −1/+1, K > 2 classes codes 0..K−1
     feature_names: tuple[str, ...]
     target_name: str
     task: str                           # "regression" | "classification"
     source: str                         # human description of where the rows came from
-    class_labels: tuple[str, str] | None = None   # original labels for −1 and +1
+    class_labels: tuple[str, ...] | None = None   # original labels for −1 and +1 (or for codes 0..K−1)
     truth: Truth | None = None
     notes: tuple[str, ...] = field(default_factory=tuple)  # what loading changed (dropped columns, encodings)
     design: RowDesign | None = None     # groups / order / fixed test rows named in the split section
@@ -62,6 +62,11 @@ class Dataset:
     @property
     def n_features(self) -> int:
         return self.X.shape[1]
+
+    @property
+    def n_classes(self) -> int:
+        """Number of classes (0 for regression)."""
+        return len(self.class_labels or ("-1", "+1")) if self.task == "classification" else 0
 
     def content_hash(self) -> str:
         h = hashlib.sha256()
@@ -85,7 +90,10 @@ class Dataset:
         }
         if self.task == "classification":
             labels = self.class_labels or ("-1", "+1")
-            out["class_counts"] = {labels[0]: int((y < 0).sum()), labels[1]: int((y > 0).sum())}
+            if len(labels) > 2:
+                out["class_counts"] = {label: int((y == k).sum()) for k, label in enumerate(labels)}
+            else:
+                out["class_counts"] = {labels[0]: int((y < 0).sum()), labels[1]: int((y > 0).sum())}
         else:
             out.update(target_mean=float(y.mean()), target_sd=float(y.std(ddof=1)),
                        target_min=float(y.min()), target_max=float(y.max()))

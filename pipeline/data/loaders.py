@@ -176,17 +176,23 @@ def _target(y_raw: pd.Series, target: str, task: str, source: str):
         raise DataError(f"data.target: column '{target}' has {int(missing.sum())} missing value(s) in "
                         f"{source}, first at data row {row + 1}; remove or fill those rows.")
     if task == "classification":
+        values = y_raw.tolist()
+        numeric = pd.api.types.is_numeric_dtype(y_raw) and not pd.api.types.is_bool_dtype(y_raw)
         classes = sorted(pd.unique(y_raw).tolist(), key=str)
-        if len(classes) != 2:
-            shown = ", ".join(class_text(c) for c in classes[:6]) + (" ..." if len(classes) > 6 else "")
-            more = ("Multi-class classification is not supported yet: " if len(classes) > 2 else "")
-            raise DataError(f"data.target: {more}classification losses need exactly two classes, but column "
-                            f"'{target}' has {len(classes)} ({shown}). "
-                            + ("Merge classes into two (e.g. one class against the rest) in the file, or, if "
-                               "the values are a quantity, set data.task: regression and list regression losses."
-                               if len(classes) > 2 else "Both classes must be present."))
-        y = np.where(y_raw.to_numpy() == classes[1], 1.0, -1.0)
-        return y, (str(classes[0]), str(classes[1]))
+        if len(classes) < 2:
+            raise DataError(f"data.target: classification losses need at least two classes (exactly two classes "
+                            f"for a yes/no fit, more for a multi-class one), but column '{target}' has "
+                            f"{len(classes)} ({', '.join(class_text(c) for c in classes)}). Both classes of a "
+                            f"yes/no target must be present.")
+        if len(classes) == 2:
+            y = np.where(y_raw.to_numpy() == classes[1], 1.0, -1.0)
+            return y, (str(classes[0]), str(classes[1]))
+        # more than two classes: codes 0..K−1 in the order of the labels (numbers by value, text as text)
+        if numeric:
+            classes = sorted(classes)
+        code = {c: k for k, c in enumerate(classes)}
+        y = np.array([code[v] for v in values], dtype=float)
+        return y, tuple(class_text(c) if numeric else str(c) for c in classes)
     values = pd.to_numeric(y_raw, errors="coerce")
     bad = values.isna().to_numpy()
     if bad.any():

@@ -35,6 +35,8 @@ INTERVAL_SOURCES = {
     "wilson": "Wilson score interval (Wilson 1927)",
     "mover_wilson": "per-class Wilson intervals combined by the MOVER rule (Zou & Donner 2008)",
     "newcombe_auc": "score interval on the Hanley–McNeil variance (Newcombe 2006, method 5)",
+    "mover_wilson_classes": "per-class Wilson intervals of the recalls of every class combined by the MOVER "
+                            "rule (Zou & Donner 2008)",
 }
 
 
@@ -115,6 +117,17 @@ def balanced_interval(hits, y, level: float) -> tuple[float, float]:
     return low / len(parts), high / len(parts)
 
 
+def classes_balanced_interval(hits, y, level: float) -> tuple[float, float]:
+    """Balanced accuracy of K classes (codes 0..K−1): the Wilson interval of each class's recall (independent
+    binomial proportions), combined by MOVER for their sum and divided by the number of classes present."""
+    y = np.asarray(y).astype(int)
+    parts = [(hits[y == k].mean(), *wilson(hits[y == k].sum(), int((y == k).sum()), level))
+             for k in np.unique(y)]
+    est, lows, highs = zip(*parts)
+    low, high = mover_sum(est, lows, highs)
+    return max(0.0, low / len(parts)), min(1.0, high / len(parts))
+
+
 def _correlation(hits_a, hits_b) -> float:
     if np.ptp(hits_a) == 0 or np.ptp(hits_b) == 0:
         return 0.0
@@ -129,6 +142,8 @@ def bounded_interval(kind: str, y, pred, level: float, *, estimate: float, hits=
         return auc_interval(estimate, n_pos, n_neg, level)
     if kind == "mover_wilson":
         return balanced_interval(hits, y, level)
+    if kind == "mover_wilson_classes":
+        return classes_balanced_interval(hits, y, level)
     if kind == "wilson":   # the estimate is a proportion of rows: hits/n, or its complement
         return wilson(estimate * len(y), len(y), level)
     raise ValueError(f"unknown interval kind {kind!r}; allowed: {', '.join(INTERVAL_SOURCES)}")

@@ -11,7 +11,7 @@ import warnings
 import numpy as np
 from scipy import stats
 
-from .metrics import Metric, as_metric
+from .metrics import Metric, as_metric, classes_form
 
 
 # Resamples are evaluated in blocks of at most this many (row, resample) cells,
@@ -99,15 +99,17 @@ def _check_inputs(y, preds, level, n_boot, method="percentile"):
     y = np.asarray(y)
     preds = [np.asarray(p) for p in preds]
     for p in preds:
-        if p.shape != y.shape or y.ndim != 1:
-            raise ValueError(f"y and predictions must be 1-D of equal length; got {y.shape} and {p.shape}")
+        # one decision value per row, or (K > 2 classes) one row of K class scores
+        if y.ndim != 1 or p.shape[:1] != y.shape or p.ndim > 2:
+            raise ValueError(f"y and predictions must be 1-D of equal length (or predictions (n, K) for K "
+                             f"classes); got {y.shape} and {p.shape}")
     return y, preds
 
 
 def bootstrap_draws(metrics, y, preds, n_boot, level, rng, method):
     """Checked inputs, resampled values and (for BCa) leave-one-out values."""
-    metrics = [as_metric(m) for m in metrics]
     y, preds = _check_inputs(y, preds, level, n_boot, method)
+    metrics = [classes_form(as_metric(m), preds[0]) for m in metrics]
     values = _resampled_values(metrics, y, preds, n_boot, rng)
     jack = _jackknife_values(metrics, y, preds) if method == "bca" else np.full(values.shape[:2] + (0,), 0.0)
     return metrics, y, preds, values, jack

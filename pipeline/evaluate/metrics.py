@@ -10,7 +10,8 @@ Classification: labels are in {-1, +1}, `pred` is the real-valued decision f(x).
 The predicted label is +1 where f(x) > 0 (scikit-learn's convention for decision
 functions). Log-loss and Brier score use the probability sigmoid(f(x)) — exact for
 the logistic loss, a stated convention for the hinge losses, whose margins are not
-calibrated probabilities.
+calibrated probabilities. With K > 2 classes each classification metric has a K-class
+form (`Metric.classes`, `classes_form`; formulas and conventions in `classes.py`).
 """
 from __future__ import annotations
 
@@ -21,6 +22,8 @@ from typing import Callable
 import numpy as np
 from scipy.special import expit
 from sklearn import metrics as skm
+
+from . import classes as cls
 
 
 @dataclass(frozen=True)
@@ -46,6 +49,8 @@ class Metric:
     hits: Callable[[np.ndarray, np.ndarray], np.ndarray] | None = field(default=None, repr=False, compare=False)
     # computed only when a loss is judged by it or the config names it (not in every metrics table)
     on_demand: bool = False
+    # classification: the same score for K > 2 classes (codes 0..K−1, decision values (m, K)); see classes.py
+    classes: "Metric | None" = field(default=None, repr=False, compare=False)
 
     @property
     def higher_is_better(self) -> bool:
@@ -197,16 +202,28 @@ METRICS: dict[str, Metric] = {m.name: m for m in (
     Metric("r2", _REG, False, skm.r2_score, _r2_resampled, title="R²"),
     _huber_metric(1.0),
     Metric("accuracy", _CLS, False, lambda y, f: skm.accuracy_score(y, _labels(f)), _mean_of(_hits),
-           title="accuracy", interval="wilson", hits=_hits),
+           title="accuracy", interval="wilson", hits=_hits,
+           classes=Metric("accuracy", _CLS, False, cls.accuracy, _mean_of(cls.hits), title="accuracy",
+                          interval="wilson", hits=cls.hits)),
     Metric("misclassification", _CLS, True, lambda y, f: 1.0 - skm.accuracy_score(y, _labels(f)),
-           _mean_of(_misses), title="misclassification rate", interval="wilson", hits=_hits),
+           _mean_of(_misses), title="misclassification rate", interval="wilson", hits=_hits,
+           classes=Metric("misclassification", _CLS, True, lambda y, f: 1.0 - cls.accuracy(y, f),
+                          _mean_of(cls.misses), title="misclassification rate", interval="wilson", hits=cls.hits)),
     Metric("balanced_accuracy", _CLS, False, lambda y, f: skm.balanced_accuracy_score(y, _labels(f)),
-           _balanced_accuracy_resampled, title="balanced accuracy", interval="mover_wilson", hits=_hits),
-    Metric("roc_auc", _CLS, False, _roc_auc_single, _roc_auc_resampled, title="ROC AUC", interval="newcombe_auc"),
+           _balanced_accuracy_resampled, title="balanced accuracy", interval="mover_wilson", hits=_hits,
+           classes=Metric("balanced_accuracy", _CLS, False, cls.balanced_accuracy, cls.balanced_accuracy_resampled,
+                          title="balanced accuracy", interval="mover_wilson_classes", hits=cls.hits)),
+    Metric("roc_auc", _CLS, False, _roc_auc_single, _roc_auc_resampled, title="ROC AUC", interval="newcombe_auc",
+           classes=Metric("roc_auc", _CLS, False, cls.macro_auc, cls.macro_auc_resampled(_roc_auc_resampled),
+                          title="ROC AUC (macro one-versus-rest)")),
     Metric("log_loss", _CLS, True, lambda y, f: skm.log_loss(y, expit(f), labels=[-1, 1]),
-           _mean_of(_log_loss_pointwise), title="log-loss"),
+           _mean_of(_log_loss_pointwise), title="log-loss",
+           classes=Metric("log_loss", _CLS, True, cls.log_loss, _mean_of(cls.log_loss_pointwise),
+                          title="log-loss (softmax of the class scores)")),
     Metric("brier", _CLS, True, lambda y, f: skm.brier_score_loss(y, expit(f), pos_label=1),
-           _mean_of(_brier_pointwise), title="Brier score"),
+           _mean_of(_brier_pointwise), title="Brier score",
+           classes=Metric("brier", _CLS, True, cls.brier, _mean_of(cls.brier_pointwise),
+                          title="Brier score (sum over classes)")),
 )}
 
 # The decision metric per task: verdicts, the summary table and cross-execution comparisons use it.
@@ -266,6 +283,24 @@ def classification_metrics(y, decision) -> dict[str, float]:
     if not np.isin(y, (-1, 1)).all():
         raise ValueError("classification labels must be -1 or +1 (map them before evaluating)")
     return {name: METRICS[name](y, decision) for name in CLASSIFICATION_METRICS}
+
+
+def classes_form(metric: Metric, pred) -> Metric:
+    """The metric for these decision values: itself for one column per row, its K-class form for (m, K)
+    (a metric without one, such as a K-class form itself or a loss metric, is taken to read (m, K))."""
+    if np.ndim(pred) < 2 or metric.classes is None:
+        return metric
+    return metric.classes
+
+
+def classes_loss_metric(loss, strategy: str) -> Metric:
+    """Mean held-out value of a loss on K > 2 classes, as the fit used it (models.multiclass.row_losses)."""
+    from ..models.multiclass import row_losses
+
+    def pointwise(y, F):
+        return row_losses(loss, y, F, strategy)
+    return Metric(f"{loss.name}_loss", getattr(loss, "task", "any"), True, lambda y, F: float(np.mean(pointwise(y, F))),
+                  _mean_of(pointwise))
 
 
 def as_metric(metric) -> Metric:

@@ -11,13 +11,15 @@ from __future__ import annotations
 import warnings
 from dataclasses import dataclass, field
 
+import numpy as np
+
 from .. import seeds
 from ..models.families import compared_pair
 from .bounded import bounded_interval
 from .comparisons import compare_pair, corrected_resampled_ttest
 from .decision import Decision, decide, reconcile
 from .intervals import bootstrap_metrics
-from .metrics import PRIMARY, bound_metric, loss_metric, primary_metric, task_metrics
+from .metrics import PRIMARY, bound_metric, classes_form, classes_loss_metric, loss_metric, primary_metric, task_metrics
 from .truth import truth_scores
 
 N_BOOT = 1000       # resamples of the test rows, for metric intervals and the paired verdict
@@ -41,16 +43,17 @@ def _with_bounded_interval(m, y, pred, est, boot_interval, level):
 
 
 def test_metrics(task: str, y, pred, loss, rng, *, level: float, decision: Decision | None = None,
-                 scale: float = 1.0) -> tuple[dict, dict]:
+                 scale: float = 1.0, strategy: str = "") -> tuple[dict, dict]:
     """Held-out metrics at the chosen λ, each with an interval at `level`: a seeded bootstrap over the
     test rows for means of per-row losses (all from the same resampled rows), a bounded interval for
     proportions and AUC (`bounded`). The decision's metrics are included (pinball at τ, Huber at δ);
-    classification adds the loss's own mean held-out value."""
+    classification adds the loss's own mean held-out value. With K > 2 classes `pred` is (m, K) and each
+    metric is its K-class form; `strategy` says how the classes were fitted (models.multiclass)."""
     names = list(task_metrics(task))
     names += [n for n in (decision.names if decision else ()) if n not in names]
-    wanted = [bound_metric(name, loss, scale) for name in names]
+    wanted = [classes_form(bound_metric(name, loss, scale), pred) for name in names]
     if task == "classification":  # regression losses are read on the fitting scale, see FitOutcome.eval_loss
-        wanted.append(loss_metric(loss))
+        wanted.append(loss_metric(loss) if np.ndim(pred) < 2 else classes_loss_metric(loss, strategy))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)  # resamples where a metric is undefined are dropped
         boot = bootstrap_metrics(y, pred, wanted, n_boot=N_BOOT, level=level, rng=rng)

@@ -43,6 +43,7 @@ class PathFit:
     gcv: np.ndarray | None = None
     note: str = ""                   # how the path was fitted when that is worth saying (e.g. low rank)
     model: Any = None                # the family's own path object, read back by predict
+    multiclass: str = ""             # K > 2 classes: "one_versus_rest" or "multinomial" (models.multiclass)
 
 
 class Family:
@@ -60,6 +61,10 @@ class Family:
     tracked_settings: tuple   # config fields of its section logged as parameters of every fit
     grid_reads_loss: bool     # the λ grid depends on the loss (else one grid serves every loss)
     closed_ends: tuple = ()   # grid ends ("largest", "smallest") beyond which every fit is the same
+    # K > 2 classes (pipeline.models.multiclass): a family that fits a loss declared "multinomial"
+    # (Loss.multiclass) in one piece sets this and implements the three multinomial_* methods below;
+    # without them every class is fitted one versus the rest
+    fits_multinomial: bool = False
 
     def gram_mib(self, n_rows: int, options: dict | None = None) -> float:
         """Memory (MiB) of the kernel matrices a fit on n_rows training rows holds; 0 without any."""
@@ -107,4 +112,18 @@ class Family:
 
     def predict(self, fit: PathFit, Z) -> np.ndarray:
         """Decision values (L, m) of the fitted path on the rows Z (built like the training ones)."""
+        raise NotImplementedError
+
+    # ------------------------------------------------ K > 2 classes in one fit (see fits_multinomial)
+    def multinomial_grid(self, Z, codes, n_classes: int, loss: Loss, options: dict, widen=(0, 0)) -> np.ndarray:
+        """Decreasing λ grid of a multinomial fit of class codes 0..K−1."""
+        raise NotImplementedError
+
+    def fit_multinomial(self, Z, codes, n_classes: int, loss: Loss, lambdas, options: dict) -> PathFit:
+        """A multinomial path packed as PathFit: coef (L, p, K) or None, intercept (L, K), n_nonzero (L,)
+        nonzero in any class, certificate (L,)."""
+        raise NotImplementedError
+
+    def predict_multinomial(self, fit: PathFit, Z) -> np.ndarray:
+        """Decision values (L, m, K) of a multinomial path."""
         raise NotImplementedError

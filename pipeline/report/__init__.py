@@ -83,8 +83,17 @@ def _loss_blocks(p) -> list[dict]:
             "truth_rows": [_truth_row(f) for f in fams if f.get("truth")],
             "certificates": [_certificate_row(f) for f in fams if f.get("certificate")],
             "stability": _stability_block(p.get("stability", {}).get(label)),
-            "df_kinds": [(f["title"], f["df_kind"]) for f in fams if f.get("df_kind")]})
+            "df_kinds": [(f["title"], f["df_kind"]) for f in fams if f.get("df_kind")],
+            "confusions": [_confusion(f, p.get("class_labels") or []) for f in fams if f.get("confusion")],
+            "several_classes": p.get("several_classes", "")})
     return blocks
+
+
+def _confusion(f, labels) -> dict:
+    """A family's confusion matrix of the test rows (K > 2 classes): rows true class, columns predicted."""
+    from ..models.multiclass import STRATEGY_TEXT
+    return {"family": f["title"], "labels": labels, "how": STRATEGY_TEXT.get(f.get("multiclass"), ""),
+            "rows": [(label, counts) for label, counts in zip(labels, f["confusion"])]}
 
 
 def _truth_row(f) -> dict:

@@ -11,7 +11,9 @@ import math
 import numpy as np
 
 from ..evaluate import INTERVAL_SOURCES, N_BOOT
+from ..evaluate.classes import PROBABILITY_SENTENCE, confusion
 from ..models.families import get_family
+from ..models.multiclass import SELECTED_SENTENCE, selection_weights
 
 PAYLOAD_VERSION = 2     # 2: differences are the sparse family's advantage; per-loss decision metrics
 PATH_COLUMNS = 300          # coefficient-path columns kept for the plot (in order of entry)
@@ -71,13 +73,18 @@ def _family(result, r) -> dict:
         "cv_chosen": _num(r.cv_mean[r.chosen_index]), "cv_chosen_se": _num(r.cv_se[r.chosen_index]),
         "grid_end": r.grid_end, "grid_widened": list(r.grid_widened),   # grid_end: "largest" / "smallest"
     }
+    # with K > 2 classes the weights of a feature are read as their norm across the classes
     if get_family(r.family).has_support and r.path.coef is not None:
-        out["coef_path"] = _path_columns(r.path.coef, result.feature_names)
+        out["coef_path"] = _path_columns(selection_weights(r.path.coef), result.feature_names)
     if r.coefficients is not None:
-        order = np.argsort(-np.abs(r.coefficients), kind="stable")[:15]
-        out["top_features"] = [[str(result.feature_names[j]), float(r.coefficients[j])] for j in order
-                               if r.coefficients[j] != 0]
+        weights = selection_weights(r.coefficients, path=False)
+        order = np.argsort(-np.abs(weights), kind="stable")[:15]
+        out["top_features"] = [[str(result.feature_names[j]), float(weights[j])] for j in order
+                               if weights[j] != 0]
         out["truth"] = _clean(result.evaluation.truth.get((r.loss_label, r.family)))
+    if np.ndim(r.test_pred) == 2:   # K > 2 classes: the confusion matrix of the test rows
+        out["confusion"] = confusion(result.y_test, r.test_pred, r.test_pred.shape[1]).tolist()
+        out["multiclass"] = r.path.multiclass
     return out
 
 
@@ -101,6 +108,8 @@ def build_payload(result) -> dict:
         "rule": spec.selection.rule, "n_folds": spec.selection.cv_folds, "n_boot": N_BOOT,
         "n_rows": result.dataset.n_samples, "n_train": len(result.train_rows), "n_test": len(result.test_rows),
         "dataset": result.dataset.summary(), "notes": list(result.notes),
+        "class_labels": list(result.dataset.class_labels or ()),
+        "several_classes": f"{SELECTED_SENTENCE} {PROBABILITY_SENTENCE}" if result.dataset.n_classes > 2 else "",
         "design": getattr(result, "design", ""),
         "feature_maps": [m.kind for m in spec.features.maps], "n_features_built": len(result.feature_names),
         "families": [_family(result, r) for r in result.results],

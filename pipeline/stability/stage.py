@@ -7,12 +7,14 @@ on rows no fit saw. The summary reads the fits at each family's chosen λ.
 """
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from .. import seeds
 from ..models.families import FAMILIES
+from ..models.multiclass import SELECTED_SENTENCE, selection_weights
 from .bounds import bound_for, ss_unimodal_bound
 from .measures import (compare_families, correlated_groups_sharing, family_stability,
                        lambda_range_for_error_bound, prediction_instability, selection_probabilities)
@@ -78,12 +80,26 @@ def stability_stage(spec, results, feature_names, train_features) -> StabilityRe
         if Z_train is None:
             Z_train = train_features()
         found: dict = {}
-        summaries[label] = summarise_families(spec, {f: list(r.resamples) for f, r in d.items()},
+        several = any(o.multiclass for r in d.values() for o in r.resamples)
+        summaries[label] = summarise_families(spec, {f: [_per_feature(o) for o in r.resamples] for f, r in d.items()},
                                               {f: r.lambdas for f, r in d.items()},
                                               {f: r.chosen_index for f, r in d.items()}, feature_names, Z_train,
                                               paths_out=found, gaps=gaps)
+        if several:   # weights of several classes: norms across the classes, which carry no sign
+            summaries[label]["several_classes"] = SELECTED_SENTENCE
+            for row in summaries[label]["families"].values():
+                if "sign_agreement" in row:
+                    row["sign_agreement"] = None
         paths.update({(label, f): p for f, p in found.items()})
     return StabilityResult(summaries, paths)
+
+
+def _per_feature(outcome):
+    """A resample fit with one weight per feature: with K > 2 classes the norm across the classes
+    (nonzero where any class uses the feature; the top-k set ranks by it), see models.multiclass."""
+    if outcome.coef is None or np.ndim(outcome.coef) < 3:
+        return outcome
+    return dataclasses.replace(outcome, coef=selection_weights(outcome.coef))
 
 
 def _error_control(st, paths, lambdas, feature_names) -> dict:
