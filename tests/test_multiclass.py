@@ -81,7 +81,7 @@ def test_two_classes_keep_the_family_itself():
     assert isinstance(for_classes(SPARSE, 3), SeveralClasses) and for_classes(SPARSE, 3).title == SPARSE.title
 
 
-@pytest.mark.parametrize("loss_name", ["hinge", "logistic"])
+@pytest.mark.parametrize("loss_name", ["hinge", "squared_hinge"])
 def test_one_versus_rest_is_the_binary_fit_of_every_class_on_one_shared_grid(loss_name):
     Z, codes = _blobs()
     loss = get_loss(loss_name)
@@ -99,8 +99,29 @@ def test_one_versus_rest_is_the_binary_fit_of_every_class_on_one_shared_grid(los
         assert np.array_equal(fit.coef[..., k], alone.coef) and np.array_equal(fit.intercept[:, k], alone.intercept)
         assert np.array_equal(F[..., k], SPARSE.predict(alone, Z))
     assert "one versus the rest" in fit.note
-    if loss.multiclass == MULTINOMIAL:    # no multinomial fitter wired in yet: the note says so
-        assert "no multinomial fitter yet" in fit.note
+
+
+def test_logistic_is_fitted_multinomially_by_both_families_with_a_certificate_for_the_sparse_one():
+    Z, codes = _blobs()
+    logistic = get_loss("logistic")
+    opts = {"tol": 1e-8, "solver": "auto", "alpha": 1.0, "n_lambdas": 5, "lambda_ratio": 0.1}
+    sparse = for_classes(SPARSE, 3)
+    fit = sparse.fit_path(Z, codes, logistic, sparse.grid(Z, codes, logistic, opts), opts)
+    assert fit.multiclass == MULTINOMIAL and "fitted multinomial (softmax)" in fit.note
+    assert fit.coef.shape == (5, Z.shape[1], 3) and fit.n_nonzero[0] == 0 and fit.n_nonzero[-1] > 0
+    assert fit.converged.all() and np.all(fit.certificate <= 1e-8)
+    assert sparse.predict(fit, Z).shape == (5, len(codes), 3)
+    ridge_opts = RIDGE.options(L2Spec(path={"points": 4}))
+    ridge = for_classes(RIDGE, 3)
+    fit = ridge.fit_path(Z, codes, logistic, ridge.grid(Z, codes, logistic, ridge_opts), ridge_opts)
+    assert fit.multiclass == MULTINOMIAL and fit.coef.shape == (4, Z.shape[1], 3) and fit.converged.all()
+    # the linear kernel's weights reproduce the representer scores
+    F = ridge.predict(fit, Z)
+    assert np.allclose(F, np.einsum("mp,lpk->lmk", Z, fit.coef) + fit.intercept[:, None, :])
+    # the low-rank route has no multinomial fitter: one versus the rest, and the note says so
+    low = {**ridge_opts, "low_rank": True, "n_landmarks": 10}
+    fit = ridge.fit_path(Z, codes, logistic, ridge.grid(Z, codes, logistic, low), low)
+    assert fit.multiclass == ONE_VERSUS_REST and "has no multinomial fitter" in fit.note
 
 
 def test_ridge_family_grid_does_not_read_the_classes():

@@ -90,5 +90,5 @@ def test_four_classes_every_classification_loss_with_stability():
     assert set(losses) >= {"logistic", "hinge", "squared_hinge"}
     cwd, out, html = _init_then_run(losses, {"n_resamples": 4})
     _check(cwd, out, html, losses)
-    assert "classes fitted multinomial" not in html     # until a family's multinomial fitter is wired in
-    assert "no multinomial fitter yet" in html
+    # logistic: one softmax fit per family; the hinge losses one versus the rest
+    assert "classes fitted multinomial (softmax)" in html and "has no multinomial fitter" not in html

@@ -115,6 +115,10 @@ class Family:
         raise NotImplementedError
 
     # ------------------------------------------------ K > 2 classes in one fit (see fits_multinomial)
+    def takes_multinomial(self, options: dict, n_rows: int) -> bool:
+        """Whether the multinomial fitter serves these options on n_rows training rows (else one versus rest)."""
+        return True
+
     def multinomial_grid(self, Z, codes, n_classes: int, loss: Loss, options: dict, widen=(0, 0)) -> np.ndarray:
         """Decreasing λ grid of a multinomial fit of class codes 0..K−1."""
         raise NotImplementedError

@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import dataclasses
 from dataclasses import dataclass
+from types import SimpleNamespace
 
 import numpy as np
 from scipy.special import logsumexp
@@ -104,24 +105,28 @@ class SeveralClasses:
     def __getattr__(self, name):
         return getattr(self.family, name)
 
-    def strategy(self, loss) -> str:
-        """How this family fits `loss` on several classes: the loss's declared way where the family can."""
-        if loss.multiclass == MULTINOMIAL and getattr(self.family, "fits_multinomial", False):
+    def strategy(self, loss, options: dict | None = None, n_rows: int = 0) -> str:
+        """How this family fits `loss` on several classes: the loss's declared way where the family can
+        (on these options and training rows, when given)."""
+        if loss.multiclass == MULTINOMIAL and self.family.fits_multinomial and (
+                options is None or self.family.takes_multinomial(options, n_rows)):
             return MULTINOMIAL
         return ONE_VERSUS_REST
 
-    def note(self, loss) -> str:
-        text = f"{self.n_classes} classes fitted {STRATEGY_TEXT[self.strategy(loss)]}"
+    def note(self, loss, options: dict | None = None, n_rows: int = 0) -> str:
+        way = self.strategy(loss, options, n_rows)
+        text = f"{self.n_classes} classes fitted {STRATEGY_TEXT[way]}"
         declared = loss.multiclass or ONE_VERSUS_REST     # a loss that declares nothing: one versus the rest
-        if self.strategy(loss) != declared:
-            text += (f" (the {loss.name} loss is declared {STRATEGY_TEXT[declared]}, but this family has "
-                     f"no multinomial fitter yet, so each class is fitted against the rest on one shared λ grid)")
-        elif self.strategy(loss) == ONE_VERSUS_REST:
+        if way != declared:
+            text += (f" (the {loss.name} loss is declared {STRATEGY_TEXT[declared]}, but this family's route for "
+                     f"these settings has no multinomial fitter, so each class is fitted against the rest on one "
+                     f"shared λ grid)")
+        elif way == ONE_VERSUS_REST:
             text += " on one shared λ grid"
         return text
 
     def grid(self, Z, t, loss, options: dict, widen=(0, 0)) -> np.ndarray:
-        if self.strategy(loss) == MULTINOMIAL:
+        if self.strategy(loss, options, Z.shape[0]) == MULTINOMIAL:
             return self.family.multinomial_grid(Z, t, self.n_classes, loss, options, widen=widen)
         if not self.family.grid_reads_loss:
             return self.family.grid(Z, t, loss, options, widen=widen)
@@ -129,18 +134,29 @@ class SeveralClasses:
         return max(grids, key=lambda g: g[0])    # one shared grid: from the largest per-class λ_max down
 
     def fit_path(self, Z, t, loss, lambdas, options: dict) -> PathFit:
-        if self.strategy(loss) == MULTINOMIAL:
+        note = self.note(loss, options, Z.shape[0])
+        if self.strategy(loss, options, Z.shape[0]) == MULTINOMIAL:
             fit = self.family.fit_multinomial(Z, t, self.n_classes, loss, lambdas, options)
-            return dataclasses.replace(fit, multiclass=MULTINOMIAL, note="; ".join(
-                x for x in (self.note(loss), fit.note) if x))
+            return dataclasses.replace(fit, multiclass=MULTINOMIAL, note="; ".join(x for x in (note, fit.note) if x))
         fits = [self.family.fit_path(Z, class_targets(t, k), loss, lambdas, options) for k in range(self.n_classes)]
-        return pack(fits, self.note(loss))
+        return pack(fits, note)
 
     def predict(self, fit: PathFit, Z) -> np.ndarray:
         """Decision values (L, m, K)."""
         if isinstance(fit.model, ClassFits):
             return np.stack([self.family.predict(f, Z) for f in fit.model.fits], axis=-1)
         return self.family.predict_multinomial(fit, Z)
+
+
+def class_by_class(predict_one, path, weights: str, *args) -> np.ndarray:
+    """(L, m, K) scores of a path whose `weights` field ("coef" or "dual_coef") and intercept carry a class
+    axis last, predicted one class at a time by the family's binary `predict_one(path, *args)` — the same
+    arithmetic, bit for bit, as a stored model's class-by-class prediction."""
+    def part(a, k):
+        return np.ascontiguousarray(np.asarray(a)[..., k])
+    K = np.shape(path.intercept)[-1]
+    return np.stack([predict_one(SimpleNamespace(**{weights: part(getattr(path, weights), k)},
+                                                 intercept=part(path.intercept, k)), *args) for k in range(K)], axis=-1)
 
 
 def for_classes(family, n_classes: int):

@@ -13,6 +13,7 @@ import numpy as np
 
 from pipeline.kernels import KERNELS, gram
 from pipeline.models.interface import Family, PathFit
+from pipeline.models.ridge.multinomial import fit_multinomial_kernel_path
 from pipeline.models.ridge.nystrom import fit_nystrom_path, nystrom_gap, nystrom_spectrum
 from pipeline.models.ridge.path import L2Path, fit_l2_path, l2_lambda_grid, predict_path, spectrum_lambda_grid
 
@@ -38,6 +39,16 @@ class RidgeModel:
     def predict(self, Z) -> np.ndarray:
         return predict_path(self.path, gram(np.asarray(Z, float), self.basis, kernel=self.kernel,
                                             **self.kernel_params))
+
+
+@dataclass(frozen=True)
+class RidgeMultinomialModel(RidgeModel):
+    """The multinomial path: scores f_k = b_k + Σⱼ dual_coef[:, j, k] k(basis_j, ·), (L, m, K)."""
+
+    def predict(self, Z) -> np.ndarray:
+        from pipeline.models.multiclass import class_by_class   # the arithmetic a stored model repeats
+        return class_by_class(predict_path, self.path, "dual_coef",
+                              gram(np.asarray(Z, float), self.basis, kernel=self.kernel, **self.kernel_params))
 
 
 def _low_rank(options: dict, n: int) -> bool:
@@ -140,6 +151,30 @@ class RidgeFamily(Family):
             loo_error=path.loo_error, gcv=path.gcv, note=note, model=model)
 
     def predict(self, fit: PathFit, Z) -> np.ndarray:
+        return fit.model.predict(Z)
+
+    # K > 2 classes with a multinomial loss (logistic): one softmax fit of every class on one
+    # eigendecomposition of the Gram (exact route; the low-rank route fits one versus the rest)
+    fits_multinomial = True
+
+    def takes_multinomial(self, options: dict, n_rows: int) -> bool:
+        return not _low_rank(options, n_rows)
+
+    def multinomial_grid(self, Z, codes, n_classes, loss, options: dict, widen=(0, 0)) -> np.ndarray:
+        return self.grid(Z, codes, loss, options, widen=widen)
+
+    def fit_multinomial(self, Z, codes, n_classes, loss, lambdas, options: dict) -> PathFit:
+        from pipeline.models.multiclass import multinomial_pathfit
+        kernel, kp = self._kernel(options)
+        Z = np.asarray(Z, dtype=float)
+        path = fit_multinomial_kernel_path(gram(Z, kernel=kernel, **kp), codes, n_classes, lambdas,
+                                           fit_intercept=options.get("fit_intercept", True))
+        model = RidgeMultinomialModel(path, Z, kernel, kp)
+        coef = np.einsum("lnk,np->lpk", path.dual_coef, Z) if self.has_coefficients(options) else None
+        return multinomial_pathfit(path.lambdas, path, effective_df=path.effective_df, df_kind=path.df_kind,
+                                   coef=coef, model=model)
+
+    def predict_multinomial(self, fit: PathFit, Z) -> np.ndarray:
         return fit.model.predict(Z)
 
     def route_check(self, n_rows: int, training, lambdas, options: dict) -> str:

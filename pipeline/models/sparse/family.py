@@ -5,6 +5,7 @@ import numpy as np
 
 from pipeline.models.interface import Family, PathFit, widen_points
 from pipeline.models.sparse.dual import lambda_max
+from pipeline.models.sparse.multinomial import fit_multinomial_l1_path, multinomial_lambda_max
 from pipeline.models.sparse.path import degrees_of_freedom, fit_l1_path, lambda_grid, predict_path
 
 # options the path fit takes; the config section's other fields shape the grid. "selection_only" is set
@@ -39,7 +40,9 @@ class SparseFamily(Family):
     closed_ends = ("largest",)
 
     def grid(self, Z, t, loss, options: dict, widen=(0, 0)) -> np.ndarray:
-        top = lambda_max(Z, t, loss, alpha=options.get("alpha", 1.0))
+        return self._grid_below(lambda_max(Z, t, loss, alpha=options.get("alpha", 1.0)), options, widen)
+
+    def _grid_below(self, top, options: dict, widen) -> np.ndarray:
         n = options["n_lambdas"]
         grid = lambda_grid(top, n, options["lambda_ratio"])
         extra = int(widen[1]) * widen_points(n)
@@ -65,6 +68,25 @@ class SparseFamily(Family):
 
     def predict(self, fit: PathFit, Z) -> np.ndarray:
         return predict_path(fit.model, Z)
+
+    # K > 2 classes with a multinomial loss (logistic): one L1 / elastic-net softmax fit of every class
+    fits_multinomial = True
+
+    def multinomial_grid(self, Z, codes, n_classes, loss, options: dict, widen=(0, 0)) -> np.ndarray:
+        top = multinomial_lambda_max(Z, codes, n_classes, alpha=options.get("alpha", 1.0))
+        return self._grid_below(top, options, widen)
+
+    def fit_multinomial(self, Z, codes, n_classes, loss, lambdas, options: dict) -> PathFit:
+        from pipeline.models.multiclass import multinomial_pathfit
+        path = fit_multinomial_l1_path(Z, codes, n_classes, lambdas, alpha=options.get("alpha", 1.0),
+                                       tol=options.get("tol", 1e-7))
+        return multinomial_pathfit(
+            path.lambdas, path, effective_df=np.count_nonzero(path.coef, axis=(1, 2)).astype(float),
+            df_kind="number of nonzero coefficients over every class (an upper bound where alpha < 1)")
+
+    def predict_multinomial(self, fit: PathFit, Z) -> np.ndarray:
+        from pipeline.models.multiclass import class_by_class   # the arithmetic a stored model repeats
+        return class_by_class(predict_path, fit.model, "coef", Z)
 
 
 SPARSE = SparseFamily()
