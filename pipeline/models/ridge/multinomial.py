@@ -117,16 +117,30 @@ class _Problem:
         return trace - (self.K - 1 if self.with_intercept else 0)
 
 
-def _newton(prob: _Problem, theta, lam, tol, max_iter):
-    """Damped Newton; returns (θ, objective, max |gradient|, df, iterations, converged)."""
+def _newton(prob: _Problem, theta, lam, tol, max_iter, H=None):
+    """Damped Newton that keeps a Hessian while it works; returns (θ, objective, max |gradient|, df,
+    iterations, converged, the Hessian at θ).
+
+    The Hessian (from the previous λ's optimum, or fresh) is rebuilt only when the gradient fell by less than
+    a factor 4 over the last step or a step found no descent; the convergence test reads the exact gradient,
+    and the degrees of freedom always use the Hessian at the returned θ.
+    """
     obj, logp = prob.value(theta, lam)
+    P = np.exp(logp)
+    fresh = H is None
+    H = prob.loss_hessian(P) if H is None else H
+    chol, extra = prob.system(H, lam)
+    last = np.inf
     for it in range(max_iter + 1):
-        P = np.exp(logp)
         grad = prob.gradient(P, theta, lam)
         gnorm = float(np.max(np.abs(grad)))
-        chol, extra = prob.system(prob.loss_hessian(P), lam)
-        if gnorm <= tol or it == max_iter:
-            return theta, obj, gnorm, prob.df(chol, extra), it, gnorm <= tol
+        done = gnorm <= tol or it == max_iter
+        if not fresh and (done or gnorm > 0.25 * last):
+            H = prob.loss_hessian(P)
+            chol, extra = prob.system(H, lam)
+            fresh = True
+        if done:
+            return theta, obj, gnorm, prob.df(chol, extra), it, gnorm <= tol, H
         step = scipy.linalg.cho_solve(chol, grad, check_finite=False)
         decrement = float(grad @ step)
         t = 1.0
@@ -137,8 +151,9 @@ def _newton(prob: _Problem, theta, lam, tol, max_iter):
                 break
             t *= 0.5
         if new_obj > obj:      # no descent left at rounding level
-            return theta, obj, gnorm, prob.df(chol, extra), it, gnorm <= tol
-        theta, obj, logp = cand, new_obj, new_logp
+            return theta, obj, gnorm, prob.df(chol, extra), it, gnorm <= tol, H
+        theta, obj, logp, last, fresh = cand, new_obj, new_logp, gnorm, False
+        P = np.exp(logp)
     raise AssertionError("unreachable")
 
 
@@ -168,15 +183,15 @@ def fit_multinomial_kernel_path(gram_matrix, codes, n_classes, lambdas, fit_inte
     theta = theta0.copy()
     C, icpt = np.full((L, n, K), np.nan), np.full((L, K), np.nan)
     df, objs, gnorms = np.full(L, np.nan), np.full(L, np.nan), np.full(L, np.nan)
-    ok, status = np.zeros(L, bool), []
+    ok, status, H = np.zeros(L, bool), [], None
     for i, lam in enumerate(lambdas):
         try:
-            theta, objs[i], gnorms[i], df[i], it, ok[i] = _newton(prob, theta, lam, tol, max_iter)
+            theta, objs[i], gnorms[i], df[i], it, ok[i], H = _newton(prob, theta, lam, tol, max_iter, H)
             status.append(f"{'optimal' if ok[i] else 'not converged'} (Newton, {it} iterations, "
                           f"{int(keep.sum())} directions)")
         except (np.linalg.LinAlgError, ValueError, FloatingPointError) as exc:
             status.append(f"failed: {type(exc).__name__}: {exc}")
-            theta = theta0.copy()
+            theta, H = theta0.copy(), None
             continue
         T = theta.reshape(K, q)
         b, beta = (T[:, 0], T[:, 1:]) if fit_intercept else (np.zeros(K), T)

@@ -50,7 +50,7 @@ class MultinomialL1Path:
     n_nonzero: np.ndarray      # (L,) features nonzero in any class
     certificate: np.ndarray    # (L,) duality gap over max(|P|, intercept-only objective)
     certificate_kind: str      # "duality_gap"
-    converged: np.ndarray      # (L,) bool: certificate <= tol
+    converged: np.ndarray      # (L,) bool: certificate <= tol and status "optimal"
     status: tuple[str, ...]
     solver: str
     fit_seconds: float
