@@ -14,7 +14,7 @@ from .evaluate import Evaluation, decisions_for, evaluate_results, test_metrics
 from .cache import cache_for, run_cached, task_keys
 from .execution import run_tasks
 from .features import output_width
-from .fitting import FitOutcome, FitTask, Shared, build_features, run_fit, target_scaling
+from .fitting import FitOutcome, FitTask, Shared, build_features, fit_loss, run_fit, target_scaling
 from .losses import get_loss
 from .models.families import FAMILIES, get_family
 from .selection import L2_CRITERIA, choose_lambda_index, cv_summary, nested_estimate
@@ -122,7 +122,7 @@ def family_grids(spec, shared, train_rows, losses) -> list[dict]:
         grids = {}
         for f in enabled_families(spec):
             if f.key not in shared_grid:
-                grids[f.key] = f.grid(Z, t, loss, shared.family_options[f.key])
+                grids[f.key] = f.grid(Z, t, fit_loss(shared, f.key, loss, train_rows), shared.family_options[f.key])
                 if not f.grid_reads_loss:
                     shared_grid[f.key] = grids[f.key]
             else:
@@ -198,8 +198,8 @@ def fit_with_widening(spec, shared, train_rows, splits, run) -> tuple[list, list
             if problem is None:
                 problem = training_problem(shared, train_rows)
             fam = get_family(key[1])
-            pending[key] = fam.grid(*problem, loss_of[key[0]], shared.family_options[key[1]],
-                                    widen=tuple(widened[key]))
+            pending[key] = fam.grid(*problem, fit_loss(shared, key[1], loss_of[key[0]], train_rows),
+                                    shared.family_options[key[1]], widen=tuple(widened[key]))
             grids[key] = pending[key]
         if not pending:
             break
@@ -289,10 +289,12 @@ def shared_inputs(spec: ExperimentSpec, dataset: Dataset, n_train: int) -> Share
     Each family's route is fixed once from the number of training rows."""
     return Shared(X=dataset.X, y=dataset.y, task=dataset.task, feature_maps=spec.features.maps,
                   feature_seed=spec.seed, input_names=dataset.feature_names,
-                  family_options={f.key: f.for_training_rows(f.options(getattr(spec.families, f.key),
-                                                                       seeds.int_seed(spec.seed, "landmarks")),
-                                                             n_train)
-                                  for f in FAMILIES})
+                  family_options={f.key: {**f.for_training_rows(f.options(getattr(spec.families, f.key),
+                                                                          seeds.int_seed(spec.seed, "landmarks")),
+                                                                n_train),
+                                          "class_weight": getattr(spec.families, f.key).class_weight}
+                                  for f in FAMILIES},
+                  weights=dataset.weights)
 
 
 @dataclass(frozen=True)

@@ -49,7 +49,34 @@ def _finish(lambdas, C, intercept, df, resid, hat_diag, centred, start, psd_rati
                   psd_ratio=psd_ratio)
 
 
+def weighted_squared_path(eig: KernelEigen, y, lambdas) -> L2Path:
+    """The closed form with row factors c (eig of A H_c K H_cᵀ A, A = diag(√c)): with α = Aγ,
+    (Ã + nλI)γ = A(y − ȳ_c), b = ȳ_c − k̄_cᵀα, ȳ_c and k̄_c the c-weighted means; 1ᵀα = 0 exactly.
+    No leave-one-out or GCV values: those criteria are refused with row weights."""
+    start = time.perf_counter()
+    y = np.asarray(y, dtype=float)
+    lambdas = np.asarray(lambdas, dtype=float)
+    n, c = y.shape[0], eig.factors
+    root = np.sqrt(c)
+    ybar = float(c @ y / c.sum()) if eig.centred else 0.0
+    U, d = eig.eigenvectors, eig.eigenvalues
+    a = U.T @ (root * (y - ybar))
+    nl = n * lambdas
+    inv = 1.0 / (d[:, None] + nl[None, :])
+    gamma = U @ (a[:, None] * inv)                  # (n, L)
+    if eig.centred:   # the exact γ is orthogonal to √c (see squared_path for why it is enforced)
+        gamma -= np.outer(root, root @ gamma) / c.sum()
+    C = root[:, None] * gamma
+    ok = np.all(np.isfinite(C), axis=0)
+    return L2Path(lambdas=lambdas, dual_coef=np.ascontiguousarray(C.T), intercept=ybar - eig.intercept_shift(C.T),
+                  effective_df=(d[:, None] * inv).sum(axis=0), loo_error=None, gcv=None, converged=ok,
+                  status=tuple("optimal" if good else "numerical trouble" for good in ok),
+                  fit_seconds=time.perf_counter() - start, loss="squared", psd_ratio=eig.psd.ratio)
+
+
 def squared_path(eig: KernelEigen, y, lambdas) -> L2Path:
+    if eig.factors is not None:
+        return weighted_squared_path(eig, y, lambdas)
     start = time.perf_counter()
     y = np.asarray(y, dtype=float)
     lambdas = np.asarray(lambdas, dtype=float)

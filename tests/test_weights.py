@@ -1,0 +1,204 @@
+"""Row weights: a fit with integer weights is the unweighted fit on the rows repeated by those integers.
+
+The reference for every check here is the definition of the weighted objective,
+(1/Σw) Σ wᵢ lossᵢ + λ·penalty, which for integer weights is the plain objective on the repeated rows;
+the unweighted fits are themselves checked against outside references elsewhere (test_l1_reference.py,
+test_l2_losses.py, test_gcv_reference.py).
+"""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from pipeline.config.sections import L1Spec, L2Spec
+from pipeline.losses import get_loss, loss_names
+from pipeline.losses_weighted import WeightedLoss, class_balance, weighted
+from pipeline.models.ridge import RIDGE
+from pipeline.models.sparse import SPARSE, SOLVER_TABLE
+
+N, P = 26, 6
+
+
+def _problem(task: str, seed: int = 3):
+    rng = np.random.default_rng(seed)
+    Z = rng.standard_normal((N, P))
+    Z_new = rng.standard_normal((9, P))
+    f = Z[:, 0] - 0.8 * Z[:, 1] + 0.5 * Z[:, 2]
+    if task == "regression":
+        t = f + 0.5 * rng.standard_t(3, N)
+        t = (t - t.mean()) / t.std()
+    else:
+        t = np.where(f + 0.7 * rng.standard_normal(N) > 0, 1.0, -1.0)
+    w = rng.integers(1, 4, N)
+    return Z, t, w, Z_new
+
+
+def _repeat(Z, t, w):
+    idx = np.repeat(np.arange(len(t)), w)
+    return Z[idx], t[idx]
+
+
+LOSSES = [(name, get_loss(name).task) for name in loss_names()]
+
+
+def _sparse_options(solver: str) -> dict:
+    # the cvxpy back-ends (interior point) reach about 1e-7 on these problems, weighted or not
+    tol = 1e-7 if solver == "cvxpy" else 1e-8
+    return {**SPARSE.options(L1Spec(solver=solver)), "tol": tol, "n_lambdas": 8, "lambda_ratio": 0.05}
+
+
+def _routes(loss) -> list[str]:
+    """Every solver the table can pick for this loss (pure L1), and the automatic choice (active set first)."""
+    return ["auto"] + [row.name for row in SOLVER_TABLE if row.accepts(loss, 1.0)]
+
+
+def _close(a, b, scale=1.0, tol=1e-6):
+    np.testing.assert_allclose(a, b, rtol=0, atol=tol * max(1.0, scale))
+
+
+@pytest.mark.parametrize("name,task", LOSSES)
+def test_sparse_integer_weights_equal_repeated_rows_on_every_route(name, task):
+    Z, t, w, Z_new = _problem(task)
+    Zr, tr = _repeat(Z, t, w)
+    loss = get_loss(name)
+    for solver in _routes(loss):
+        options = _sparse_options(solver)
+        grid_w = SPARSE.grid(Z, t, weighted(loss, w), options)
+        grid_r = SPARSE.grid(Zr, tr, loss, options)
+        np.testing.assert_allclose(grid_w, grid_r, rtol=1e-10, err_msg=f"{name} grid")
+        fw = SPARSE.fit_path(Z, t, weighted(loss, w), grid_r, options)
+        fr = SPARSE.fit_path(Zr, tr, loss, grid_r, options)
+        # the weighted fit is certified (its own duality gap); the repeated-rows fit is the reference
+        assert fw.converged.all(), (name, solver, fw.status, fw.certificate)
+        assert fw.certificate_kind == "duality_gap" and np.all(fw.certificate <= options["tol"]), (name, solver)
+        scale = float(np.abs(fr.coef).max())
+        _close(fw.coef, fr.coef, scale, tol=1e-5)
+        _close(fw.intercept, fr.intercept, scale, tol=1e-5)
+        _close(SPARSE.predict(fw, Z_new), SPARSE.predict(fr, Z_new), scale, tol=1e-5)
+        # exact zeros agree away from ties
+        assert np.array_equal(fw.coef != 0, fr.coef != 0), (name, solver)
+
+
+def test_sparse_elastic_net_weighted_squared_and_logistic():
+    """Elastic net (l1_share 0.5) on the Gram (OSQP) and cvxpy routes, and its weighted df."""
+    for name, task in (("squared", "regression"), ("logistic", "classification")):
+        Z, t, w, Z_new = _problem(task, seed=5)
+        Zr, tr = _repeat(Z, t, w)
+        loss = get_loss(name)
+        for solver in ["auto"] + [row.name for row in SOLVER_TABLE if row.accepts(loss, 0.5)]:
+            options = {**_sparse_options(solver), "alpha": 0.5}
+            grid = SPARSE.grid(Zr, tr, loss, options)
+            np.testing.assert_allclose(SPARSE.grid(Z, t, weighted(loss, w), options), grid, rtol=1e-10)
+            fw = SPARSE.fit_path(Z, t, weighted(loss, w), grid, options)
+            fr = SPARSE.fit_path(Zr, tr, loss, grid, options)
+            assert fw.converged.all() and np.all(fw.certificate <= options["tol"])
+            _close(fw.coef, fr.coef, float(np.abs(fr.coef).max()), tol=1e-5)
+            _close(fw.effective_df, fr.effective_df, tol=1e-6)
+
+
+def _ridge_options(kernel="linear", **extra) -> dict:
+    return {**RIDGE.options(L2Spec(kernel=kernel, **extra)), "n_lambdas": 8}
+
+
+@pytest.mark.parametrize("name,task", LOSSES)
+def test_ridge_integer_weights_equal_repeated_rows(name, task):
+    Z, t, w, Z_new = _problem(task)
+    Zr, tr = _repeat(Z, t, w)
+    loss = get_loss(name)
+    options = _ridge_options()
+    grid_w = RIDGE.grid(Z, t, weighted(loss, w), options)
+    grid_r = RIDGE.grid(Zr, tr, loss, options)
+    np.testing.assert_allclose(grid_w, grid_r, rtol=1e-7, err_msg="λ grid")
+    fw = RIDGE.fit_path(Z, t, weighted(loss, w), grid_r, options)
+    fr = RIDGE.fit_path(Zr, tr, loss, grid_r, options)
+    assert fw.converged.all() and fr.converged.all(), (fw.status, fr.status)
+    scale = float(np.abs(fr.coef).max())
+    tol = 1e-7 if loss.smooth else 2e-5     # non-smooth losses: interior-point (CLARABEL) accuracy
+    _close(fw.coef, fr.coef, scale, tol)
+    _close(fw.intercept, fr.intercept, scale, tol)
+    _close(RIDGE.predict(fw, Z_new), RIDGE.predict(fr, Z_new), scale, tol)
+    if loss.smooth:
+        _close(fw.effective_df, fr.effective_df, tol=1e-6)
+
+
+def test_ridge_rbf_kernel_weighted_squared_closed_form():
+    """A kernel with no weight per feature (rbf, fixed bandwidth): decision values and grid agree."""
+    Z, t, w, Z_new = _problem("regression", seed=8)
+    Zr, tr = _repeat(Z, t, w)
+    loss = get_loss("squared")
+    options = _ridge_options("rbf", bandwidth=2.0)
+    grid = RIDGE.grid(Zr, tr, loss, options)
+    np.testing.assert_allclose(RIDGE.grid(Z, t, weighted(loss, w), options), grid, rtol=1e-7)
+    fw = RIDGE.fit_path(Z, t, weighted(loss, w), grid, options)
+    fr = RIDGE.fit_path(Zr, tr, loss, grid, options)
+    _close(RIDGE.predict(fw, Z_new), RIDGE.predict(fr, Z_new), tol=1e-7)
+    _close(fw.effective_df, fr.effective_df, tol=1e-7)
+    assert fw.loo_error is None and fw.gcv is None    # no weighted shortcut: refused by the config
+
+
+def test_weighted_loss_pieces_scale_by_the_row_factors():
+    rng = np.random.default_rng(0)
+    y, f = rng.standard_normal(7), rng.standard_normal(7)
+    w = rng.uniform(0.2, 3.0, 7)
+    c = w * 7 / w.sum()
+    for name in ("squared", "huber", "quantile"):
+        base = get_loss(name)
+        lw = WeightedLoss(base=base, weights=w)
+        np.testing.assert_allclose(lw.value(y, f), c * base.value(y, f))
+        np.testing.assert_allclose(lw.derivative(y, f), c * base.derivative(y, f))
+        lo, hi = base.dual_bounds(y)
+        wlo, whi = lw.dual_bounds(y)
+        np.testing.assert_allclose(wlo, c * lo)
+        np.testing.assert_allclose(whi, c * hi)
+        # Fenchel–Young at the derivative: (c·l)(f) + (c·l)*(u) = u·f with u the derivative (smooth losses)
+        if base.smooth:
+            u = lw.derivative(y, f)
+            np.testing.assert_allclose(lw.value(y, f) + lw.conjugate(y, u), u * f, atol=1e-12)
+    with pytest.raises(ValueError):
+        WeightedLoss(base=get_loss("squared"), weights=np.array([1.0, 0.0]))
+
+
+def test_class_weight_balanced_equals_explicit_weights():
+    Z, t, _, Z_new = _problem("classification", seed=11)
+    t[:7] = 1.0     # unbalanced classes
+    n_pos, n_neg = int((t > 0).sum()), int((t < 0).sum())
+    explicit = np.where(t > 0, N / (2 * n_pos), N / (2 * n_neg))
+    np.testing.assert_allclose(class_balance(t), explicit)
+    # with row weights: the classes' total weights take the place of the counts
+    w = np.arange(1.0, N + 1)
+    W_pos, W_neg = w[t > 0].sum(), w[t < 0].sum()
+    np.testing.assert_allclose(class_balance(t, w), w * np.where(t > 0, w.sum() / (2 * W_pos), w.sum() / (2 * W_neg)))
+    from pipeline.fitting import Shared, training_weights
+    from pipeline.config import IdentityMap
+    shared = Shared(X=Z, y=t, task="classification", feature_maps=(IdentityMap(kind="identity"),), feature_seed=0,
+                    input_names=tuple(f"x{j}" for j in range(P)),
+                    family_options={"l1": {"class_weight": "balanced"}, "l2": {"class_weight": "none"}})
+    rows = np.arange(3, N)
+    sub = t[rows]
+    np.testing.assert_allclose(training_weights(shared, "l1", rows),
+                               np.where(sub > 0, len(rows) / (2 * (sub > 0).sum()), len(rows) / (2 * (sub < 0).sum())))
+    assert training_weights(shared, "l2", rows) is None
+    loss = get_loss("logistic")
+    options = _sparse_options("auto")
+    grid = SPARSE.grid(Z, t, weighted(loss, explicit), options)
+    a = SPARSE.fit_path(Z, t, weighted(loss, class_balance(t)), grid, options)
+    b = SPARSE.fit_path(Z, t, weighted(loss, explicit), grid, options)
+    np.testing.assert_allclose(a.coef, b.coef, atol=1e-12)
+
+
+@settings(max_examples=12, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(scale=st.floats(1e-3, 1e3), name=st.sampled_from(["squared", "huber", "logistic", "hinge", "quantile"]),
+       seed=st.integers(0, 50))
+def test_scaling_every_weight_changes_nothing(scale, name, seed):
+    loss = get_loss(name)
+    Z, t, _, Z_new = _problem(loss.task, seed)
+    w = np.random.default_rng(seed).uniform(0.3, 3.0, N)
+    for family, options in ((SPARSE, _sparse_options("auto")), (RIDGE, _ridge_options())):
+        grid = family.grid(Z, t, weighted(loss, w), options)
+        np.testing.assert_allclose(family.grid(Z, t, weighted(loss, w * scale), options), grid, rtol=1e-8)
+        a = family.fit_path(Z, t, weighted(loss, w), grid, options)
+        b = family.fit_path(Z, t, weighted(loss, w * scale), grid, options)
+        s = float(np.abs(a.coef).max())
+        _close(family.predict(a, Z_new), family.predict(b, Z_new), s, tol=1e-5)
