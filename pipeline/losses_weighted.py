@@ -104,3 +104,26 @@ def class_balance(y, weights=None) -> np.ndarray:
     classes, codes = np.unique(y, return_inverse=True)
     totals = np.bincount(codes, weights=w, minlength=classes.size)
     return w * (w.sum() / (classes.size * totals[codes]))
+
+
+def weights_label(column: str | None, class_weight: str) -> str:
+    """How one family's fits are weighted, in a few words: the column, 'balanced', both, or 'none'."""
+    parts = ([f"column '{column}'"] if column else []) + (["balanced"] if class_weight == "balanced" else [])
+    return " × ".join(parts) or "none"
+
+
+def describe_weighting(column: str | None, by_family: dict, weighted_metrics: bool) -> str:
+    """One sentence for the report: which weights each family's fits used and whether metrics are weighted.
+    `by_family`: family title -> its class_weight setting. Empty when nothing is weighted."""
+    labels = {title: weights_label(column, cw) for title, cw in by_family.items()}
+    if all(label == "none" for label in labels.values()):
+        return ""
+    fits = "; ".join(f"{title}: {label}" for title, label in labels.items())
+    balanced = any(cw == "balanced" for cw in by_family.values())
+    return (f"Row weights used in fitting (every CV fold, refit, stability resample and the final fit; objective "
+            f"(1/Σw) Σ wᵢ lossᵢ + λ·penalty): {fits}"
+            + ("; 'balanced' gives each training row n / (K · n_class), computed on the training rows of each fit"
+               if balanced else "")
+            + (". Held-out metrics, their intervals and the paired comparison are weighted by the test rows' "
+               f"column '{column}' (bootstrap intervals)." if weighted_metrics else
+               ". Held-out metrics are unweighted: every test row counts once."))

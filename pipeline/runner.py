@@ -16,6 +16,7 @@ from .execution import run_tasks
 from .features import output_width
 from .fitting import FitOutcome, FitTask, Shared, build_features, fit_loss, run_fit, target_scaling
 from .losses import get_loss
+from .losses_weighted import describe_weighting
 from .models.families import FAMILIES, get_family
 from .selection import L2_CRITERIA, choose_lambda_index, cv_summary, nested_estimate
 from .splits import describe_design, plan_resamples, plan_splits, split_rows
@@ -76,6 +77,7 @@ class ExperimentResult:
     selection_paths: dict = field(default_factory=dict)  # (loss label, family) -> (L, p) selection probabilities
     design: str = ""                                  # one line: how test rows and CV folds were formed
     solver_output: tuple[str, ...] = ()   # what fits printed or warned (solver banners), kept out of the terminal
+    weighting: str = ""                   # which row weights the fits (and metrics) used; "" when none
 
 
 def check_feature_budget(spec: ExperimentSpec, dataset: Dataset, n_train: int) -> int:
@@ -216,6 +218,11 @@ def _choose(spec, cv_errors, final, n_rows: int) -> tuple[int, str]:
     return choose_lambda_index(cv_errors, spec.selection.rule), f"{spec.selection.cv_folds}-fold CV, {spec.selection.rule}"
 
 
+def metric_weights(spec, shared, test_rows):
+    """The test rows' weights when the held-out metrics are weighted (verdict.weighted_metrics), else None."""
+    return shared.weights[test_rows] if spec.verdict.weighted_metrics and shared.weights is not None else None
+
+
 def assemble(spec, shared, tasks, outcomes, test_rows, rng, decisions=None, scale=1.0, widened=None,
              n_rows=0) -> list[FamilyResult]:
     by_key: dict[tuple, dict[str, tuple[FitTask, FitOutcome]]] = {}
@@ -234,7 +241,8 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng, decisions=None, scal
         loss = get_loss(final_task.loss_name, **dict(final_task.loss_params))
         pred = final.eval_pred[idx]
         metrics, intervals = test_metrics(shared.task, y_test, pred, loss, rng, level=spec.report.level,
-                                          decision=(decisions or {}).get(label), scale=scale)
+                                          decision=(decisions or {}).get(label), scale=scale,
+                                          weights=metric_weights(spec, shared, test_rows))
         results.append(FamilyResult(
             family=family, loss_label=label, loss_name=final_task.loss_name,
             loss_params=dict(final_task.loss_params), lambdas=final_task.lambdas, cv_errors=cv_errors,
@@ -366,7 +374,8 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     evaluation = evaluate_results(results, task=dataset.task, y_test=dataset.y[test_rows],
                                   fold_sizes=(len(fold0[1]), len(fold0[2])), dataset=dataset,
                                   feature_names=feature_names, seed=spec.seed, level=spec.report.level,
-                                  decisions=decisions, scales={label: scale for label in decisions})
+                                  decisions=decisions, scales={label: scale for label in decisions},
+                                  weights=metric_weights(spec, shared, test_rows))
     stability = stability_stage(spec, results, feature_names,
                                 lambda: build_features(shared, train_rows).transform(shared.X[train_rows]))
     return ExperimentResult(spec=spec, dataset=dataset, data_hash=data_hash, train_rows=train_rows,
@@ -376,4 +385,8 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
                             fit_seconds_total=float(sum(o.fit_seconds for o in outcomes)),
                             evaluation=evaluation, stability=stability.summaries,
                             design=describe_design(spec, dataset, train_rows, test_rows, splits),
-                            selection_paths=stability.selection_paths, solver_output=tuple(output))
+                            selection_paths=stability.selection_paths, solver_output=tuple(output),
+                            weighting=describe_weighting(getattr(spec.data, "weights", None),
+                                                         {f.title: getattr(spec.families, f.key).class_weight
+                                                          for f in enabled_families(spec)},
+                                                         spec.verdict.weighted_metrics))

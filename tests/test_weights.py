@@ -202,3 +202,127 @@ def test_scaling_every_weight_changes_nothing(scale, name, seed):
         b = family.fit_path(Z, t, weighted(loss, w * scale), grid, options)
         s = float(np.abs(a.coef).max())
         _close(family.predict(a, Z_new), family.predict(b, Z_new), s, tol=1e-5)
+
+
+# ------------------------------------------------------------------ weighted held-out metrics
+def _metric_inputs(task, seed=0, n=40):
+    rng = np.random.default_rng(seed)
+    if task == "regression":
+        y = rng.standard_normal(n)
+        return y, y + 0.7 * rng.standard_normal(n)
+    y = np.where(rng.random(n) < 0.4, 1.0, -1.0)
+    return y, y * 0.8 + rng.standard_normal(n)
+
+
+def test_weighted_metrics_match_scikit_learn_sample_weight():
+    """Reference: scikit-learn's metric functions with `sample_weight` (sklearn.metrics, 1.x)."""
+    from scipy.special import expit
+    from sklearn import metrics as skm
+
+    from pipeline.evaluate.metrics import METRICS
+    from pipeline.evaluate.weighted import weighted_metric
+
+    lab = lambda f: np.where(f > 0, 1.0, -1.0)  # noqa: E731
+    reference = {
+        "mse": lambda y, f, w: skm.mean_squared_error(y, f, sample_weight=w),
+        "rmse": lambda y, f, w: skm.root_mean_squared_error(y, f, sample_weight=w),
+        "mae": lambda y, f, w: skm.mean_absolute_error(y, f, sample_weight=w),
+        "pinball": lambda y, f, w: skm.mean_pinball_loss(y, f, alpha=0.5, sample_weight=w),
+        "r2": lambda y, f, w: skm.r2_score(y, f, sample_weight=w),
+        "accuracy": lambda y, f, w: skm.accuracy_score(y, lab(f), sample_weight=w),
+        "misclassification": lambda y, f, w: 1 - skm.accuracy_score(y, lab(f), sample_weight=w),
+        "balanced_accuracy": lambda y, f, w: skm.balanced_accuracy_score(y, lab(f), sample_weight=w),
+        "roc_auc": lambda y, f, w: skm.roc_auc_score(y, f, sample_weight=w),
+        "log_loss": lambda y, f, w: skm.log_loss(y, expit(f), sample_weight=w, labels=[-1, 1]),
+        "brier": lambda y, f, w: skm.brier_score_loss(y, expit(f), sample_weight=w, pos_label=1),
+    }
+    rng = np.random.default_rng(4)
+    for name, m in METRICS.items():
+        y, f = _metric_inputs(m.task)
+        w = rng.uniform(0.2, 4.0, y.size)
+        ours = weighted_metric(m, w)(y, f)
+        if name in reference:
+            assert ours == pytest.approx(reference[name](y, f, w), rel=1e-10), name
+        # integer weights: the plain metric on the rows repeated (every metric, Huber included)
+        k = rng.integers(1, 4, y.size)
+        idx = np.repeat(np.arange(y.size), k)
+        assert weighted_metric(m, k)(y, f) == pytest.approx(m(y[idx], f[idx]), rel=1e-10), name
+
+
+def test_weighted_bootstrap_interval_uses_the_weights():
+    """The resampled weighted metric is the metric with weights w times the resample's row counts."""
+    from sklearn import metrics as skm
+
+    from pipeline.evaluate.metrics import METRICS
+    from pipeline.evaluate.weighted import weighted_metric
+
+    y, f = _metric_inputs("regression", seed=2)
+    w = np.random.default_rng(1).uniform(0.5, 2.0, y.size)
+    idx = np.random.default_rng(0).integers(0, y.size, (5, y.size))
+    values = weighted_metric(METRICS["rmse"], w).on_resamples(y, f, idx)
+    for b in range(5):
+        counts = np.bincount(idx[b], minlength=y.size)
+        assert values[b] == pytest.approx(skm.root_mean_squared_error(y, f, sample_weight=w * counts), rel=1e-10)
+    assert weighted_metric(METRICS["accuracy"], w).interval == "bootstrap"
+
+
+# ------------------------------------------------------------------ through `penduel run`
+def _cli_files(folder, seed=1, n=48):
+    import pandas as pd
+
+    rng = np.random.default_rng(seed)
+    X = rng.standard_normal((n, 4))
+    y = X[:, 0] - X[:, 1] + 0.5 * rng.standard_normal(n)
+    frame = pd.DataFrame(X, columns=list("abcd"))
+    frame.assign(w=rng.integers(1, 4, n), y=y).to_csv(folder / "data.csv", index=False)
+    labels = np.where(X[:, 0] + 0.5 * rng.standard_normal(n) > 0.6, "yes", "no")
+    frame.assign(label=labels).to_csv(folder / "cls.csv", index=False)
+
+
+def _stored(folder, run_id):
+    from mlflow.tracking import MlflowClient
+
+    from .conftest import children_of
+    client = MlflowClient(f"sqlite:///{folder / 'store.db'}")
+    return client.get_run(run_id), children_of(client, run_id)
+
+
+def _run(cli, folder, config: str):
+    (folder / "experiment.yaml").write_text(config, encoding="utf-8")
+    out = cli(["run", "experiment.yaml"], cwd=folder)
+    assert out.returncode == 0, out.stderr[-3000:]
+    run_id = out.stdout.strip().splitlines()[-1].split()[-1]
+    html = next(folder.glob(f"reports/*/{run_id}/index.html")).read_text(encoding="utf-8")
+    return run_id, " ".join(html.replace("&#39;", "'").split())
+
+
+COMMON = ("families: {l1: {path: {points: 5}%s}, l2: {path: {points: 5}%s}}\nselection: {cv_folds: 3}\n"
+          "tracking: {uri: 'sqlite:///store.db'}\n")
+
+
+def test_data_weights_through_penduel_run(cli, tmp_path):
+    """data.weights with weighted metrics: every fit (folds, refit, 4 stability resamples) weighted; the
+    report and the tracking store say so."""
+    _cli_files(tmp_path)
+    config = ("name: weighted\ndata: {kind: csv, path: data.csv, target: y, weights: w}\nlosses: [absolute]\n"
+              "stability: {n_resamples: 4}\nverdict: {weighted_metrics: true}\n" + COMMON % ("", ""))
+    run_id, html = _run(cli, tmp_path, config)
+    assert "Row weights used in fitting" in html and "sparse (L1): column 'w'; ridge-type (L2): column 'w'" in html
+    assert "Held-out metrics, their intervals and the paired comparison are weighted" in html
+    parent, children = _stored(tmp_path, run_id)
+    assert parent.data.params["weighted_metrics"] == "True"
+    assert {c.data.params["row_weights"] for c in children} == {"column 'w'"}
+    assert "w" not in parent.data.params.get("n_columns", "") and parent.data.params["n_columns"] == "4"
+
+
+@pytest.mark.slow
+def test_class_weight_balanced_through_penduel_run(cli, tmp_path):
+    _cli_files(tmp_path)
+    config = ("name: balanced\ndata: {kind: csv, path: cls.csv, target: label}\nlosses: [hinge]\n"
+              "stability: {enabled: false}\n" + COMMON % (", class_weight: balanced", ""))
+    run_id, html = _run(cli, tmp_path, config)
+    assert "sparse (L1): balanced; ridge-type (L2): none" in html
+    assert "Held-out metrics are unweighted" in html
+    _, children = _stored(tmp_path, run_id)
+    assert {c.data.params["family"]: c.data.params["row_weights"] for c in children} == {"l1": "balanced",
+                                                                                         "l2": "none"}

@@ -102,6 +102,7 @@ def build_payload(result) -> dict:
         "n_rows": result.dataset.n_samples, "n_train": len(result.train_rows), "n_test": len(result.test_rows),
         "dataset": result.dataset.summary(), "notes": list(result.notes),
         "design": getattr(result, "design", ""),
+        "weighting": getattr(result, "weighting", ""),
         "feature_maps": [m.kind for m in spec.features.maps], "n_features_built": len(result.feature_names),
         "families": [_family(result, r) for r in result.results],
         "verdicts": _clean(list(evaluation.verdicts)),
