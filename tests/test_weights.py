@@ -98,6 +98,34 @@ def test_sparse_elastic_net_weighted_squared_and_logistic():
             _close(fw.effective_df, fr.effective_df, tol=1e-6)
 
 
+def test_cold_split_lp_weighted_equals_repeated_rows():
+    """The one-shot split LP (restricted.solve_piecewise_lp), beside the warm one the path uses."""
+    from pipeline.models.sparse import restricted as rs
+
+    for name in ("quantile", "absolute", "hinge"):
+        loss = get_loss(name)
+        Z, t, w, _ = _problem(loss.task, seed=6)
+        Zr, tr = _repeat(Z, t, w)
+        a = rs.solve_piecewise_lp(Z, t, 0.02, weighted(loss, w))
+        b = rs.solve_piecewise_lp(Zr, tr, 0.02, loss)
+        assert a.status == b.status == "optimal"
+        _close(a.coef, b.coef, tol=1e-8)
+        _close(a.intercept, b.intercept, tol=1e-8)
+
+
+def test_selection_only_fits_are_certified_with_weights():
+    """Stability resamples: the KKT certificate of the weighted problem, same support as the full fit."""
+    for name in ("squared", "logistic", "hinge"):
+        loss = get_loss(name)
+        Z, t, w, _ = _problem(loss.task, seed=9)
+        options = _sparse_options("auto")
+        grid = SPARSE.grid(Z, t, weighted(loss, w), options)
+        full = SPARSE.fit_path(Z, t, weighted(loss, w), grid, options)
+        sel = SPARSE.fit_path(Z, t, weighted(loss, w), grid, {**options, "selection_only": True})
+        assert sel.certificate_kind == "kkt_violation" and np.all(sel.certificate <= options["tol"]), name
+        assert np.array_equal(np.sign(sel.coef), np.sign(full.coef)), name
+
+
 def _ridge_options(kernel="linear", **extra) -> dict:
     return {**RIDGE.options(L2Spec(kernel=kernel, **extra)), "n_lambdas": 8}
 
