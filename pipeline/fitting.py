@@ -52,7 +52,7 @@ class FitOutcome:
     split: str
     family: str
     loss_label: str
-    eval_loss: np.ndarray          # (L,) mean held-out loss on the fitting scale
+    eval_loss: np.ndarray          # (L,) mean held-out loss on the fitting scale (weighted as the fit is)
     eval_pred: np.ndarray          # (L, m) predictions on eval rows, original target scale (decision values)
     coef: np.ndarray | None        # (L, p_features) on the feature-output scale; None without per-feature weights
     intercept: np.ndarray          # (L,) matching coef
@@ -117,7 +117,10 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
     f_ev = family.predict(fit, Z_ev)
     coef, intercept = fit.coef, fit.intercept
     seconds = time.perf_counter() - start
-    eval_loss = np.array([loss.value(t_ev, f).mean() for f in f_ev])
+    # weighted as the fit is (the rows' weights and, for balanced classes, the balance of these rows), so
+    # cross-validation chooses λ for the objective that was fitted
+    w_ev = training_weights(shared, task.family, task.eval_idx)
+    eval_loss = np.array([np.average(loss.value(t_ev, f), weights=w_ev) for f in f_ev])
     if coef is not None:
         coef, intercept = builder.to_output_scale(coef * scale, intercept * scale + center)
     return FitOutcome(

@@ -121,7 +121,7 @@ def describe_weighting(column: str | None, by_family: dict, weighted_metrics: bo
     fits = "; ".join(f"{title}: {label}" for title, label in labels.items())
     balanced = any(cw == "balanced" for cw in by_family.values())
     return (f"Row weights used in fitting (every CV fold, refit, stability resample and the final fit; objective "
-            f"(1/Σw) Σ wᵢ lossᵢ + λ·penalty): {fits}"
+            f"(1/Σw) Σ wᵢ lossᵢ + λ·penalty; the CV errors that choose λ are weighted the same way): {fits}"
             + ("; 'balanced' gives each training row n / (K · n_class), computed on the training rows of each fit"
                if balanced else "")
             + (". Held-out metrics, their intervals and the paired comparison are weighted by the test rows' "

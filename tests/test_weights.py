@@ -354,3 +354,28 @@ def test_class_weight_balanced_through_penduel_run(cli, tmp_path):
     _, children = _stored(tmp_path, run_id)
     assert {c.data.params["family"]: c.data.params["row_weights"] for c in children} == {"l1": "balanced",
                                                                                          "l2": "none"}
+
+
+def test_cv_errors_are_weighted_as_the_fit():
+    """A fit task's held-out loss is the weighted mean over its evaluation rows (np.average as reference)."""
+    from pipeline.config import IdentityMap
+    from pipeline.fitting import FitTask, Shared, run_fit
+
+    rng = np.random.default_rng(2)
+    X = rng.standard_normal((40, 3))
+    y = X[:, 0] + 0.3 * rng.standard_normal(40)
+    w = rng.uniform(0.5, 3.0, 40)
+    options = {"l1": _sparse_options("auto"), "l2": {**_ridge_options(), "class_weight": "none"}}
+    tr, ev = np.arange(30), np.arange(30, 40)
+    grid = np.array([0.3, 0.1, 0.03])
+    plain = dict(X=X, y=y, task="regression", feature_maps=(IdentityMap(kind="identity"),), feature_seed=0,
+                 input_names=("a", "b", "c"), family_options=options)
+    task = FitTask("fold0", "l1", "absolute", (), "absolute", tr, ev, grid)
+    weighted_out = run_fit(task, Shared(**plain, weights=w))
+    unweighted_out = run_fit(task, Shared(**plain))
+    centre, scale = y[tr].mean(), y[tr].std()
+    for out, weights in ((weighted_out, w[ev]), (unweighted_out, None)):
+        t_ev, f = (y[ev] - centre) / scale, (out.eval_pred - centre) / scale
+        expected = [np.average(np.abs(t_ev - fl), weights=weights) for fl in f]
+        np.testing.assert_allclose(out.eval_loss, expected, rtol=1e-10)
+    assert not np.allclose(weighted_out.eval_loss, unweighted_out.eval_loss)
