@@ -379,3 +379,4 @@ def test_cv_errors_are_weighted_as_the_fit():
         expected = [np.average(np.abs(t_ev - fl), weights=weights) for fl in f]
         np.testing.assert_allclose(out.eval_loss, expected, rtol=1e-10)
     assert not np.allclose(weighted_out.eval_loss, unweighted_out.eval_loss)
+
