@@ -96,4 +96,8 @@ class Dataset:
                        target_min=float(y.min()), target_max=float(y.max()))
         if self.truth is not None:
             out["true_support_size"] = len(self.truth.support)
+        if self.weights is not None:
+            w = self.weights
+            out["row_weights"] = (f"column '{self.weights_name}': from {w.min():.4g} to {w.max():.4g}, "
+                                  f"total {w.sum():.4g} over {w.size} rows")
         return out
