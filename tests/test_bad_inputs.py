@@ -199,9 +199,6 @@ CASES.update({
                                            ["families.l1.class_weight", "no classes to balance"]),
     "weighted metrics without row weights": ({}, _plain("verdict: {weighted_metrics: true}\n"),
                                              ["verdict.weighted_metrics", "data.weights names no column"]),
-    "leave-one-out criterion with row weights": ({"data.csv": _csv(_frame(w=1.0))},
-                                                 _weights_config() + "selection: {l2_criterion: loo}\n",
-                                                 ["selection.l2_criterion", "'loo'", "no weighted form"]),
     # ------------------------------------------------------------ numbers that are not numbers
     "huber delta infinite": ({}, _plain("losses: [{name: huber, delta: .inf}]\n"), ["losses[1].delta", "inf",
                                                                                    "only finite numbers"]),

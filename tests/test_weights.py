@@ -163,7 +163,23 @@ def test_ridge_rbf_kernel_weighted_squared_closed_form():
     fr = RIDGE.fit_path(Zr, tr, loss, grid, options)
     _close(RIDGE.predict(fw, Z_new), RIDGE.predict(fr, Z_new), tol=1e-7)
     _close(fw.effective_df, fr.effective_df, tol=1e-7)
-    assert fw.loo_error is None and fw.gcv is None    # no weighted shortcut: refused by the config
+
+
+def test_weighted_leave_one_out_equals_refits_without_each_row():
+    """The weighted closed form's LOO error: Σ wᵢ (yᵢ − f₋ᵢ(xᵢ))² / Σw, f₋ᵢ refitted without row i at the same
+    absolute penalty (Σw·λ/2 · penalty, so λ₋ᵢ = λ Σw / (Σw − wᵢ)); brute force as the reference."""
+    Z, t, _, _ = _problem("regression", seed=4)
+    w = np.random.default_rng(0).uniform(0.3, 3.0, N)
+    loss, options = get_loss("squared"), _ridge_options()
+    grid = RIDGE.grid(Z, t, weighted(loss, w), options)
+    fit = RIDGE.fit_path(Z, t, weighted(loss, w), grid, options)
+    total, brute = w.sum(), np.zeros(len(grid))
+    for i in range(N):
+        keep = np.arange(N) != i
+        refit = RIDGE.fit_path(Z[keep], t[keep], weighted(loss, w[keep]), grid * total / (total - w[i]), options)
+        brute += w[i] * (t[i] - RIDGE.predict(refit, Z[i:i + 1])[:, 0]) ** 2
+    np.testing.assert_allclose(fit.loo_error, brute / total, rtol=1e-9)
+    assert np.all(np.isfinite(fit.gcv)) and np.all(fit.converged)
 
 
 def test_weighted_loss_pieces_scale_by_the_row_factors():

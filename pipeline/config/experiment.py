@@ -32,7 +32,7 @@ def _check_solver(spec) -> None:
 
 
 def _check_weights(spec) -> None:
-    """Row weights and class balance: where they apply, and the criteria that have no weighted form."""
+    """Row weights and class balance: where they apply."""
     column = getattr(spec.data, "weights", None)
     for fam in ("l1", "l2"):
         section = getattr(spec.families, fam)
@@ -43,10 +43,6 @@ def _check_weights(spec) -> None:
     if spec.verdict.weighted_metrics and column is None:
         raise ValueError("verdict.weighted_metrics is true but data.weights names no column; name the column of "
                          "row weights in data.weights, or set verdict.weighted_metrics to false")
-    if column is not None and spec.selection.l2_criterion != "cv":
-        raise ValueError(f"selection.l2_criterion is '{spec.selection.l2_criterion}', whose leave-one-out and GCV "
-                         f"shortcuts have no weighted form here, but data.weights gives row weights; use "
-                         f"selection.l2_criterion: cv (K-fold CV on the weighted fits)")
 
 
 def _check_stability(spec) -> None:
