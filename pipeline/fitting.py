@@ -12,6 +12,7 @@ import numpy as np
 
 from .features import FeatureBuilder
 from .losses import get_loss
+from .losses_weighted import class_balance, weighted
 from .models.families import get_family
 from .models.multiclass import for_classes, output_scale, path_losses
 
@@ -27,6 +28,7 @@ class Shared:
     input_names: tuple[str, ...]
     family_options: dict               # family key -> that family's options (Family.options)
     n_classes: int = 0                 # classification: number of classes (K > 2: targets are codes 0..K−1)
+    weights: np.ndarray | None = None  # (n,) row weights of the data.weights column; None: unweighted
 
 
 @dataclass(frozen=True)
@@ -52,7 +54,7 @@ class FitOutcome:
     split: str
     family: str
     loss_label: str
-    eval_loss: np.ndarray          # (L,) mean held-out loss on the fitting scale
+    eval_loss: np.ndarray          # (L,) mean held-out loss on the fitting scale (weighted as the fit is)
     eval_pred: np.ndarray          # (L, m) predictions on eval rows, original target scale (decision values);
     #                                (L, m, K) for K > 2 classes
     coef: np.ndarray | None        # (L, p_features) on the feature-output scale; None without per-feature weights;
@@ -88,6 +90,21 @@ def target_scaling(shared: Shared, y_train: np.ndarray) -> tuple[float, float]:
     return float(y_train.mean()), sd if sd > 0 else 1.0
 
 
+def training_weights(shared: Shared, family: str, rows) -> np.ndarray | None:
+    """Row weights of one fit on `rows` (the weights follow the rows: a resample drawing a row twice
+    draws its weight twice): the data.weights column, times the class balance of these rows when the
+    family's class_weight is balanced. None: unweighted."""
+    w = None if shared.weights is None else shared.weights[rows]
+    if shared.family_options[family].get("class_weight", "none") == "balanced":
+        w = class_balance(shared.y[rows], w)
+    return w
+
+
+def fit_loss(shared: Shared, family: str, loss, rows):
+    """The loss a fit on `rows` minimises: `loss` with the fit's row weights (pipeline.losses_weighted)."""
+    return weighted(loss, training_weights(shared, family, rows))
+
+
 def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
     loss = get_loss(task.loss_name, **dict(task.loss_params))
     builder = build_features(shared, task.train_idx)
@@ -101,11 +118,14 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
     options = shared.family_options[task.family]
     if task.selection_only:
         options = {**options, "selection_only": True}
-    fit = family.fit_path(Z_tr, t_tr, loss, task.lambdas, options)
+    fit = family.fit_path(Z_tr, t_tr, fit_loss(shared, task.family, loss, task.train_idx), task.lambdas, options)
     f_ev = family.predict(fit, Z_ev)
     coef, intercept = fit.coef, fit.intercept
     seconds = time.perf_counter() - start
-    eval_loss = path_losses(loss, t_ev, f_ev, fit.multiclass)
+    # weighted as the fit is (the rows' weights and, for balanced classes, the balance of these rows), so
+    # cross-validation chooses λ for the objective that was fitted
+    w_ev = training_weights(shared, task.family, task.eval_idx)
+    eval_loss = path_losses(loss, t_ev, f_ev, fit.multiclass, weights=w_ev)
     if coef is not None:
         coef, intercept = output_scale(builder, coef * scale, intercept * scale + center)
     return FitOutcome(

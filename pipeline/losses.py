@@ -65,6 +65,8 @@ class Loss:
     # classification losses: how the loss goes beyond two classes, "multinomial" (one fit of all classes
     # together, softmax cross-entropy) or "one_versus_rest" (one binary fit per class against the others)
     multiclass: str = field(init=False, default="")
+    # per-row factors c_i = n w_i / sum(w) of a weighted loss (pipeline.losses_weighted); None: unweighted
+    row_factors: np.ndarray | None = field(init=False, default=None, compare=False, repr=False)
 
     def value(self, y, f) -> np.ndarray:
         raise NotImplementedError
@@ -72,7 +74,8 @@ class Loss:
     def derivative(self, y, f) -> np.ndarray:
         raise NotImplementedError
 
-    def cvxpy_sum(self, y, f_expr):
+    def cvxpy_sum(self, y, f_expr, weights=None):
+        """cvxpy expression of sum_i w_i loss_i (w = 1 when None; see `weighted_sum`)."""
         # each loss imports cvxpy inside this method: only the cvxpy solver routes need it, and
         # `penduel validate` / `--help` must not pay its import
         raise NotImplementedError
@@ -80,7 +83,8 @@ class Loss:
     def conjugate(self, y, u) -> np.ndarray:
         raise NotImplementedError
 
-    def intercept_only(self, y) -> float:
+    def intercept_only(self, y, weights=None) -> float:
+        """argmin_b sum_i w_i loss(y_i, b) (w = 1 when None): with integer w the fit on rows repeated w_i times."""
         raise NotImplementedError
 
     def second_derivative(self, y, f) -> np.ndarray:
@@ -102,6 +106,22 @@ class Loss:
         return as_float(y) - as_float(f)
 
 
+def weighted_sum(terms, weights):
+    """cvxpy: sum of the per-row expression `terms`, each row times its weight when weights are given."""
+    import cvxpy as cp
+    return cp.sum(terms) if weights is None else cp.sum(cp.multiply(np.asarray(weights, float), terms))
+
+
+def root_weights(weights, expr):
+    """cvxpy: sqrt(w) * expr (sum_squares of it is sum_i w_i expr_i^2); expr itself when unweighted."""
+    import cvxpy as cp
+    return expr if weights is None else cp.multiply(np.sqrt(np.asarray(weights, float)), expr)
+
+
+def row_weights(weights, n: int) -> np.ndarray:
+    return np.ones(n) if weights is None else as_float(weights)
+
+
 # ---------------------------------------------------------------- regression
 @dataclass(frozen=True)
 class SquaredLoss(Loss):
@@ -118,16 +138,16 @@ class SquaredLoss(Loss):
     def second_derivative(self, y, f):
         return np.ones_like(as_float(f))
 
-    def cvxpy_sum(self, y, f_expr):
+    def cvxpy_sum(self, y, f_expr, weights=None):
         import cvxpy as cp
-        return 0.5 * cp.sum_squares(y - f_expr)
+        return 0.5 * cp.sum_squares(root_weights(weights, y - f_expr))
 
     def conjugate(self, y, u):
         u = as_float(u)
         return u * as_float(y) + 0.5 * u**2
 
-    def intercept_only(self, y):
-        return float(np.mean(y))
+    def intercept_only(self, y, weights=None):
+        return float(np.average(as_float(y), weights=weights))
 
 
 @dataclass(frozen=True)
@@ -171,13 +191,13 @@ class QuantileLoss(Loss):
         shape = np.shape(y)
         return np.full(shape, -above), np.full(shape, below)
 
-    def cvxpy_sum(self, y, f_expr):
+    def cvxpy_sum(self, y, f_expr, weights=None):
         import cvxpy as cp
         # written with abs and a linear term, not pos/maximum: see the cvxpy/HiGHS
         # bound-propagation defect guarded in tests/test_l1_solvers.py
         above, below = self.slopes
         r = y - f_expr
-        return 0.5 * (above + below) * cp.sum(cp.abs(r)) + 0.5 * (above - below) * cp.sum(r)
+        return 0.5 * (above + below) * weighted_sum(cp.abs(r), weights) + 0.5 * (above - below) * weighted_sum(r, weights)
 
     def conjugate(self, y, u):
         u = as_float(u)
@@ -185,9 +205,9 @@ class QuantileLoss(Loss):
         ok = (u >= -above - 1e-12) & (u <= below + 1e-12)
         return outside_domain(ok, u * as_float(y))
 
-    def intercept_only(self, y):
+    def intercept_only(self, y, weights=None):
         above, below = self.slopes
-        return float(np.quantile(as_float(y), above / (above + below), method="inverted_cdf"))
+        return float(np.quantile(as_float(y), above / (above + below), method="inverted_cdf", weights=weights))
 
 
 @dataclass(frozen=True)
@@ -228,33 +248,34 @@ class HuberLoss(Loss):
         shape = np.shape(y)
         return np.full(shape, -self.delta), np.full(shape, self.delta)
 
-    def cvxpy_sum(self, y, f_expr):
+    def cvxpy_sum(self, y, f_expr, weights=None):
         import cvxpy as cp
         # cvxpy's huber(x, M) is x^2 inside, 2M|x| - M^2 outside: twice ours
-        return 0.5 * cp.sum(cp.huber(y - f_expr, self.delta))
+        return 0.5 * weighted_sum(cp.huber(y - f_expr, self.delta), weights)
 
     def conjugate(self, y, u):
         u = as_float(u)
         ok = np.abs(u) <= self.delta + 1e-12
         return outside_domain(ok, u * as_float(y) + 0.5 * u**2)
 
-    def intercept_only(self, y):
+    def intercept_only(self, y, weights=None):
         y = as_float(y)
+        w = row_weights(weights, y.shape[0])
         lo, hi = float(np.min(y)), float(np.max(y))
         if hi - lo == 0:
             return lo
-        res = minimize_scalar(lambda b: float(np.sum(self.value(y, b))), bounds=(lo, hi),
+        res = minimize_scalar(lambda b: float(w @ self.value(y, b)), bounds=(lo, hi),
                               method="bounded", options={"xatol": 1e-12 * max(1.0, hi - lo)})
         b = float(res.x)
-        # exact finish: sum clip(y - b, -delta, delta) = 0 is linear in b once the
+        # exact finish: sum w clip(y - b, -delta, delta) = 0 is linear in b once the
         # set of samples inside the quadratic zone is fixed
         for _ in range(50):
             r = y - b
             inside = np.abs(r) <= self.delta
             if not inside.any():
                 break
-            outside = np.sum(np.sign(r[~inside])) * self.delta
-            new = float((np.sum(y[inside]) + outside) / inside.sum())
+            outside = (w[~inside] @ np.sign(r[~inside])) * self.delta
+            new = float((w[inside] @ y[inside] + outside) / w[inside].sum())
             if new == b:
                 break
             b = new

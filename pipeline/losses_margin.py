@@ -6,7 +6,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.special import expit, xlogy
 
-from .losses import CLASSIFICATION, Loss, as_float, near_kink, outside_domain, register_loss
+from .losses import (CLASSIFICATION, Loss, as_float, near_kink, outside_domain, register_loss, root_weights,
+                     row_weights, weighted_sum)
 
 
 @dataclass(frozen=True)
@@ -26,9 +27,11 @@ class MarginLoss(Loss):
         reach = self.dual_reach
         return np.where(y > 0, -reach, 0.0), np.where(y > 0, 0.0, reach)
 
-    def _class_counts(self, y) -> tuple[int, int]:
+    def _class_counts(self, y, weights=None) -> tuple[float, float]:
+        """Rows (or total weight) of the +1 and the -1 class."""
         y = as_float(y)
-        return int(np.sum(y > 0)), int(np.sum(y < 0))
+        w = row_weights(weights, y.shape[0])
+        return float(w[y > 0].sum()), float(w[y < 0].sum())
 
 
 @dataclass(frozen=True)
@@ -51,9 +54,9 @@ class LogisticLoss(MarginLoss):
         p = expit(self._arg(y, f))
         return p * (1.0 - p)
 
-    def cvxpy_sum(self, y, f_expr):
+    def cvxpy_sum(self, y, f_expr, weights=None):
         import cvxpy as cp
-        return cp.sum(cp.logistic(-cp.multiply(y, f_expr)))
+        return weighted_sum(cp.logistic(-cp.multiply(y, f_expr)), weights)
 
     def conjugate(self, y, u):
         v = as_float(u) * as_float(y)
@@ -61,8 +64,8 @@ class LogisticLoss(MarginLoss):
         a = np.clip(-v, 0.0, 1.0)
         return outside_domain(ok, xlogy(a, a) + xlogy(1 - a, 1 - a))
 
-    def intercept_only(self, y):
-        pos, neg = self._class_counts(y)
+    def intercept_only(self, y, weights=None):
+        pos, neg = self._class_counts(y, weights)
         # one class only: the optimum runs off to infinity; a large finite logit stands in
         pos, neg = max(pos, 1e-12), max(neg, 1e-12)
         return float(np.log(pos / neg))
@@ -96,19 +99,19 @@ class HingeLoss(MarginLoss):
     def second_derivative(self, y, f):
         return np.zeros_like(as_float(f))
 
-    def cvxpy_sum(self, y, f_expr):
+    def cvxpy_sum(self, y, f_expr, weights=None):
         import cvxpy as cp
         # max(0, 1-m) = 0.5|1-m| + 0.5(1-m): avoids pos() (cvxpy/HiGHS bound defect)
         slack = 1 - cp.multiply(y, f_expr)
-        return 0.5 * cp.sum(cp.abs(slack)) + 0.5 * cp.sum(slack)
+        return 0.5 * weighted_sum(cp.abs(slack), weights) + 0.5 * weighted_sum(slack, weights)
 
     def conjugate(self, y, u):
         v = as_float(u) * as_float(y)
         ok = (v >= -1 - 1e-12) & (v <= 1e-12)
         return outside_domain(ok, v)
 
-    def intercept_only(self, y):
-        pos, neg = self._class_counts(y)
+    def intercept_only(self, y, weights=None):
+        pos, neg = self._class_counts(y, weights)
         return 1.0 if pos > neg else (-1.0 if neg > pos else 0.0)
 
 
@@ -128,17 +131,17 @@ class SquaredHingeLoss(MarginLoss):
     def second_derivative(self, y, f):
         return 2.0 * (self._arg(y, f) < 1).astype(float)
 
-    def cvxpy_sum(self, y, f_expr):
+    def cvxpy_sum(self, y, f_expr, weights=None):
         import cvxpy as cp
-        return cp.sum_squares(cp.pos(1 - cp.multiply(y, f_expr)))
+        return cp.sum_squares(root_weights(weights, cp.pos(1 - cp.multiply(y, f_expr))))
 
     def conjugate(self, y, u):
         v = as_float(u) * as_float(y)
         ok = v <= 1e-12
         return outside_domain(ok, v + 0.25 * v**2)
 
-    def intercept_only(self, y):
-        pos, neg = self._class_counts(y)
+    def intercept_only(self, y, weights=None):
+        pos, neg = self._class_counts(y, weights)
         total = pos + neg
         return float((pos - neg) / total) if total else 0.0
 

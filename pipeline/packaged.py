@@ -65,7 +65,7 @@ def export_state(result, r) -> tuple[dict[str, np.ndarray], dict]:
     """Arrays and metadata of one (family, loss) result at its chosen λ. The final path is refitted
     from the final-fit task's inputs (same training rows, seed, grid and options, one BLAS thread), which
     gives the same path as the experiment's fit task."""
-    from .fitting import build_features, target_scaling
+    from .fitting import build_features, fit_loss, target_scaling
     from .losses import get_loss
     from .models.families import get_family
     from .models.multiclass import ClassFits, for_classes
@@ -80,8 +80,8 @@ def export_state(result, r) -> tuple[dict[str, np.ndarray], dict]:
     with threadpool_limits(limits=1), captured_output([]):   # solver banners stay off the terminal
         builder = build_features(shared, rows)
         center, scale = target_scaling(shared, ds.y[rows])
-        fit = family.fit_path(builder.transform(ds.X[rows]), (ds.y[rows] - center) / scale, loss, r.lambdas,
-                              shared.family_options[family.key])
+        fit = family.fit_path(builder.transform(ds.X[rows]), (ds.y[rows] - center) / scale,
+                              fit_loss(shared, family.key, loss, rows), r.lambdas, shared.family_options[family.key])
     arrays = {"X_train": np.asarray(ds.X[rows], float), "lambdas": np.asarray(fit.lambdas, float),
               "intercept": np.asarray(fit.intercept, float)}
     # the representer form keeps its basis rows; K > 2 classes fitted one versus the rest: one path per

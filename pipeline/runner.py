@@ -14,8 +14,9 @@ from .evaluate import Evaluation, decisions_for, evaluate_results, test_metrics
 from .cache import cache_for, run_cached, task_keys
 from .execution import run_tasks
 from .features import output_width
-from .fitting import FitOutcome, FitTask, Shared, build_features, run_fit, target_scaling
+from .fitting import FitOutcome, FitTask, Shared, build_features, fit_loss, run_fit, target_scaling
 from .losses import get_loss
+from .losses_weighted import describe_weighting
 from .models.families import FAMILIES, get_family
 from .models.multiclass import for_classes
 from .selection import L2_CRITERIA, choose_lambda_index, cv_summary, nested_estimate
@@ -77,6 +78,7 @@ class ExperimentResult:
     selection_paths: dict = field(default_factory=dict)  # (loss label, family) -> (L, p) selection probabilities
     design: str = ""                                  # one line: how test rows and CV folds were formed
     solver_output: tuple[str, ...] = ()   # what fits printed or warned (solver banners), kept out of the terminal
+    weighting: str = ""                   # which row weights the fits (and metrics) used; "" when none
 
 
 def check_feature_budget(spec: ExperimentSpec, dataset: Dataset, n_train: int) -> int:
@@ -123,7 +125,8 @@ def family_grids(spec, shared, train_rows, losses) -> list[dict]:
         grids = {}
         for f in enabled_families(spec):
             if f.key not in shared_grid:
-                grids[f.key] = for_classes(f, shared.n_classes).grid(Z, t, loss, shared.family_options[f.key])
+                grids[f.key] = for_classes(f, shared.n_classes).grid(Z, t, fit_loss(shared, f.key, loss, train_rows),
+                                                                     shared.family_options[f.key])
                 if not f.grid_reads_loss:
                     shared_grid[f.key] = grids[f.key]
             else:
@@ -199,8 +202,8 @@ def fit_with_widening(spec, shared, train_rows, splits, run) -> tuple[list, list
             if problem is None:
                 problem = training_problem(shared, train_rows)
             fam = for_classes(get_family(key[1]), shared.n_classes)
-            pending[key] = fam.grid(*problem, loss_of[key[0]], shared.family_options[key[1]],
-                                    widen=tuple(widened[key]))
+            pending[key] = fam.grid(*problem, fit_loss(shared, key[1], loss_of[key[0]], train_rows),
+                                    shared.family_options[key[1]], widen=tuple(widened[key]))
             grids[key] = pending[key]
         if not pending:
             break
@@ -215,6 +218,11 @@ def _choose(spec, cv_errors, final, n_rows: int) -> tuple[int, str]:
     if crit.values is not None and final.loo_error is not None:
         return int(np.nanargmin(crit.values(final, n_rows))), f"{crit.name} ({crit.description})"
     return choose_lambda_index(cv_errors, spec.selection.rule), f"{spec.selection.cv_folds}-fold CV, {spec.selection.rule}"
+
+
+def metric_weights(spec, shared, test_rows):
+    """The test rows' weights when the held-out metrics are weighted (verdict.weighted_metrics), else None."""
+    return shared.weights[test_rows] if spec.verdict.weighted_metrics and shared.weights is not None else None
 
 
 def assemble(spec, shared, tasks, outcomes, test_rows, rng, decisions=None, scale=1.0, widened=None,
@@ -236,7 +244,7 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng, decisions=None, scal
         pred = final.eval_pred[idx]
         metrics, intervals = test_metrics(shared.task, y_test, pred, loss, rng, level=spec.report.level,
                                           decision=(decisions or {}).get(label), scale=scale,
-                                          strategy=final.multiclass)
+                                          strategy=final.multiclass, weights=metric_weights(spec, shared, test_rows))
         results.append(FamilyResult(
             family=family, loss_label=label, loss_name=final_task.loss_name,
             loss_params=dict(final_task.loss_params), lambdas=final_task.lambdas, cv_errors=cv_errors,
@@ -292,10 +300,12 @@ def shared_inputs(spec: ExperimentSpec, dataset: Dataset, n_train: int) -> Share
     Each family's route is fixed once from the number of training rows."""
     return Shared(X=dataset.X, y=dataset.y, task=dataset.task, feature_maps=spec.features.maps,
                   feature_seed=spec.seed, input_names=dataset.feature_names,
-                  family_options={f.key: f.for_training_rows(f.options(getattr(spec.families, f.key),
-                                                                       seeds.int_seed(spec.seed, "landmarks")),
-                                                             n_train)
-                                  for f in FAMILIES}, n_classes=dataset.n_classes)
+                  family_options={f.key: {**f.for_training_rows(f.options(getattr(spec.families, f.key),
+                                                                          seeds.int_seed(spec.seed, "landmarks")),
+                                                                n_train),
+                                          "class_weight": getattr(spec.families, f.key).class_weight}
+                                  for f in FAMILIES},
+                  n_classes=dataset.n_classes, weights=dataset.weights)
 
 
 @dataclass(frozen=True)
@@ -367,7 +377,8 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     evaluation = evaluate_results(results, task=dataset.task, y_test=dataset.y[test_rows],
                                   fold_sizes=(len(fold0[1]), len(fold0[2])), dataset=dataset,
                                   feature_names=feature_names, seed=spec.seed, level=spec.report.level,
-                                  decisions=decisions, scales={label: scale for label in decisions})
+                                  decisions=decisions, scales={label: scale for label in decisions},
+                                  weights=metric_weights(spec, shared, test_rows))
     stability = stability_stage(spec, results, feature_names,
                                 lambda: build_features(shared, train_rows).transform(shared.X[train_rows]))
     return ExperimentResult(spec=spec, dataset=dataset, data_hash=data_hash, train_rows=train_rows,
@@ -377,4 +388,8 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
                             fit_seconds_total=float(sum(o.fit_seconds for o in outcomes)),
                             evaluation=evaluation, stability=stability.summaries,
                             design=describe_design(spec, dataset, train_rows, test_rows, splits),
-                            selection_paths=stability.selection_paths, solver_output=tuple(output))
+                            selection_paths=stability.selection_paths, solver_output=tuple(output),
+                            weighting=describe_weighting(getattr(spec.data, "weights", None),
+                                                         {f.title: getattr(spec.families, f.key).class_weight
+                                                          for f in enabled_families(spec)},
+                                                         spec.verdict.weighted_metrics))

@@ -30,6 +30,7 @@ import mlflow  # noqa: E402
 from mlflow.entities import Metric, Param, RunTag  # noqa: E402
 from mlflow.tracking import MlflowClient  # noqa: E402
 
+from .losses_weighted import weights_label  # noqa: E402
 from .models.families import get_family  # noqa: E402
 from .serving import log_model  # noqa: E402
 from .store import artifact_location, ensure_store, spreadsheet_safe  # noqa: E402
@@ -231,7 +232,8 @@ class ExecutionLog:
             Param("n_columns", str(ds.n_features)), Param("n_features_built", str(len(result.feature_names))),
             Param("n_train", str(len(result.train_rows))), Param("n_test", str(len(result.test_rows))),
             Param("seed", str(result.spec.seed)), Param("cv_folds", str(result.spec.selection.cv_folds)),
-            Param("selection_rule", result.spec.selection.rule)],
+            Param("selection_rule", result.spec.selection.rule),
+            Param("weighted_metrics", str(result.spec.verdict.weighted_metrics))],
             tags=[RunTag("penduel.data_hash", result.data_hash)])
         if getattr(result, "solver_output", ()):   # solver banners and warnings, kept off the terminal
             self.client.log_text(self.run_id, "\n\n".join(result.solver_output), "solver_output.txt")
@@ -260,6 +262,8 @@ class ExecutionLog:
         family = get_family(r.family)
         section = getattr(result.spec.families, family.key)
         params += [Param(name, str(getattr(section, name))) for name in family.tracked_settings]
+        params.append(Param("row_weights", weights_label(getattr(result.spec.data, "weights", None),
+                                                         section.class_weight)))
         ts = 0
         metrics = []
         for step, lam in enumerate(r.lambdas):

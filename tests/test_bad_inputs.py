@@ -45,6 +45,11 @@ def _file_config(path="data.csv", target="y", kind="csv", losses="[squared]"):
     return f"name: bad\ndata: {{kind: {kind}, path: {path}, target: {target}}}\nlosses: {losses}\n" + SMALL
 
 
+def _weights_config(column="w"):
+    return (f"name: bad\ndata: {{kind: csv, path: data.csv, target: y, weights: {column}}}\nlosses: [squared]\n"
+            + SMALL.replace("selection: {cv_folds: 3}\n", ""))
+
+
 # id: (files to write, config text, culprit texts the message must contain)
 CASES = {
     "config file missing": ({}, None, ["not found", "nowhere.yaml"]),
@@ -175,6 +180,23 @@ CASES.update({
                                       _file_config(losses="[logistic]"), ["selection.cv_folds", "smaller class"]),
     "one test row": ({"data.csv": _csv(_frame(n=40))}, _file_config() + "split: {test_fraction: 0.02}\n",
                      ["split.test_fraction", "1 test row(s)", "at least 5"]),
+    # ------------------------------------------------------------ row weights (data.weights, class_weight)
+    "negative row weight": ({"data.csv": _csv(_with(_frame(w=1.0), "w", 3, -1.0))}, _weights_config(),
+                            ["data.weights", "column 'w'", "-1.0", "data row 4", "above 0"]),
+    "missing row weight": ({"data.csv": _csv(_with(_frame(w=2.0), "w", 6, np.nan))}, _weights_config(),
+                           ["data.weights", "a missing value", "data row 7"]),
+    "zero row weight": ({"data.csv": _csv(_with(_frame(w=1.0), "w", 0, 0.0))}, _weights_config(),
+                        ["data.weights", "0.0", "data row 1", "leave out of the file"]),
+    "text row weight": ({"data.csv": _csv(_with(_frame(w=1.0), "w", 2, "heavy"))}, _weights_config(),
+                        ["data.weights", "'heavy'", "data row 3"]),
+    "row-weight column absent": ({"data.csv": _csv(_frame())}, _weights_config(), ["data.weights", "column 'w'",
+                                                                                 "is not in"]),
+    "row weights are the target": ({"data.csv": _csv(_frame())}, _weights_config("y"),
+                                   ["data.weights", "is the target"]),
+    "class balance on a regression loss": ({}, _plain("families: {l1: {class_weight: balanced}}\n"),
+                                           ["families.l1.class_weight", "no classes to balance"]),
+    "weighted metrics without row weights": ({}, _plain("verdict: {weighted_metrics: true}\n"),
+                                             ["verdict.weighted_metrics", "data.weights names no column"]),
     # ------------------------------------------------------------ numbers that are not numbers
     "huber delta infinite": ({}, _plain("losses: [{name: huber, delta: .inf}]\n"), ["losses[1].delta", "inf",
                                                                                    "only finite numbers"]),

@@ -238,3 +238,15 @@ def test_a_family_with_a_multinomial_fitter_takes_it_for_losses_declared_multino
     assert np.allclose(path_losses(logistic, codes, F, fit.multiclass),
                        [skm.log_loss(codes, softmax(f, axis=1), labels=[0, 1, 2]) for f in F])
     assert several.fit_path(Z, codes, hinge, several.grid(Z, codes, hinge, opts), opts).multiclass == ONE_VERSUS_REST
+
+
+def test_weighted_logistic_goes_one_versus_rest_because_the_multinomial_fitters_take_no_weights():
+    from pipeline.losses_weighted import weighted
+    Z, codes = _blobs()
+    w = np.linspace(1.0, 3.0, len(codes))
+    loss = weighted(get_loss("logistic"), w)
+    opts = {"tol": 1e-8, "solver": "auto", "alpha": 1.0, "n_lambdas": 3, "lambda_ratio": 0.2}
+    several = for_classes(SPARSE, 3)
+    assert several.strategy(loss) == ONE_VERSUS_REST and several.strategy(get_loss("logistic")) == MULTINOMIAL
+    fit = several.fit_path(Z, codes, loss, several.grid(Z, codes, loss, opts), opts)
+    assert fit.multiclass == ONE_VERSUS_REST and "or with row weights" in fit.note

@@ -31,6 +31,20 @@ def _check_solver(spec) -> None:
                              f"or a solver that handles every listed loss") from None
 
 
+def _check_weights(spec) -> None:
+    """Row weights and class balance: where they apply."""
+    column = getattr(spec.data, "weights", None)
+    for fam in ("l1", "l2"):
+        section = getattr(spec.families, fam)
+        if section.class_weight != "none" and spec.task != "classification":
+            raise ValueError(f"families.{fam}.class_weight is '{section.class_weight}', but the losses are "
+                             f"{spec.task} losses, which have no classes to balance; remove it, or give row "
+                             f"weights as a column with data.weights")
+    if spec.verdict.weighted_metrics and column is None:
+        raise ValueError("verdict.weighted_metrics is true but data.weights names no column; name the column of "
+                         "row weights in data.weights, or set verdict.weighted_metrics to false")
+
+
 def _check_stability(spec) -> None:
     st = spec.stability
     if not st.enabled:
@@ -106,6 +120,7 @@ class ExperimentSpec(Settings):
                                  f"metric, but the losses are {self.task} losses; allowed: "
                                  f"{', '.join(n for n in METRICS if METRICS[n].task == self.task)}")
         _check_solver(self)
+        _check_weights(self)
         _check_stability(self)
         if self.data.kind == "scenario":   # checked before the rows are drawn
             mib = self.data.n_samples * self.data.n_features * 8 / 2**20

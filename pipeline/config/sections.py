@@ -31,6 +31,12 @@ class FeaturesSpec(Settings):
         return v
 
 
+CLASS_WEIGHTS = ("none", "balanced")
+CLASS_WEIGHT_TEXT = ("Classification only: 'balanced' weights each training row n / (K · n_class), computed on the "
+                     "training rows of each fit (times the data.weights column when given); 'none' leaves rows "
+                     "as they are.")
+
+
 class L1PathSpec(Settings):
     points: int = Field(30, ge=2, le=500, description="How many λ values the path has, geometric from the largest "
                                                       "(λ_max: the smallest λ whose solution is all zero) down.")
@@ -47,6 +53,7 @@ class L1Spec(Settings):
     l1_share: float = Field(1.0, gt=0.0, le=1.0, description="Share of the penalty that is L1 (elastic net): "
                                                              "Ω = s‖w‖₁ + (1−s)/2‖w‖²₂ with s this share; 1 is "
                                                              "the lasso.")
+    class_weight: Literal[CLASS_WEIGHTS] = Field("none", description=CLASS_WEIGHT_TEXT)
 
 
 # Settings of L2Spec that are kernel parameters; "median" means: let the kernel choose.
@@ -69,6 +76,7 @@ class L2Spec(Settings):
         "median", description="Length scale of rbf, laplacian and Matérn kernels, or 'median' for the median "
                               "pairwise distance of the training rows of each fit.")
     degree: int = Field(3, ge=1, le=10, description="Degree of the polynomial kernel (1 + xᵀz/p)^degree.")
+    class_weight: Literal[CLASS_WEIGHTS] = Field("none", description=CLASS_WEIGHT_TEXT)
 
     @field_validator("bandwidth")
     @classmethod
@@ -180,6 +188,9 @@ class VerdictSpec(Settings):
         None, description="Held-out metric that decides between the families for every loss; by default each "
                           "loss is judged on its own scale (squared: rmse, absolute: mae, quantile: pinball at τ, "
                           "huber: huber, logistic: log_loss, hinge and squared_hinge: balanced_accuracy).")
+    weighted_metrics: bool = Field(False, description="Weight the held-out metrics, their bootstrap intervals and "
+                                                      "the paired comparison by the test rows' data.weights (needs "
+                                                      "data.weights); by default every test row counts once.")
 
 
 class CacheSpec(Settings):

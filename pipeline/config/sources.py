@@ -21,6 +21,10 @@ class FileSource(SourceBase):
     kind: Literal["csv", "parquet"] = Field(description="Read a CSV or Parquet file.")
     path: str = Field(description="File path, relative to the config file's folder.")
     target: str = Field(description="Name of the column to predict.")
+    weights: str | None = Field(None, description="Column of row weights (positive numbers; never a feature). "
+                                                  "Every fit minimises the weighted mean loss, so an integer weight "
+                                                  "counts a row that many times; held-out metrics stay unweighted "
+                                                  "unless verdict.weighted_metrics is true.")
     task: Literal["auto", "regression", "classification"] = Field(
         "auto", description="What the target is. 'auto': text or true/false values, two distinct values, or at "
                             "most 10 integer codes each in at least 5 rows are class labels (classification), "

@@ -54,6 +54,8 @@ class Dataset:
     notes: tuple[str, ...] = field(default_factory=tuple)  # what loading changed (dropped columns, encodings)
     design: RowDesign | None = None     # groups / order / fixed test rows named in the split section
     inputs: tuple[InputColumn, ...] = ()   # raw columns behind feature_names; empty: one numeric column each
+    weights: np.ndarray | None = None   # (n,) positive row weights from the data.weights column; None: unweighted
+    weights_name: str = ""              # that column's name
 
     @property
     def n_samples(self) -> int:
@@ -77,6 +79,9 @@ class Dataset:
         if self.design is not None:
             for a in self.design.arrays():
                 h.update(np.ascontiguousarray(a, dtype=np.float64).tobytes())
+        if self.weights is not None:
+            h.update(b"weights")
+            h.update(np.ascontiguousarray(self.weights, dtype=np.float64).tobytes())
         return h.hexdigest()[:16]
 
     def summary(self) -> dict:
@@ -99,4 +104,8 @@ class Dataset:
                        target_min=float(y.min()), target_max=float(y.max()))
         if self.truth is not None:
             out["true_support_size"] = len(self.truth.support)
+        if self.weights is not None:
+            w = self.weights
+            out["row_weights"] = (f"column '{self.weights_name}': from {w.min():.4g} to {w.max():.4g}, "
+                                  f"total {w.sum():.4g} over {w.size} rows")
         return out

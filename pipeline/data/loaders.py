@@ -14,6 +14,7 @@ from .dataset import DataError, Dataset, InputColumn
 from .design import attach_test_file, take_design
 from .scenarios import make_scenario
 from .task import infer_task
+from .weights import take_weights
 
 MAX_CATEGORY_LEVELS = 50
 
@@ -46,9 +47,12 @@ def load_dataset(source, base_dir: pathlib.Path, task: str, split=None) -> Datas
         if inferred == CLASSIFICATION and inferred == task:
             notes.append(f"data.task auto: {reason}, so it is treated as class labels (classification); set "
                          f"data.task: regression to treat a numeric code as a quantity")
+    frame, weights = take_weights(frame, getattr(source, "weights", None), source.target, str(path),
+                                  split.columns if split is not None else ())
     frame, design = take_design(frame, split, source.target, str(path), holdout)
     ds = frame_to_dataset(frame, source.target, task, source=str(path))
-    return dataclasses.replace(ds, design=design, notes=tuple(notes) + ds.notes)
+    return dataclasses.replace(ds, design=design, notes=tuple(notes) + ds.notes, weights=weights,
+                               weights_name=getattr(source, "weights", None) or "")
 
 
 def read_table(path: pathlib.Path, kind: str) -> pd.DataFrame:

@@ -51,6 +51,10 @@ class Metric:
     on_demand: bool = False
     # classification: the same score for K > 2 classes (codes 0..K−1, decision values (m, K)); see classes.py
     classes: "Metric | None" = field(default=None, repr=False, compare=False)
+    # (y, pred, W) -> (B,) the metric with row weights W[b] (B, n): weighted held-out metrics
+    # (verdict.weighted_metrics, pipeline.evaluate.weighted); None: this metric has no weighted form
+    weighted: Callable[[np.ndarray, np.ndarray, np.ndarray], np.ndarray] | None = field(default=None, repr=False,
+                                                                                         compare=False)
 
     @property
     def higher_is_better(self) -> bool:
@@ -74,6 +78,15 @@ def _mean_of(pointwise: Callable[[np.ndarray, np.ndarray], np.ndarray]):
     """Resampled form of a mean of per-row losses: the losses are computed once on all
     rows and only gathered per resample (no (B, n) arithmetic)."""
     return lambda y, pred, idx: pointwise(y, pred)[idx].mean(axis=1)
+
+
+def _weighted_mean_of(pointwise: Callable[[np.ndarray, np.ndarray], np.ndarray]):
+    """Weighted form of a mean of per-row losses: sum w l / sum w for each row of weights W (B, n)."""
+    return lambda y, pred, W: (W @ pointwise(y, pred)) / W.sum(axis=1)
+
+
+def resample_counts(idx: np.ndarray, n: int) -> np.ndarray:
+    return _resample_counts(idx, n)
 
 
 def _resample_counts(idx: np.ndarray, n: int) -> np.ndarray:
@@ -129,13 +142,17 @@ def _balanced_accuracy_resampled(y, decision, idx):
 
 
 def _roc_auc_resampled(y, decision, idx):
-    # Mann-Whitney form of the AUC with ties counted one half, from resample counts:
+    return _roc_auc_counted(y, decision, _resample_counts(idx, len(y)))
+
+
+def _roc_auc_counted(y, decision, counts):
+    # Mann-Whitney form of the AUC with ties counted one half, from per-row counts (or weights) (B, n):
     # rows are sorted once by decision and grouped into tie blocks, so no resample is
     # sorted again (O(B n) instead of O(B n log n)).
     order = np.argsort(decision, kind="stable")
     f_sorted = decision[order]
     starts = np.concatenate([[0], np.flatnonzero(np.diff(f_sorted)) + 1])
-    counts = _resample_counts(idx, len(y))[:, order].astype(float)
+    counts = counts[:, order].astype(float)
     pos = (y[order] > 0)
     pos_groups = np.add.reduceat(counts * pos, starts, axis=1)
     neg_groups = np.add.reduceat(counts * ~pos, starts, axis=1)
@@ -144,6 +161,23 @@ def _roc_auc_resampled(y, decision, idx):
     with np.errstate(divide="ignore", invalid="ignore"):
         auc = np.sum(pos_groups * (below + neg_groups / 2), axis=1) / (n_pos * n_neg)
     return np.where((n_pos > 0) & (n_neg > 0), auc, np.nan)
+
+
+def _r2_weighted(y, f, W):
+    total = W.sum(axis=1)
+    mean = (W @ y) / total
+    sse = W @ _squared(y, f)
+    sst = np.sum(W * (y[None, :] - mean[:, None]) ** 2, axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(sst == 0, np.where(sse == 0, 1.0, 0.0), 1.0 - sse / sst)
+
+
+def _balanced_accuracy_weighted(y, decision, W):
+    hit, pos = (_labels(decision) == y), y > 0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        tpr = (W @ (hit & pos)) / (W @ pos)
+        tnr = (W @ (hit & ~pos)) / (W @ ~pos)
+    return np.nanmean(np.stack([tpr, tnr]), axis=0)
 
 
 def _roc_auc_single(y, decision):
@@ -168,6 +202,7 @@ def _brier_pointwise(y, decision):
 def _pinball_metric(tau: float) -> Metric:
     return Metric("pinball", "regression", True, lambda y, f: skm.mean_pinball_loss(y, f, alpha=tau),
                   _mean_of(_pinball(tau)), title=f"pinball loss at τ = {tau:g}", unit="target",
+                  weighted=_weighted_mean_of(_pinball(tau)),
                   at_level=_pinball_metric, from_loss=lambda loss, scale: _pinball_metric(getattr(loss, "tau", 0.5)))
 
 
@@ -184,6 +219,7 @@ def _huber_metric(delta: float) -> Metric:
     pointwise = _huber(delta)
     return Metric("huber", "regression", True, lambda y, f: float(np.mean(pointwise(y, f))), _mean_of(pointwise),
                   title=f"mean Huber loss (threshold {delta:.3g})", unit="target squared", on_demand=True,
+                  weighted=_weighted_mean_of(pointwise),
                   from_loss=lambda loss, scale: _huber_metric(getattr(loss, "delta", 1.0) * scale))
 
 
@@ -195,33 +231,39 @@ _REG, _CLS = "regression", "classification"
 
 # The registry. Order within a task is the order metrics are reported in.
 METRICS: dict[str, Metric] = {m.name: m for m in (
-    Metric("mse", _REG, True, skm.mean_squared_error, _mean_of(_squared), title="MSE", unit="target squared"),
-    Metric("rmse", _REG, True, skm.root_mean_squared_error, _rmse_resampled, title="RMSE", unit="target"),
-    Metric("mae", _REG, True, skm.mean_absolute_error, _mean_of(_absolute), title="MAE", unit="target"),
+    Metric("mse", _REG, True, skm.mean_squared_error, _mean_of(_squared), title="MSE", unit="target squared",
+           weighted=_weighted_mean_of(_squared)),
+    Metric("rmse", _REG, True, skm.root_mean_squared_error, _rmse_resampled, title="RMSE", unit="target",
+           weighted=lambda y, f, W: np.sqrt(_weighted_mean_of(_squared)(y, f, W))),
+    Metric("mae", _REG, True, skm.mean_absolute_error, _mean_of(_absolute), title="MAE", unit="target",
+           weighted=_weighted_mean_of(_absolute)),
     _pinball_metric(0.5),
-    Metric("r2", _REG, False, skm.r2_score, _r2_resampled, title="R²"),
+    Metric("r2", _REG, False, skm.r2_score, _r2_resampled, title="R²", weighted=_r2_weighted),
     _huber_metric(1.0),
     Metric("accuracy", _CLS, False, lambda y, f: skm.accuracy_score(y, _labels(f)), _mean_of(_hits),
-           title="accuracy", interval="wilson", hits=_hits,
+           title="accuracy", interval="wilson", hits=_hits, weighted=_weighted_mean_of(_hits),
            classes=Metric("accuracy", _CLS, False, cls.accuracy, _mean_of(cls.hits), title="accuracy",
                           interval="wilson", hits=cls.hits)),
     Metric("misclassification", _CLS, True, lambda y, f: 1.0 - skm.accuracy_score(y, _labels(f)),
            _mean_of(_misses), title="misclassification rate", interval="wilson", hits=_hits,
+           weighted=_weighted_mean_of(_misses),
            classes=Metric("misclassification", _CLS, True, lambda y, f: 1.0 - cls.accuracy(y, f),
                           _mean_of(cls.misses), title="misclassification rate", interval="wilson", hits=cls.hits)),
     Metric("balanced_accuracy", _CLS, False, lambda y, f: skm.balanced_accuracy_score(y, _labels(f)),
            _balanced_accuracy_resampled, title="balanced accuracy", interval="mover_wilson", hits=_hits,
+           weighted=_balanced_accuracy_weighted,
            classes=Metric("balanced_accuracy", _CLS, False, cls.balanced_accuracy, cls.balanced_accuracy_resampled,
                           title="balanced accuracy", interval="mover_wilson_classes", hits=cls.hits)),
     Metric("roc_auc", _CLS, False, _roc_auc_single, _roc_auc_resampled, title="ROC AUC", interval="newcombe_auc",
+           weighted=_roc_auc_counted,
            classes=Metric("roc_auc", _CLS, False, cls.macro_auc, cls.macro_auc_resampled(_roc_auc_resampled),
                           title="ROC AUC (macro one-versus-rest)")),
     Metric("log_loss", _CLS, True, lambda y, f: skm.log_loss(y, expit(f), labels=[-1, 1]),
-           _mean_of(_log_loss_pointwise), title="log-loss",
+           _mean_of(_log_loss_pointwise), title="log-loss", weighted=_weighted_mean_of(_log_loss_pointwise),
            classes=Metric("log_loss", _CLS, True, cls.log_loss, _mean_of(cls.log_loss_pointwise),
                           title="log-loss (softmax of the class scores)")),
     Metric("brier", _CLS, True, lambda y, f: skm.brier_score_loss(y, expit(f), pos_label=1),
-           _mean_of(_brier_pointwise), title="Brier score",
+           _mean_of(_brier_pointwise), title="Brier score", weighted=_weighted_mean_of(_brier_pointwise),
            classes=Metric("brier", _CLS, True, cls.brier, _mean_of(cls.brier_pointwise),
                           title="Brier score (sum over classes)")),
 )}
@@ -271,7 +313,7 @@ def loss_metric(loss) -> Metric:
     per-row `.value(y, f)`), so each loss's own objective can be bootstrapped."""
     return Metric(f"{loss.name}_loss", getattr(loss, "task", "any"), True,
                   lambda y, f: float(np.mean(loss.value(y, f))),
-                  _mean_of(loss.value))
+                  _mean_of(loss.value), weighted=_weighted_mean_of(loss.value))
 
 
 def regression_metrics(y, pred, tau: float = 0.5) -> dict[str, float]:

@@ -21,6 +21,7 @@ from .decision import Decision, decide, reconcile
 from .intervals import bootstrap_metrics
 from .metrics import PRIMARY, bound_metric, classes_form, classes_loss_metric, loss_metric, primary_metric, task_metrics
 from .truth import truth_scores
+from .weighted import maybe_weighted
 
 N_BOOT = 1000       # resamples of the test rows, for metric intervals and the paired verdict
 
@@ -43,17 +44,20 @@ def _with_bounded_interval(m, y, pred, est, boot_interval, level):
 
 
 def test_metrics(task: str, y, pred, loss, rng, *, level: float, decision: Decision | None = None,
-                 scale: float = 1.0, strategy: str = "") -> tuple[dict, dict]:
+                 scale: float = 1.0, strategy: str = "", weights=None) -> tuple[dict, dict]:
     """Held-out metrics at the chosen λ, each with an interval at `level`: a seeded bootstrap over the
     test rows for means of per-row losses (all from the same resampled rows), a bounded interval for
     proportions and AUC (`bounded`). The decision's metrics are included (pinball at τ, Huber at δ);
     classification adds the loss's own mean held-out value. With K > 2 classes `pred` is (m, K) and each
-    metric is its K-class form; `strategy` says how the classes were fitted (models.multiclass)."""
+    metric is its K-class form; `strategy` says how the classes were fitted (models.multiclass). With
+    `weights` (the test rows' weights, verdict.weighted_metrics) every metric is weighted and its interval
+    bootstrapped (`weighted`)."""
     names = list(task_metrics(task))
     names += [n for n in (decision.names if decision else ()) if n not in names]
     wanted = [classes_form(bound_metric(name, loss, scale), pred) for name in names]
     if task == "classification":  # regression losses are read on the fitting scale, see FitOutcome.eval_loss
         wanted.append(loss_metric(loss) if np.ndim(pred) < 2 else classes_loss_metric(loss, strategy))
+    wanted = [maybe_weighted(m, weights) for m in wanted]
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)  # resamples where a metric is undefined are dropped
         boot = bootstrap_metrics(y, pred, wanted, n_boot=N_BOOT, level=level, rng=rng)
@@ -95,7 +99,7 @@ def fold_comparisons(results, fold_sizes, level: float = 0.9) -> dict:
 
 
 def paired_verdicts(results, y_test, decisions: dict, rng, *, level: float, scales: dict | None = None,
-                    fold_tests: dict | None = None) -> tuple[dict, ...]:
+                    fold_tests: dict | None = None, weights=None) -> tuple[dict, ...]:
     """Per loss: its decision metric on the test rows, the sparse family's advantage with a paired
     interval, the verdict sentence and, when the fold test disagrees, which to trust."""
     from ..losses import get_loss
@@ -107,7 +111,7 @@ def paired_verdicts(results, y_test, decisions: dict, rng, *, level: float, scal
                "sentence": "Only one family was fitted.", "reconcile": None}
         if a is not None:
             loss = get_loss(a.loss_name, **a.loss_params)
-            metric = bound_metric(d.metric, loss, (scales or {}).get(label, 1.0))
+            metric = maybe_weighted(bound_metric(d.metric, loss, (scales or {}).get(label, 1.0)), weights)
             pair = compare_pair(y_test, a.test_pred, b.test_pred, metric, name_a=a.title, name_b=b.title,
                                 rng=rng, n_boot=N_BOOT, level=level, unit=d.unit)
             row.update(diff=pair["diff"], low=pair["diff_low"], high=pair["diff_high"], sentence=pair["verdict"],
@@ -126,9 +130,11 @@ def paired_verdicts(results, y_test, decisions: dict, rng, *, level: float, scal
 
 
 def evaluate_results(results, *, task: str, y_test, fold_sizes, dataset, feature_names, seed: int,
-                     level: float = 0.9, decisions: dict | None = None, scales: dict | None = None) -> Evaluation:
+                     level: float = 0.9, decisions: dict | None = None, scales: dict | None = None,
+                     weights=None) -> Evaluation:
     """The comparisons and scores of the evaluation stage (the held-out metrics with their intervals
-    are already on each family result, from `test_metrics`)."""
+    are already on each family result, from `test_metrics`); `weights`: the test rows' weights when the
+    metrics are weighted."""
     rng = seeds.generator(seed, "paired_difference")
     if decisions is None:
         decisions = {r.loss_label: decide(r.loss_name, task) for r in results}
@@ -136,6 +142,7 @@ def evaluate_results(results, *, task: str, y_test, fold_sizes, dataset, feature
     return Evaluation(
         primary=PRIMARY[task], primary_lower_is_better=primary_metric(task).lower_is_better,
         fold_tests=folds,
-        verdicts=paired_verdicts(results, y_test, decisions, rng, level=level, scales=scales, fold_tests=folds),
+        verdicts=paired_verdicts(results, y_test, decisions, rng, level=level, scales=scales, fold_tests=folds,
+                                 weights=weights),
         truth={(r.loss_label, r.family): truth_scores(dataset, feature_names, r.coefficients) for r in results},
         decisions=decisions, level=level)

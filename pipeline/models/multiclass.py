@@ -108,7 +108,8 @@ class SeveralClasses:
     def strategy(self, loss, options: dict | None = None, n_rows: int = 0) -> str:
         """How this family fits `loss` on several classes: the loss's declared way where the family can
         (on these options and training rows, when given)."""
-        if loss.multiclass == MULTINOMIAL and self.family.fits_multinomial and (
+        # the multinomial fitters take no row weights: a weighted loss goes one versus the rest
+        if loss.multiclass == MULTINOMIAL and self.family.fits_multinomial and loss.row_factors is None and (
                 options is None or self.family.takes_multinomial(options, n_rows)):
             return MULTINOMIAL
         return ONE_VERSUS_REST
@@ -119,7 +120,7 @@ class SeveralClasses:
         declared = loss.multiclass or ONE_VERSUS_REST     # a loss that declares nothing: one versus the rest
         if way != declared:
             text += (f" (the {loss.name} loss is declared {STRATEGY_TEXT[declared]}, but this family's route for "
-                     f"these settings has no multinomial fitter, so each class is fitted against the rest on one "
+                     f"these settings (or with row weights) has no multinomial fitter, so each class is fitted against the rest on one "
                      f"shared λ grid)")
         elif way == ONE_VERSUS_REST:
             text += " on one shared λ grid"
@@ -175,11 +176,12 @@ def row_losses(loss, codes, F, strategy: str) -> np.ndarray:
     return np.sum([loss.value(class_targets(codes, k), F[:, k]) for k in range(F.shape[1])], axis=0)
 
 
-def path_losses(loss, t, F_path, strategy: str = "") -> np.ndarray:
-    """(L,) mean held-out loss along a path of decision values: (L, m) for one output, (L, m, K) for K classes."""
+def path_losses(loss, t, F_path, strategy: str = "", weights=None) -> np.ndarray:
+    """(L,) mean held-out loss along a path of decision values: (L, m) for one output, (L, m, K) for K classes;
+    weighted by the rows' `weights` where given."""
     if np.ndim(F_path) == 3:
-        return np.array([row_losses(loss, t, F, strategy).mean() for F in F_path])
-    return np.array([loss.value(t, f).mean() for f in F_path])
+        return np.array([np.average(row_losses(loss, t, F, strategy), weights=weights) for F in F_path])
+    return np.array([np.average(loss.value(t, f), weights=weights) for f in F_path])
 
 
 def output_scale(builder, coef, intercept):

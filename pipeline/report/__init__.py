@@ -231,6 +231,7 @@ def render(p: dict, run_id: str) -> str:
     data_rows += [("features built", f"{p['n_features_built']} (maps: {', '.join(p['feature_maps'])})"),
                   ("training rows", p["n_train"]), ("test rows", p["n_test"])]
     data_rows += [("split design", p["design"])] if p.get("design") else []
+    data_rows += [("row weights", p["weighting"])] if p.get("weighting") else []
     css = (resources.files("pipeline.report") / "templates" / "report.css").read_text(encoding="utf-8")
     return template_env().get_template("execution.html").render(
         name=p["name"], description=p["description"], run_id=run_id,

@@ -111,6 +111,7 @@ def build_payload(result) -> dict:
         "class_labels": list(result.dataset.class_labels or ()),
         "several_classes": f"{SELECTED_SENTENCE} {PROBABILITY_SENTENCE}" if result.dataset.n_classes > 2 else "",
         "design": getattr(result, "design", ""),
+        "weighting": getattr(result, "weighting", ""),
         "feature_maps": [m.kind for m in spec.features.maps], "n_features_built": len(result.feature_names),
         "families": [_family(result, r) for r in result.results],
         "verdicts": _clean(list(evaluation.verdicts)),

@@ -19,12 +19,14 @@ from pipeline.models.ridge.eigen import KernelEigen
 from pipeline.models.ridge.result import L2Path
 
 
-def loo_gcv_stats(resid: np.ndarray, hat_diag: np.ndarray, trace: np.ndarray, finite_coef):
-    """Mean squared LOO residual rᵢ/(1 − Sᵢᵢ), GCV, and a per-λ verdict."""
+def loo_gcv_stats(resid: np.ndarray, hat_diag: np.ndarray, trace: np.ndarray, finite_coef, factors=None):
+    """Mean squared LOO residual rᵢ/(1 − Sᵢᵢ), GCV, and a per-λ verdict; with row `factors` c (Σc = n) both
+    means are c-weighted (GCV then is Golub, Heath & Wahba's on the rows scaled by √cᵢ)."""
     n = resid.shape[0]
+    c = np.ones(n) if factors is None else np.asarray(factors, float)
     with np.errstate(divide="ignore", invalid="ignore"):
-        loo = np.mean((resid / (1.0 - hat_diag)) ** 2, axis=0)
-        gcv = np.mean(resid**2, axis=0) / (1.0 - trace / n) ** 2
+        loo = c @ ((resid / (1.0 - hat_diag)) ** 2) / n
+        gcv = (c @ resid**2 / n) / (1.0 - trace / n) ** 2
     ok = np.isfinite(loo) & np.isfinite(gcv) & np.asarray(finite_coef)
     status = tuple("optimal" if good else "numerical trouble: 1 - S_ii = 0" for good in ok)
     return loo, gcv, ok, status
@@ -49,7 +51,39 @@ def _finish(lambdas, C, intercept, df, resid, hat_diag, centred, start, psd_rati
                   psd_ratio=psd_ratio)
 
 
+def weighted_squared_path(eig: KernelEigen, y, lambdas) -> L2Path:
+    """The closed form with row factors c (eig of A H_c K H_cᵀ A, A = diag(√c)): with α = Aγ,
+    (Ã + nλI)γ = A(y − ȳ_c), b = ȳ_c − k̄_cᵀα, ȳ_c and k̄_c the c-weighted means; 1ᵀα = 0 exactly.
+    Residual y − f = nλ γ/√c; the weighted smoother's diagonal Sᵢᵢ = cᵢ/n + Σⱼ Uᵢⱼ² dⱼ/(dⱼ + nλ), so the
+    leave-one-out residual (row i left out, the same absolute penalty) is still rᵢ/(1 − Sᵢᵢ); the LOO error
+    and GCV are c-weighted means (loo_gcv_stats)."""
+    start = time.perf_counter()
+    y = np.asarray(y, dtype=float)
+    lambdas = np.asarray(lambdas, dtype=float)
+    n, c = y.shape[0], eig.factors
+    root = np.sqrt(c)
+    ybar = float(c @ y / c.sum()) if eig.centred else 0.0
+    U, d = eig.eigenvectors, eig.eigenvalues
+    a = U.T @ (root * (y - ybar))
+    nl = n * lambdas
+    inv = 1.0 / (d[:, None] + nl[None, :])
+    gamma = U @ (a[:, None] * inv)                  # (n, L)
+    if eig.centred:   # the exact γ is orthogonal to √c (see squared_path for why it is enforced)
+        gamma -= np.outer(root, root @ gamma) / c.sum()
+    C = root[:, None] * gamma
+    shrink = d[:, None] * inv
+    hat_diag = (U * U) @ shrink + (c[:, None] / n if eig.centred else 0.0)
+    df = shrink.sum(axis=0)
+    loo, gcv, ok, status = loo_gcv_stats(gamma * nl[None, :] / root[:, None], hat_diag,
+                                         df + (1.0 if eig.centred else 0.0), np.all(np.isfinite(C), axis=0), c)
+    return L2Path(lambdas=lambdas, dual_coef=np.ascontiguousarray(C.T), intercept=ybar - eig.intercept_shift(C.T),
+                  effective_df=df, loo_error=loo, gcv=gcv, converged=ok, status=status,
+                  fit_seconds=time.perf_counter() - start, loss="squared", psd_ratio=eig.psd.ratio)
+
+
 def squared_path(eig: KernelEigen, y, lambdas) -> L2Path:
+    if eig.factors is not None:
+        return weighted_squared_path(eig, y, lambdas)
     start = time.perf_counter()
     y = np.asarray(y, dtype=float)
     lambdas = np.asarray(lambdas, dtype=float)

@@ -121,7 +121,8 @@ class RidgeFamily(Family):
                                  options.get("landmark_seed", 0), **kp)
             return spectrum_lambda_grid(d, Z.shape[0], options["n_lambdas"], widen=widen)
         return l2_lambda_grid(gram(Z, kernel=kernel, **kp), options["n_lambdas"],
-                              fit_intercept=options.get("fit_intercept", True), widen=widen)
+                              fit_intercept=options.get("fit_intercept", True), widen=widen,
+                              factors=getattr(loss, "row_factors", None))
 
     def fit_path(self, Z, t, loss, lambdas, options: dict) -> PathFit:
         kernel, kp = self._kernel(options)

@@ -96,7 +96,7 @@ def fit_nystrom_path(X, y, kernel: str, lambdas, n_landmarks: int = 1000, seed=0
     lambdas = np.asarray(lambdas, dtype=float)
     n = X.shape[0]
     params, Z, T = _landmarks(X, kernel, kernel_params, n_landmarks, seed)
-    if not get_loss(loss).quadratic:
+    if not get_loss(loss).quadratic or get_loss(loss).row_factors is not None:   # weighted: the general solver
         return _general_nystrom(X, y, kernel, lambdas, loss, params, Z, T, block_rows,
                                 solver_options or {}, start)
     blocks = _blocks(X, Z, T, kernel, params, block_rows)

@@ -36,15 +36,18 @@ def _df_to_lambda(d: np.ndarray, n: int, target: float) -> float:
 
 
 def l2_lambda_grid(K, n_lambdas: int, df_range=(1.0, None), min_lambda_ratio: float = 1e-10,
-                   fit_intercept: bool = True, widen=(0, 0)) -> np.ndarray:
+                   fit_intercept: bool = True, widen=(0, 0), factors=None) -> np.ndarray:
     """Decreasing λ grid from df(λ_max) = df_range[0] to df(λ_min) = df_range[1], evenly spaced in
     log(df / (r − df)), r the rank of the centred Gram (see spectrum_lambda_grid).
 
     ``df_range[1]`` None means min(n, r) − 1. λ_min is kept ≥ min_lambda_ratio·d_max/n
     so that K̃ + nλI stays well conditioned (fast-decaying spectra such as the rbf
-    one cannot reach df ≈ n − 1 otherwise). ``K`` may be a KernelEigen already made.
+    one cannot reach df ≈ n − 1 otherwise). ``K`` may be a KernelEigen already made. With row
+    ``factors`` the spectrum is the weighted one (eigen.py), so integer weights give the grid of the
+    repeated rows.
     """
-    eig = K if isinstance(K, KernelEigen) else kernel_eigen(K, fit_intercept, on_psd_fail="ignore")
+    eig = K if isinstance(K, KernelEigen) else kernel_eigen(K, fit_intercept, on_psd_fail="ignore",
+                                                            factors=factors)
     return spectrum_lambda_grid(eig.eigenvalues, eig.n, n_lambdas, df_range, min_lambda_ratio, widen)
 
 
@@ -98,10 +101,14 @@ def fit_l2_path(K, y, loss, lambdas, *, fit_intercept: bool = True, eigen: Kerne
     lambdas = np.asarray(lambdas, dtype=float).ravel()
     if np.any(lambdas <= 0):
         raise ValueError("every λ must be positive (an unpenalised fit has no unique optimum)")
-    eig = eigen if eigen is not None else kernel_eigen(K, fit_intercept, psd_tol, on_psd_fail)
+    loss = get_loss(loss)
+    # the squared loss's closed form decomposes the weighted Gram; other losses carry their weights in the
+    # loss itself and use the plain centred Gram (1ᵀc = 0 holds for the weighted optimum too)
+    factors = loss.row_factors if loss.quadratic else None
+    eig = eigen if eigen is not None else kernel_eigen(K, fit_intercept, psd_tol, on_psd_fail, factors)
     if eig.n != y.shape[0]:
         raise ValueError(f"Gram has {eig.n} rows but y has {y.shape[0]}")
-    if get_loss(loss).quadratic:
+    if loss.quadratic:
         return squared_path(eig, y, lambdas)
     from pipeline.models.ridge.other_losses import general_path  # cvxpy import only when needed
     return general_path(eig, y, loss, lambdas, **(solver_options or {}))

@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from pipeline.losses import Loss
+from pipeline.losses_weighted import row_factors
 
 
 @dataclass
@@ -72,15 +73,17 @@ def orthant_newton(XS, y, theta, signs, lam, alpha, loss: Loss, max_iter=50):
 class GramCache:
     """Squared loss: the orthant problem is linear; keep the Gram entries already seen.
 
-    For theta = (b0, b_S): [[1, m_S'], [m_S, X_S'X_S/n]] theta = [mean y, X_S'y/n] - lin,
-    with m the column means.
+    For theta = (b0, b_S): [[1, m_S'], [m_S, X_S'CX_S/n]] theta = [mean y, X_S'Cy/n] - lin,
+    with m the column means and C the row factors of a weighted loss (means then weighted: C sums to n).
     """
 
-    def __init__(self, X, y):
+    def __init__(self, X, y, loss: Loss | None = None):
         self.X, self.n = X, X.shape[0]
-        self.means = X.mean(axis=0)
-        self.xty = X.T @ y / self.n
-        self.ybar = float(np.mean(y))
+        self.c = None if loss is None or loss.row_factors is None else row_factors(loss, self.n)
+        cX = X if self.c is None else X * self.c[:, None]
+        self.means = cX.mean(axis=0)
+        self.xty = cX.T @ y / self.n
+        self.ybar = float(np.mean(y if self.c is None else self.c * y))
         self.index = np.zeros(0, int)           # columns whose Gram block is cached
         self.where = {}                          # column -> position in the cache
         self.block = np.zeros((0, 0))
@@ -90,8 +93,9 @@ class GramCache:
         if new.size == 0:
             return
         Xn = self.X[:, new]
-        cross = self.X[:, self.index].T @ Xn / self.n
-        corner = Xn.T @ Xn / self.n
+        cXn = Xn if self.c is None else Xn * self.c[:, None]
+        cross = self.X[:, self.index].T @ cXn / self.n
+        corner = Xn.T @ cXn / self.n
         self.block = np.block([[self.block, cross], [cross.T, corner]])
         for j in new:
             self.where[int(j)] = len(self.where)

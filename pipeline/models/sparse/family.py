@@ -60,7 +60,7 @@ class SparseFamily(Family):
         lasso = options.get("alpha", 1.0) == 1.0
         return PathFit(
             lambdas=path.lambdas, intercept=path.intercept, coef=path.coef, n_nonzero=path.n_nonzero,
-            effective_df=degrees_of_freedom(path, Z), certificate=path.certificate,
+            effective_df=degrees_of_freedom(path, Z, getattr(loss, "row_factors", None)), certificate=path.certificate,
             df_kind="number of nonzero coefficients" if lasso else
             "elastic-net trace on the support (squared loss; nonzero count as upper bound otherwise)",
             certificate_kind=path.certificate_kind, converged=path.converged, status=path.status,

@@ -76,7 +76,8 @@ def predict_path(path: L1Path, X) -> np.ndarray:
 def _solve_restricted(route, XW, y, lam, alpha, loss, warm, tol):
     """One restricted solve by the routed solver (the highs route keeps one warm LP in PathFitter)."""
     if route == "osqp":
-        return rs.solve_squared_gram(XW, y, lam, alpha, warm=warm, tol=min(tol, 1e-7) * 1e-2)
+        return rs.solve_squared_gram(XW, y, lam, alpha, warm=warm, tol=min(tol, 1e-7) * 1e-2,
+                                     factors=loss.row_factors)
     return rs.solve_cvxpy(XW, y, lam, alpha, loss, warm=warm, tol=min(tol, 1e-7) * 1e-2)
 
 
@@ -86,7 +87,7 @@ class PathFitter:
     def __init__(self, X, y, loss, alpha, tol, route, max_rounds, screening, continuation):
         self.X, self.y, self.loss = X, y, loss
         self.continuation = continuation and loss.smooth
-        self.gram = GramCache(X, y) if self.continuation and loss.quadratic else None
+        self.gram = GramCache(X, y, loss) if self.continuation and loss.quadratic else None
         self.n, self.p = X.shape
         self.alpha, self.tol, self.route = alpha, tol, route
         self.max_rounds, self.screening = max_rounds, screening
@@ -249,24 +250,26 @@ def default_lambdas(X, y, loss, n_lambdas=30, ratio=0.01, alpha=1.0) -> np.ndarr
     return lambda_grid(lam_max if lam_max > 0 else 1.0, n_lambdas, ratio)
 
 
-def degrees_of_freedom(path: L1Path, X) -> np.ndarray:
+def degrees_of_freedom(path: L1Path, X, factors=None) -> np.ndarray:
     """Effective degrees of freedom per lambda (intercept not counted).
 
     Lasso: the number of nonzeros (Zou, Hastie & Tibshirani 2007, Annals of Statistics 35(5)).
     Elastic net, squared loss: tr(X_S (X_S'X_S + n lam (1-alpha) I)^{-1} X_S') on centred
     columns of the support S (Zou & Hastie 2005, JRSS-B 67(2)). Other losses with alpha < 1
-    get the nonzero count as an upper bound.
+    get the nonzero count as an upper bound. With the row factors c of a weighted fit the trace is
+    of the weighted smoother: columns centred by their weighted means, G = X_S'CX_S.
     """
     if path.alpha >= 1.0 or not get_loss(path.loss).quadratic:
         return path.n_nonzero.astype(float)
     X = np.asarray(X, float)
-    Xc = X - X.mean(axis=0)
     n = X.shape[0]
+    c = np.ones(n) if factors is None else np.asarray(factors, float)
+    Xc = X - c @ X / c.sum()
     out = np.zeros(path.lambdas.size)
     for i, (lam, row) in enumerate(zip(path.lambdas, path.coef)):
         S = np.flatnonzero(row)
         if S.size:
-            G = Xc[:, S].T @ Xc[:, S]
+            G = (Xc[:, S].T * c) @ Xc[:, S]
             ridge = n * lam * (1 - path.alpha)
             out[i] = float(np.trace(np.linalg.solve(G + ridge * np.eye(S.size), G)))
     return out

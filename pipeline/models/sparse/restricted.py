@@ -22,6 +22,7 @@ import scipy.sparse as sp
 from scipy.optimize import linprog
 
 from pipeline.losses import Loss
+from pipeline.losses_weighted import row_factors
 
 
 @dataclass
@@ -38,14 +39,16 @@ def _penalty_split(lam: float, alpha: float) -> tuple[float, float]:
     return lam * alpha, lam * (1.0 - alpha)
 
 
-def solve_squared_gram(XW, y, lam, alpha, warm=None, tol=1e-9) -> Restricted:
+def solve_squared_gram(XW, y, lam, alpha, warm=None, tol=1e-9, factors=None) -> Restricted:
+    """`factors`: per-row factors c_i of a weighted squared loss (weighted means and Gram)."""
     import osqp   # solver libraries load only where a fit needs them (penduel validate stays light)
 
     n, k = XW.shape
-    x_mean, y_mean = XW.mean(axis=0), y.mean()
+    w = np.ones(n) if factors is None else np.asarray(factors, float)
+    x_mean, y_mean = w @ XW / w.sum(), float(w @ y / w.sum())
     Xc = XW - x_mean
-    G = Xc.T @ Xc / n
-    c = Xc.T @ (y - y_mean) / n
+    G = (Xc.T * w) @ Xc / n
+    c = (Xc.T * w) @ (y - y_mean) / n
     l1, l2 = _penalty_split(lam, alpha)
     # epigraph form: min 0.5 b'(G + l2 I)b - c'b + l1 * 1't, -t <= b <= t. Its KKT matrix
     # holds G once (the split b+ - b- form holds it four times and factors ~8x slower)
@@ -64,10 +67,10 @@ def solve_squared_gram(XW, y, lam, alpha, warm=None, tol=1e-9) -> Restricted:
     status = str(res.info.status)
     x = res.x
     if x is None or not np.all(np.isfinite(x)):
-        return Restricted(np.zeros(k) if warm is None else warm, y_mean, y_mean - y, status, "OSQP")
+        return Restricted(np.zeros(k) if warm is None else warm, y_mean, w * (y_mean - y), status, "OSQP")
     coef = x[:k]
     b0 = float(y_mean - x_mean @ coef)
-    dual = (XW @ coef + b0) - y
+    dual = w * ((XW @ coef + b0) - y)
     ok = "solved" in status.lower()
     return Restricted(coef, b0, dual, "optimal" if ok else status, "OSQP")
 
@@ -76,19 +79,21 @@ def solve_piecewise_lp(XW, y, lam, loss: Loss) -> Restricted:
     """Split LP: min (1/n) sum(a r+ + c r-) + lam*sum(b+ + b-) with residual split.
 
     Regression (quantile/absolute): X b + b0 + r+ - r- = y, slopes a (r>0) and c (r<0).
-    Hinge: y*(X b + b0) + xi - s = 1, xi, s >= 0, cost (1/n) on xi.
+    Hinge: y*(X b + b0) + xi - s = 1, xi, s >= 0, cost (1/n) on xi. A weighted loss multiplies the
+    costs of row i's r+ and r- by its factor c_i.
     """
     n, k = XW.shape
+    rows = row_factors(loss, n)
     if loss.task == "regression":
         above, below = loss.slopes
-        M, rhs, cost_r = XW, y, (above / n, below / n)
+        M, rhs, cost_r = XW, y, (above * rows / n, below * rows / n)
         col_b = np.ones((n, 1))
     else:
-        M, rhs, cost_r = XW * y[:, None], np.ones(n), (1.0 / n, 0.0)
+        M, rhs, cost_r = XW * y[:, None], np.ones(n), (rows / n, np.zeros(n))
         col_b = y[:, None]
     eye = sp.identity(n, format="csc")
     A_eq = sp.hstack([sp.csc_matrix(M), sp.csc_matrix(-M), sp.csc_matrix(col_b), eye, -eye], format="csc")
-    cost = np.r_[np.full(2 * k, lam), 0.0, np.full(n, cost_r[0]), np.full(n, cost_r[1])]
+    cost = np.r_[np.full(2 * k, lam), 0.0, cost_r[0], cost_r[1]]
     bounds = [(0, None)] * (2 * k) + [(None, None)] + [(0, None)] * (2 * n)
     res = linprog(cost, A_eq=A_eq, b_eq=rhs, bounds=bounds, method="highs-ds")
     if res.status != 0:
@@ -178,13 +183,14 @@ class WarmSplitLP:
         self.h.setOptionValue("output_flag", False)
         self.h.setOptionValue("solver", "simplex")
         inf = highspy.kHighsInf
+        rows_c = row_factors(loss, n)      # a weighted loss scales row i's residual costs by c_i
         if loss.task == "regression":
             above, below = loss.slopes
-            rhs, cost_pos, cost_neg = y, above / n, below / n
+            rhs, cost_pos, cost_neg = y, above * rows_c / n, below * rows_c / n
             self.col_b = np.ones(n)
             self.sign = np.ones(n)
         else:
-            rhs, cost_pos, cost_neg = np.ones(n), 1.0 / n, 0.0
+            rhs, cost_pos, cost_neg = np.ones(n), rows_c / n, np.zeros(n)
             self.col_b = y.copy()
             self.sign = y.copy()           # rows are y_i * f_i
         self.h.addRows(n, rhs, rhs, 0, np.zeros(1, np.int32), np.zeros(0, np.int32), np.zeros(0))
@@ -193,8 +199,8 @@ class WarmSplitLP:
         self.h.addCols(1, np.zeros(1), np.array([-inf]), np.array([inf]), n,
                        np.zeros(1, np.int32), rows, self.col_b)
         starts = np.arange(n, dtype=np.int32)
-        self.h.addCols(n, np.full(n, cost_pos), np.zeros(n), np.full(n, inf), n, starts, rows, np.ones(n))
-        self.h.addCols(n, np.full(n, cost_neg), np.zeros(n), np.full(n, inf), n, starts, rows, -np.ones(n))
+        self.h.addCols(n, cost_pos, np.zeros(n), np.full(n, inf), n, starts, rows, np.ones(n))
+        self.h.addCols(n, cost_neg, np.zeros(n), np.full(n, inf), n, starts, rows, -np.ones(n))
         self.base = 1 + 2 * n
 
     def _add(self, new):
