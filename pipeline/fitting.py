@@ -10,7 +10,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .features import FeatureBuilder
 from .losses import get_loss
 from .models.families import get_family
 
@@ -70,6 +69,8 @@ class FitOutcome:
 
 
 def build_features(shared: Shared, train_idx):
+    from .features.builder import FeatureBuilder   # loads scikit-learn: only where a fit runs
+
     builder = FeatureBuilder(shared.feature_maps, seed=shared.feature_seed, input_names=shared.input_names)
     return builder.fit(shared.X[train_idx])
 

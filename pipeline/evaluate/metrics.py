@@ -20,7 +20,21 @@ from typing import Callable
 
 import numpy as np
 from scipy.special import expit
-from sklearn import metrics as skm
+
+
+class _DeferredMetrics:
+    """scikit-learn's metric functions, imported when one is first called: the table is read when a config
+    is (its names), and `penduel validate` should not load scikit-learn."""
+
+    def __getattr__(self, name):
+        def call(*args, **kwargs):
+            from sklearn import metrics
+            return getattr(metrics, name)(*args, **kwargs)
+        call.__name__ = name
+        return call
+
+
+skm = _DeferredMetrics()
 
 
 @dataclass(frozen=True)
