@@ -54,10 +54,21 @@ class FeatureBuilder(TransformerMixin, BaseEstimator):
         self.input_names = input_names
 
     def fit(self, X, y=None):
+        self._fit(X)
+        return self
+
+    def fit_transform(self, X, y=None, **fit_params):
+        """The fitted rows' Z from one pass (fit then transform would build the map outputs twice)."""
+        raw = self._fit(X)
+        return self.output_scaler_.transform(raw)
+
+    def _fit(self, X) -> np.ndarray:
+        """Fit every step; returns the raw map outputs of X (before the output standardisation)."""
         X = np.asarray(X, dtype=float)
         names = list(self.input_names) if self.input_names is not None else [f"x{j}" for j in range(X.shape[1])]
-        self.input_scaler_ = Standardiser().fit(X)
-        Xs = self.input_scaler_.transform(X) if self._reads_standardised() else None
+        # only maps that read standardised inputs need the input scaler (the identity map reads raw columns)
+        self.input_scaler_ = Standardiser().fit(X) if self._reads_standardised() else None
+        Xs = self.input_scaler_.transform(X) if self.input_scaler_ is not None else None
         self.transformers_, out_names = [], []
         map_seeds = seeds.child_int_seeds(int(self.seed), "features", len(self.maps))
         for spec, seed in zip(self.maps, map_seeds):
@@ -67,8 +78,9 @@ class FeatureBuilder(TransformerMixin, BaseEstimator):
             self.transformers_.append(t)
             out_names.extend(t.get_feature_names_out(names))
         self.feature_names_out_ = np.asarray(out_names, dtype=object)
-        self.output_scaler_ = Standardiser().fit(self._raw_outputs(X, Xs))
-        return self
+        raw = self._raw_outputs(X, Xs)
+        self.output_scaler_ = Standardiser().fit(raw)
+        return raw
 
     def _reads_standardised(self) -> bool:
         return any(get_map(spec.kind).standardised_input for spec in self.maps)
@@ -80,7 +92,7 @@ class FeatureBuilder(TransformerMixin, BaseEstimator):
 
     def transform(self, X):
         X = np.asarray(X, dtype=float)
-        Xs = self.input_scaler_.transform(X) if self._reads_standardised() else None
+        Xs = self.input_scaler_.transform(X) if self.input_scaler_ is not None else None
         return self.output_scaler_.transform(self._raw_outputs(X, Xs))
 
     def get_feature_names_out(self, input_features=None):
