@@ -18,8 +18,6 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.sparse as sp
-from scipy.optimize import linprog
 
 from pipeline.losses import Loss
 
@@ -40,6 +38,7 @@ def _penalty_split(lam: float, alpha: float) -> tuple[float, float]:
 
 def solve_squared_gram(XW, y, lam, alpha, warm=None, tol=1e-9) -> Restricted:
     import osqp   # solver libraries load only where a fit needs them (penduel validate stays light)
+    import scipy.sparse as sp
 
     n, k = XW.shape
     x_mean, y_mean = XW.mean(axis=0), y.mean()
@@ -78,6 +77,9 @@ def solve_piecewise_lp(XW, y, lam, loss: Loss) -> Restricted:
     Regression (quantile/absolute): X b + b0 + r+ - r- = y, slopes a (r>0) and c (r<0).
     Hinge: y*(X b + b0) + xi - s = 1, xi, s >= 0, cost (1/n) on xi.
     """
+    import scipy.sparse as sp
+    from scipy.optimize import linprog
+
     n, k = XW.shape
     if loss.task == "regression":
         above, below = loss.slopes
