@@ -284,8 +284,8 @@ def run_tasks(fn: Callable, tasks: Sequence, *, backend: str = "local", n_jobs: 
     backend: "local" (loop in this process), "processes" (joblib loky, n_jobs workers) or
     "dask" (distributed Client to scheduler_address, or a LocalCluster with n_jobs workers
     started and closed here when the address is None). fn and tasks must be picklable (a
-    module-level fn). `shared` is sent to each worker once (large arrays are memory-mapped
-    by joblib); fn must not modify it. A tqdm bar on stderr counts finished tasks when
+    module-level fn). `shared` is sent to each worker once (processes: written once to a
+    file whose arrays each worker memory-maps, see SharedFile; Dask: scattered); fn must not modify it. A tqdm bar on stderr counts finished tasks when
     progress is a description. A failing task, or a worker that dies, gets one retry of the unfinished
     tasks; a second failure raises TaskFailed naming the task. What tasks print (solver banners) and the
     warnings they raise are captured; with `log`, each task's capture is appended to it as text.
