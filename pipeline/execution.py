@@ -102,11 +102,42 @@ def captured_output(sink: list):
             sink.append("\n".join(dict.fromkeys(lines)))
 
 
+@dataclass(frozen=True)
+class SharedFile:
+    """The shared data of one `run_tasks` call written once to a file that worker processes read (arrays
+    memory-mapped) and keep: a task then carries this small handle instead of the data. Pickling the data
+    with every task made the dispatching process hash and copy the whole design matrix once per task."""
+    path: str
+
+    @classmethod
+    def write(cls, shared: Any, folder: str) -> "SharedFile":
+        import joblib
+
+        import uuid
+
+        path = os.path.join(folder, f"shared-{uuid.uuid4().hex}.joblib")   # never the name of an earlier run's file
+        joblib.dump(shared, path)
+        return cls(path)
+
+    def load(self) -> Any:
+        if self.path not in _LOADED:
+            import joblib
+
+            _LOADED.clear()           # one run's data at a time per worker
+            _LOADED[self.path] = joblib.load(self.path, mmap_mode="r")
+        return _LOADED[self.path]
+
+
+_LOADED: dict = {}
+
+
 def _call(fn: Callable, index: int, task: Any, shared: Any, use_shared: bool,
           parent_pid: int | None = None) -> tuple[int, Any, str]:
     # One BLAS thread everywhere: thread count can change floating-point summation order.
     if parent_pid is not None:
         _watch_parent(parent_pid)
+    if isinstance(shared, SharedFile):
+        shared = shared.load()
     output: list = []
     try:
         if not _THREADPOOLS:
@@ -153,8 +184,13 @@ def _run_processes(fn, tasks, shared, use_shared, n_jobs, address) -> Iterator[t
     # loky keeps its worker pool alive between calls, so repeated stages pay start-up once;
     # one thread per worker from start-up on also covers libraries a task loads late.
     # each worker watches this process from its start, so a kill -9 of the run ends idle workers too
-    with parallel_config(backend="loky", inner_max_num_threads=1, initializer=_watch_parent,
-                         initargs=(os.getpid(),)):
+    with contextlib.ExitStack() as stack:
+        if use_shared:   # the data goes to a file once; each worker reads it once (see SharedFile)
+            folder = stack.enter_context(tempfile.TemporaryDirectory(
+                prefix="penduel-shared-", dir="/dev/shm" if os.access("/dev/shm", os.W_OK) else None))
+            shared = SharedFile.write(shared, folder)
+        stack.enter_context(parallel_config(backend="loky", inner_max_num_threads=1, initializer=_watch_parent,
+                                            initargs=(os.getpid(),)))
         parallel = Parallel(n_jobs=n_jobs, return_as="generator_unordered")
         yield from parallel(delayed(_call)(fn, i, t, shared, use_shared, os.getpid()) for i, t in tasks)
 
@@ -248,8 +284,8 @@ def run_tasks(fn: Callable, tasks: Sequence, *, backend: str = "local", n_jobs: 
     backend: "local" (loop in this process), "processes" (joblib loky, n_jobs workers) or
     "dask" (distributed Client to scheduler_address, or a LocalCluster with n_jobs workers
     started and closed here when the address is None). fn and tasks must be picklable (a
-    module-level fn). `shared` is sent to each worker once (large arrays are memory-mapped
-    by joblib); fn must not modify it. A tqdm bar on stderr counts finished tasks when
+    module-level fn). `shared` is sent to each worker once (processes: written once to a
+    file whose arrays each worker memory-maps, see SharedFile; Dask: scattered); fn must not modify it. A tqdm bar on stderr counts finished tasks when
     progress is a description. A failing task, or a worker that dies, gets one retry of the unfinished
     tasks; a second failure raises TaskFailed naming the task. What tasks print (solver banners) and the
     warnings they raise are captured; with `log`, each task's capture is appended to it as text.

@@ -10,7 +10,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .features import FeatureBuilder
 from .losses import get_loss
 from .losses_weighted import class_balance, weighted
 from .models.families import get_family
@@ -76,9 +75,14 @@ class FitOutcome:
     multiclass: str = ""                   # K > 2 classes: how they were fitted (models.multiclass)
 
 
+def feature_builder(shared: Shared):
+    from .features.builder import FeatureBuilder   # loads scikit-learn: only where a fit runs
+
+    return FeatureBuilder(shared.feature_maps, seed=shared.feature_seed, input_names=shared.input_names)
+
+
 def build_features(shared: Shared, train_idx):
-    builder = FeatureBuilder(shared.feature_maps, seed=shared.feature_seed, input_names=shared.input_names)
-    return builder.fit(shared.X[train_idx])
+    return feature_builder(shared).fit(shared.X[train_idx])
 
 
 def target_scaling(shared: Shared, y_train: np.ndarray) -> tuple[float, float]:
@@ -107,8 +111,8 @@ def fit_loss(shared: Shared, family: str, loss, rows):
 
 def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
     loss = get_loss(task.loss_name, **dict(task.loss_params))
-    builder = build_features(shared, task.train_idx)
-    Z_tr = builder.transform(shared.X[task.train_idx])
+    builder = feature_builder(shared)
+    Z_tr = builder.fit_transform(shared.X[task.train_idx])
     Z_ev = builder.transform(shared.X[task.eval_idx])
     y_tr, y_ev = shared.y[task.train_idx], shared.y[task.eval_idx]
     center, scale = target_scaling(shared, y_tr)

@@ -20,9 +20,6 @@ from dataclasses import dataclass, field
 from typing import Any, Callable, Iterable, Mapping
 
 import numpy as np
-import scipy.linalg
-from scipy.spatial.distance import cdist, pdist
-from sklearn.metrics.pairwise import euclidean_distances, manhattan_distances
 
 # Rows per block: bounds the temporaries of a block to about block_rows × m floats.
 DEFAULT_BLOCK_ROWS = 1024
@@ -62,6 +59,8 @@ def median_bandwidth(X, rng=None, max_rows: int = MEDIAN_MAX_ROWS, metric: str =
     if X.shape[0] > max_rows:
         rng = np.random.default_rng(0) if rng is None else np.random.default_rng(rng)
         X = X[rng.choice(X.shape[0], size=max_rows, replace=False)]
+    from scipy.spatial.distance import pdist   # scipy loads where a kernel is evaluated, not with the table
+
     dist = pdist(X, metric="cityblock" if metric == "manhattan" else metric)
     dist = dist[dist > 0]
     if dist.size == 0:
@@ -134,17 +133,23 @@ def resolve_params(X_train, kernel: str, **params) -> dict:
 def _distances(Xb, Z, p):
     # cdist subtracts before squaring: the expansion trick loses ~1e-8 near d = 0, which
     # the square root would pass on to the Matérn kernels.
+    from scipy.spatial.distance import cdist
+
     r = cdist(Xb, Z)
     r /= p["bandwidth"]
     return r
 
 
 def _rbf(Xb, Z, p):
+    from sklearn.metrics.pairwise import euclidean_distances   # loaded by a fit, never by reading a config
+
     sq = euclidean_distances(Xb, Z, squared=True)
     return np.exp(sq * (-0.5 / p["bandwidth"] ** 2), out=sq)
 
 
 def _laplacian(Xb, Z, p):
+    from sklearn.metrics.pairwise import manhattan_distances
+
     d1 = manhattan_distances(Xb, Z)
     return np.exp(d1 * (-1.0 / p["bandwidth"]), out=d1)
 
@@ -249,5 +254,7 @@ def psd_check(K, tol: float = 1e-8, on_fail: str = "raise") -> PSDReport:
         raise ValueError(f"a Gram matrix must be square, got shape {K.shape}")
     scale = float(np.abs(K).max()) or 1.0
     asym = float(np.abs(K - K.T).max()) / scale
+    import scipy.linalg
+
     ev = scipy.linalg.eigvalsh(0.5 * (K + K.T), check_finite=False)
     return psd_from_eigenvalues(ev, tol, on_fail, asym)

@@ -16,7 +16,6 @@ from dataclasses import dataclass, field
 from typing import Callable
 
 import numpy as np
-from scipy.optimize import minimize_scalar
 
 REGRESSION = "regression"
 CLASSIFICATION = "classification"
@@ -264,6 +263,8 @@ class HuberLoss(Loss):
         lo, hi = float(np.min(y)), float(np.max(y))
         if hi - lo == 0:
             return lo
+        from scipy.optimize import minimize_scalar   # loaded by a fit, not by reading a config
+
         res = minimize_scalar(lambda b: float(w @ self.value(y, b)), bounds=(lo, hi),
                               method="bounded", options={"xatol": 1e-12 * max(1.0, hi - lo)})
         b = float(res.x)

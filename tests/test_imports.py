@@ -68,3 +68,17 @@ def test_the_probe_sees_libraries_a_run_loads():
                           cwd=ROOT, capture_output=True, text=True, timeout=120)
     modules = set(json.loads(done.stderr.strip().splitlines()[-1])["modules"])
     assert {"mlflow", "matplotlib"} <= modules
+
+
+def test_reading_a_config_loads_no_numerical_library_beyond_numpy():
+    # the config, its registries (feature maps, losses, metrics, kernels, solvers) and the data package are
+    # data: scikit-learn, pandas, scipy.stats and scipy.optimize load only when a split, a table or a fit needs
+    # them. (`penduel validate` then plans the splits with scikit-learn's model_selection.)
+    probe = ("import json, sys, pathlib\nfrom pipeline.config import load_config\n"
+             "load_config(pathlib.Path('configs/demo.yaml'))\n"
+             "print(json.dumps(sorted(sys.modules)), file=sys.stderr)")
+    done = subprocess.run([sys.executable, "-c", probe], cwd=ROOT, capture_output=True, text=True, timeout=120)
+    modules = set(json.loads(done.stderr.strip().splitlines()[-1]))
+    assert "pipeline.config" in modules and "pipeline.features.maps" in modules
+    heavy = {"sklearn", "pandas", "scipy.stats", "scipy.optimize", "pipeline.features.builder"}
+    assert modules.isdisjoint(heavy), sorted(modules & heavy)

@@ -7,8 +7,8 @@ backends) when this package is imported, so register new entries before importin
 """
 from __future__ import annotations
 
-from ..features.basic import IdentityMap, PolynomialMap, RandomFourierMap
-from ..features.extra import KernelDictionaryMap, RandomReLUMap, SplineMap
+from ..features.maps import (IdentityMap, KernelDictionaryMap, PolynomialMap, RandomFourierMap, RandomReLUMap,
+                             SplineMap)
 from ..settings import Settings
 from .experiment import ExperimentSpec
 from .loading import ConfigError, field_path, load_config, load_yaml, parse_config

@@ -4,7 +4,7 @@ from __future__ import annotations
 import pathlib
 
 import numpy as np
-import pandas as pd
+from .lazy import pd   # pandas loads when a table is read
 
 from .dataset import DataError, RowDesign
 

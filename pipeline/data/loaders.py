@@ -6,7 +6,7 @@ import difflib
 import pathlib
 
 import numpy as np
-import pandas as pd
+from .lazy import pd   # pandas loads when a table is read
 
 from ..losses import CLASSIFICATION, loss_names
 from .bundled import BUNDLED

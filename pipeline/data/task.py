@@ -2,7 +2,7 @@
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
+from .lazy import pd   # pandas loads when a table is read
 
 from ..losses import CLASSIFICATION, REGRESSION
 

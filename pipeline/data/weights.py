@@ -2,9 +2,9 @@
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
 
 from .dataset import DataError
+from .lazy import pd
 
 
 def take_weights(frame: pd.DataFrame, column: str | None, target: str, source: str,

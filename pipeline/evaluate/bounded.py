@@ -27,7 +27,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import optimize, stats
 
 # What each interval method is, in one phrase with its source (shown in the report).
 INTERVAL_SOURCES = {
@@ -41,6 +40,8 @@ INTERVAL_SOURCES = {
 
 
 def _z(level: float) -> float:
+    from scipy import stats   # loaded when an interval is computed, not when a config is read
+
     return float(stats.norm.ppf((1 + level) / 2))
 
 
@@ -90,6 +91,8 @@ def auc_interval(auc: float, n_pos: int, n_neg: int, level: float) -> tuple[floa
 
     # gap(0) = AUC² and gap(1) = (1 − AUC)²; just inside the estimate gap < 0 (V > 0 inside (0, 1)), so one
     # root lies on each side. At AUC = 1 (or 0) the variance vanishes at the estimate: step just inside it.
+    from scipy import optimize
+
     low, high = 0.0, 1.0
     if auc > 0:
         inner = min(auc, 1 - 1e-9)

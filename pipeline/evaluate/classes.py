@@ -14,7 +14,8 @@ from __future__ import annotations
 
 import numpy as np
 from scipy.special import softmax
-from sklearn import metrics as skm
+
+from .deferred import skm
 
 _EPS = np.finfo(float).eps
 # what the report says about the class probabilities behind log-loss, Brier score and ROC AUC

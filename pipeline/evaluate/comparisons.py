@@ -9,7 +9,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy import stats
 
 from .bounded import bounded_difference, bounded_interval
 from .intervals import bootstrap_draws, bootstrap_interval
@@ -41,6 +40,8 @@ def corrected_resampled_ttest(diffs, n_train: int, n_test: int, level: float = 0
         t = mean / se
     else:  # every split gave the same difference
         t = 0.0 if mean == 0 else math.copysign(math.inf, mean)
+    from scipy import stats   # loaded when a comparison is computed, not when a config is read
+
     p_value = float(2 * stats.t.sf(abs(t), dof))
     half = float(stats.t.ppf((1 + level) / 2, dof)) * se
     return {"mean": mean, "variance": variance, "correction": factor, "se": se, "t": t,

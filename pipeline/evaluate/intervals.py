@@ -9,7 +9,6 @@ import math
 import warnings
 
 import numpy as np
-from scipy import stats
 
 from .metrics import Metric, as_metric, classes_form
 
@@ -79,6 +78,8 @@ def bootstrap_interval(values, level, what, method="percentile", estimate=None, 
             warnings.warn(f"the {what} estimate lies outside its bootstrap distribution; no BCa "
                           "interval", RuntimeWarning, stacklevel=3)
             return math.nan, math.nan
+        from scipy import stats   # loaded when an interval is computed, not when a config is read
+
         z0 = stats.norm.ppf(share)
         dev = jack.mean() - jack
         denom = 6 * np.sum(dev**2) ** 1.5

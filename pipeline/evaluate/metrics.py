@@ -21,7 +21,9 @@ from typing import Callable
 
 import numpy as np
 from scipy.special import expit
-from sklearn import metrics as skm
+
+
+from .deferred import skm
 
 from . import classes as cls
 

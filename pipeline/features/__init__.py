@@ -1,72 +1,25 @@
 """Explicit feature maps, always fitted on training rows only.
 
-`FeatureBuilder` standardises the input columns, applies each configured map and
+`FeatureBuilder` (builder.py) standardises the input columns, applies each configured map and
 concatenates the outputs, then standardises every output column. Both families
 receive the same standardised matrix Z; coefficients on Z are mapped back to the
 scale of the map outputs (for the identity map: the original columns) with
 `to_output_scale`.
 
-`MAPS` (pipeline.features.registry) is the one table of maps; a new map is one
-`register_map(MapKind(...))` call beside its transformer (see basic.py, extra.py).
+`MAPS` (pipeline.features.registry) is the one table of maps; maps.py holds each map's settings, width and
+builder as data and registers them; the transformers (basic.py, extra.py) and `FeatureBuilder` load
+scikit-learn, so they are imported only when a fit needs them (reading a config does not).
 """
 from __future__ import annotations
 
-import numpy as np
-from sklearn.base import BaseEstimator, TransformerMixin
-from sklearn.preprocessing import StandardScaler
-
-from .. import seeds
-from . import basic, extra  # noqa: F401  (importing them registers their maps)
+from . import maps  # noqa: F401  (importing it registers the maps)
 from .registry import MAPS, MapKind, get_map, output_width, register_map
 
 __all__ = ["FeatureBuilder", "MAPS", "MapKind", "get_map", "output_width", "register_map"]
 
 
-class FeatureBuilder(TransformerMixin, BaseEstimator):
-    """Standardise inputs → feature maps → standardised outputs, fitted on the rows given to fit.
-
-    `seed` is the experiment seed: map i draws from child i of its "features" stream.
-    """
-
-    def __init__(self, maps=(), seed: int = 0, input_names=None):
-        self.maps = maps
-        self.seed = seed
-        self.input_names = input_names
-
-    def fit(self, X, y=None):
-        X = np.asarray(X, dtype=float)
-        names = list(self.input_names) if self.input_names is not None else [f"x{j}" for j in range(X.shape[1])]
-        self.input_scaler_ = StandardScaler().fit(X)
-        Xs = self.input_scaler_.transform(X)
-        self.transformers_, out_names = [], []
-        map_seeds = seeds.child_int_seeds(int(self.seed), "features", len(self.maps))
-        for spec, seed in zip(self.maps, map_seeds):
-            entry = get_map(spec.kind)
-            t = entry.build(spec, seed)
-            t.fit(Xs if entry.standardised_input else X)
-            self.transformers_.append(t)
-            out_names.extend(t.get_feature_names_out(names))
-        self.feature_names_out_ = np.asarray(out_names, dtype=object)
-        self.output_scaler_ = StandardScaler().fit(self._raw_outputs(X, Xs))
-        return self
-
-    def _raw_outputs(self, X, Xs):
-        blocks = [t.transform(Xs if get_map(spec.kind).standardised_input else X)
-                  for spec, t in zip(self.maps, self.transformers_)]
-        return np.hstack(blocks) if len(blocks) > 1 else blocks[0]
-
-    def transform(self, X):
-        X = np.asarray(X, dtype=float)
-        Xs = self.input_scaler_.transform(X)
-        return self.output_scaler_.transform(self._raw_outputs(X, Xs))
-
-    def get_feature_names_out(self, input_features=None):
-        return self.feature_names_out_
-
-    def to_output_scale(self, coef, intercept):
-        """Coefficients on Z → coefficients on the raw map outputs (identity map: original columns)."""
-        scale = self.output_scaler_.scale_
-        mean = self.output_scaler_.mean_
-        coef = np.asarray(coef, dtype=float)
-        w = coef / scale
-        return w, np.asarray(intercept, dtype=float) - w @ mean
+def __getattr__(name):
+    if name == "FeatureBuilder":
+        from .builder import FeatureBuilder
+        return FeatureBuilder
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

@@ -1,44 +1,15 @@
-"""The basic maps: identity, polynomial terms, random Fourier features; importing registers them."""
+"""The basic maps' transformers: identity, polynomial terms, random Fourier features (their settings and
+registration: maps.py)."""
 from __future__ import annotations
 
 from dataclasses import dataclass
-from math import comb
-from typing import Literal, Union
 
 import numpy as np
-from pydantic import Field, field_validator
 from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.preprocessing import PolynomialFeatures
 
 from ..kernels import median_bandwidth
-from ..settings import Settings
-from .registry import MapKind, register_map
-
-
-class IdentityMap(Settings):
-    kind: Literal["identity"] = Field(description="The input columns themselves.")
-
-
-class PolynomialMap(Settings):
-    kind: Literal["polynomial"] = Field(description="Products of standardised inputs up to a degree.")
-    degree: int = Field(2, ge=2, le=5, description="Highest total degree.")
-    interaction_only: bool = Field(False, description="Only products of distinct columns.")
-
-
-class RandomFourierMap(Settings):
-    kind: Literal["random_fourier"] = Field(
-        description="Random Fourier features approximating a Gaussian kernel (Rahimi & Recht 2007).")
-    n_components: int = Field(300, ge=1, le=5_000_000, description="Number of random features.")
-    bandwidth: Union[float, Literal["median"]] = Field(
-        "median", description="Gaussian bandwidth σ on standardised inputs, or 'median' for the "
-                              "median pairwise distance of training rows.")
-
-    @field_validator("bandwidth")
-    @classmethod
-    def _positive(cls, v):
-        if not isinstance(v, str) and v <= 0:
-            raise ValueError("bandwidth must be positive or 'median'")
-        return v
+from .maps import IdentityMap, PolynomialMap, RandomFourierMap  # noqa: F401  (their settings)
 
 
 class IdentityColumns(TransformerMixin, BaseEstimator):
@@ -136,18 +107,3 @@ class RandomFourier(TransformerMixin, BaseEstimator):
 
     def get_feature_names_out(self, input_features):
         return [f"rff_{j:05d}" for j in range(self.n_components)]
-
-
-def _polynomial_width(spec, n_inputs: int, n_rows=None) -> int:
-    if spec.interaction_only:
-        return sum(comb(n_inputs, d) for d in range(2, spec.degree + 1))
-    return sum(comb(n_inputs + d - 1, d) for d in range(2, spec.degree + 1))
-
-
-register_map(MapKind("identity", IdentityMap, lambda spec, seed: IdentityColumns(),
-                     lambda spec, n_inputs, n_rows=None: n_inputs, standardised_input=False))
-register_map(MapKind("polynomial", PolynomialMap,
-                     lambda spec, seed: PolynomialTerms(spec.degree, spec.interaction_only), _polynomial_width))
-register_map(MapKind("random_fourier", RandomFourierMap,
-                     lambda spec, seed: RandomFourier(spec.n_components, spec.bandwidth, seed),
-                     lambda spec, n_inputs, n_rows=None: spec.n_components))

@@ -3,43 +3,19 @@ kernel dictionary (columns k(x, z_j) at training rows or cluster centres: the L1
 counterpart of the representer form). Each can hand out its columns in blocks, so
 an optimality check over all columns never needs the whole matrix at once.
 
-Importing this module registers the maps "spline", "random_relu", "kernel_dictionary"
-in pipeline.features.registry.MAPS.
+Their settings and registration ("spline", "random_relu", "kernel_dictionary") are in maps.py.
 """
 from __future__ import annotations
 
-from typing import Iterator, Literal
+from typing import Iterator
 
 import numpy as np
-from pydantic import Field
 from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.cluster import KMeans
 from sklearn.preprocessing import SplineTransformer
 
-from ..kernels import KERNELS, get_kernel, gram
-from ..settings import Settings
-from .registry import MapKind, register_map
-
-
-class SplineMap(Settings):
-    kind: Literal["spline"] = Field(description="B-spline basis of each standardised input, knots at quantiles.")
-    n_knots: int = Field(6, ge=2, le=200, description="Knots per input column.")
-    degree: int = Field(3, ge=1, le=5, description="Spline degree.")
-
-
-class RandomReLUMap(Settings):
-    kind: Literal["random_relu"] = Field(description="max(0, ωᵀx + b) with random Gaussian ω, b.")
-    n_components: int = Field(500, ge=1, le=5_000_000, description="Number of random features.")
-
-
-class KernelDictionaryMap(Settings):
-    kind: Literal["kernel_dictionary"] = Field(
-        description="Columns k(x, z_j) at training rows or k-means centres: the sparse counterpart of the "
-                    "representer form.")
-    kernel: Literal[tuple(KERNELS)] = Field("rbf", description="Kernel of the dictionary columns.")
-    n_centres: int | None = Field(None, ge=1, description="Number of centres; none uses every training row.")
-    centres: Literal["rows", "kmeans"] = Field("rows", description="Centres at training rows or k-means centres.")
-    bandwidth: float | None = Field(None, gt=0.0, description="Kernel length scale; none uses the median distance.")
+from ..kernels import get_kernel, gram
+from .maps import KernelDictionaryMap, RandomReLUMap, SplineMap  # noqa: F401  (their settings)
 
 
 class _Blockwise:
@@ -153,13 +129,3 @@ class KernelDictionary(_Blockwise, TransformerMixin, BaseEstimator):
 
     def get_feature_names_out(self, input_features):
         return [f"k_{self.kernel}_{j:05d}" for j in range(self.n_columns())]
-
-
-register_map(MapKind("spline", SplineMap, lambda spec, seed: SplineBasis(spec.n_knots, spec.degree),
-                     lambda spec, n_inputs, n_rows=None: n_inputs * (spec.n_knots + spec.degree - 1)))
-register_map(MapKind("random_relu", RandomReLUMap, lambda spec, seed: RandomReLU(spec.n_components, seed),
-                     lambda spec, n_inputs, n_rows=None: spec.n_components))
-register_map(MapKind("kernel_dictionary", KernelDictionaryMap,
-                     lambda spec, seed: KernelDictionary(spec.kernel, spec.n_centres, spec.centres,
-                                                         spec.bandwidth, seed),
-                     lambda spec, n_inputs, n_rows=None: spec.n_centres or n_rows or n_inputs))

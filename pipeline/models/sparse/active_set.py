@@ -84,33 +84,39 @@ class GramCache:
         self.means = cX.mean(axis=0)
         self.xty = cX.T @ y / self.n
         self.ybar = float(np.mean(y if self.c is None else self.c * y))
-        self.index = np.zeros(0, int)           # columns whose Gram block is cached
-        self.where = {}                          # column -> position in the cache
-        self.block = np.zeros((0, 0))
+        self.index = np.zeros(0, int)           # columns whose Gram block is cached, in cache order
+        self.position = np.full(X.shape[1], -1)  # column -> its position in the cache (-1: not cached)
+        self.block = np.zeros((0, 0))           # grown by doubling; the first len(index) rows/columns are used
 
     def _ensure(self, S):
-        new = np.array([j for j in S if j not in self.where], int)
+        new = S[self.position[S] < 0]
         if new.size == 0:
             return
+        m, k = self.index.size, new.size
+        if m + k > self.block.shape[0]:
+            grown = np.empty((max(2 * self.block.shape[0], m + k, 16),) * 2)
+            grown[:m, :m] = self.block[:m, :m]
+            self.block = grown
         Xn = self.X[:, new]
         cXn = Xn if self.c is None else Xn * self.c[:, None]
-        cross = self.X[:, self.index].T @ cXn / self.n
-        corner = Xn.T @ cXn / self.n
-        self.block = np.block([[self.block, cross], [cross.T, corner]])
-        for j in new:
-            self.where[int(j)] = len(self.where)
-        self.index = np.r_[self.index, new]
+        self.block[:m, m:m + k] = self.X[:, self.index].T @ cXn / self.n
+        self.block[m:m + k, :m] = self.block[:m, m:m + k].T
+        self.block[m:m + k, m:m + k] = Xn.T @ cXn / self.n
+        self.position[new] = np.arange(m, m + k)
+        self.index = np.concatenate([self.index, new])
 
     def solve(self, S, signs, lam, alpha):
         self._ensure(S)
-        pos = np.array([self.where[int(j)] for j in S], int)
+        pos = self.position[S]
         k = S.size
         H = np.empty((k + 1, k + 1))
         H[0, 0] = 1.0
         H[0, 1:] = H[1:, 0] = self.means[S]
         H[1:, 1:] = self.block[np.ix_(pos, pos)]
         H[1:, 1:][np.diag_indices(k)] += lam * (1 - alpha)
-        rhs = np.r_[self.ybar, self.xty[S] - lam * alpha * signs]
+        rhs = np.empty(k + 1)
+        rhs[0] = self.ybar
+        rhs[1:] = self.xty[S] - lam * alpha * signs
         try:
             return np.linalg.solve(H, rhs)
         except np.linalg.LinAlgError:
@@ -132,10 +138,15 @@ def refine(X, y, coef, intercept, lam, alpha, loss: Loss, max_iter=300, add_per_
     signs = np.sign(coef[S])
     b0 = float(intercept)
     l1 = lam * alpha
-    C = None if candidates is None else np.union1d(np.asarray(candidates, int), S)
+    C = None
+    if candidates is not None:
+        mask = np.zeros(k, bool)
+        mask[np.asarray(candidates, int)] = True
+        mask[S] = True
+        C = np.flatnonzero(mask)          # sorted, as the union of the two
     it = 0
     for it in range(1, max_iter + 1):
-        theta0 = np.r_[b0, coef[S]]
+        theta0 = np.concatenate(([b0], coef[S]))
         if gram is not None:
             target = gram.solve(S, signs, lam, alpha)
         else:
@@ -155,25 +166,28 @@ def refine(X, y, coef, intercept, lam, alpha, loss: Loss, max_iter=300, add_per_
         coef[S], b0 = target[1:], float(target[0])
         dual = loss.derivative(y, X[:, S] @ coef[S] + b0)   # only the support: p can be far above |S|
         full = C is None
-        if not full:
-            grad = np.zeros(k)
-            grad[C] = X[:, C].T @ dual / n
-            excess = np.full(k, -np.inf)
-            excess[C] = np.abs(grad[C]) - l1 * (1 + tol)
-            excess[S] = -np.inf
-            full = not np.any(excess > 0)    # settled on the candidates: check every column
+        if not full:   # violators among the candidates first (only their products with X)
+            in_support = np.zeros(k, bool)
+            in_support[S] = True
+            grad_c = X[:, C].T @ dual / n
+            excess_c = np.abs(grad_c) - l1 * (1 + tol)
+            excess_c[in_support[C]] = -np.inf
+            hit = excess_c > 0
+            full = not hit.any()    # settled on the candidates: check every column
+            bad, bad_excess, bad_grad = C[hit], excess_c[hit], grad_c[hit]
         if full:
             grad = X.T @ dual / n
             excess = np.abs(grad) - l1 * (1 + tol)
             excess[S] = -np.inf
-        bad = np.flatnonzero(excess > 0)
-        if bad.size == 0:
-            return Refined(coef, b0, dual, grad, True, it)
-        if C is not None:
-            C = np.union1d(C, bad)
-        add = bad[np.argsort(-excess[bad])[:max(add_per_round, S.size // 4)]]
-        S = np.r_[S, add]
-        signs = np.r_[signs, -np.sign(grad[add])]
+            bad = np.flatnonzero(excess > 0)
+            if bad.size == 0:
+                return Refined(coef, b0, dual, grad, True, it)
+            bad_excess, bad_grad = excess[bad], grad[bad]
+            if C is not None:
+                C = np.union1d(C, bad)
+        pick = np.argsort(-bad_excess)[:max(add_per_round, S.size // 4)]
+        S = np.concatenate([S, bad[pick]])
+        signs = np.concatenate([signs, -np.sign(bad_grad[pick])])
     dual = loss.derivative(y, X @ coef + b0)
     return Refined(coef, b0, dual, X.T @ dual / n, False, it)
 

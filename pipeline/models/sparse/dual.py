@@ -7,7 +7,6 @@ through that subgradient.
 from __future__ import annotations
 
 import numpy as np
-from scipy.optimize import linprog
 
 from pipeline.losses import Loss, get_loss
 
@@ -40,6 +39,8 @@ def intercept_only_dual(X, y, loss: Loss) -> np.ndarray:
     A_eq = np.r_[np.ones(k), 0.0][None, :]
     b_eq = [-g[fixed].sum()]
     bounds = [(lo, hi) for lo, hi in zip(low[free], high[free])] + [(0, None)]
+    from scipy.optimize import linprog   # loaded by a fit, not by reading a config
+
     res = linprog(cost, A_ub=A_ub, b_ub=b_ub, A_eq=A_eq, b_eq=b_eq, bounds=bounds, method="highs")
     if res.status == 0:
         g[free] = res.x[:k]

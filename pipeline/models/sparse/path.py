@@ -100,11 +100,11 @@ class PathFitter:
         self.lp = None
 
     def seed(self, lam) -> np.ndarray:
-        active = np.flatnonzero(self.coef)
         if self.screening == "strong" and self.prev_lam is not None:
-            strong = np.flatnonzero(np.abs(self.grad) >= self.alpha * (2 * lam - self.prev_lam))
-            return np.union1d(active, strong)
-        return active
+            keep = np.abs(self.grad) >= self.alpha * (2 * lam - self.prev_lam)
+            keep[self.coef != 0] = True
+            return np.flatnonzero(keep)     # sorted: the active set joined with the strong set
+        return np.flatnonzero(self.coef)
 
     def _fit_on(self, W, lam):
         """Solve on W, decide zeros from optimality, refine; returns (coef, b0, u, status)."""

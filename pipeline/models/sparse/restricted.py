@@ -18,8 +18,6 @@ import warnings
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.sparse as sp
-from scipy.optimize import linprog
 
 from pipeline.losses import Loss
 from pipeline.losses_weighted import row_factors
@@ -42,6 +40,7 @@ def _penalty_split(lam: float, alpha: float) -> tuple[float, float]:
 def solve_squared_gram(XW, y, lam, alpha, warm=None, tol=1e-9, factors=None) -> Restricted:
     """`factors`: per-row factors c_i of a weighted squared loss (weighted means and Gram)."""
     import osqp   # solver libraries load only where a fit needs them (penduel validate stays light)
+    import scipy.sparse as sp
 
     n, k = XW.shape
     w = np.ones(n) if factors is None else np.asarray(factors, float)
@@ -82,6 +81,9 @@ def solve_piecewise_lp(XW, y, lam, loss: Loss) -> Restricted:
     Hinge: y*(X b + b0) + xi - s = 1, xi, s >= 0, cost (1/n) on xi. A weighted loss multiplies the
     costs of row i's r+ and r- by its factor c_i.
     """
+    import scipy.sparse as sp
+    from scipy.optimize import linprog
+
     n, k = XW.shape
     rows = row_factors(loss, n)
     if loss.task == "regression":
