@@ -11,6 +11,7 @@ from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.preprocessing import PolynomialFeatures
 
 from ..kernels import median_bandwidth
+from ..matrices import as_features
 from ..settings import Settings
 from .registry import MapKind, register_map
 
@@ -47,7 +48,7 @@ class IdentityColumns(TransformerMixin, BaseEstimator):
         return self
 
     def transform(self, X):
-        return np.asarray(X, dtype=float)
+        return as_features(X)
 
     def get_feature_names_out(self, input_features):
         return list(input_features)
@@ -145,7 +146,7 @@ def _polynomial_width(spec, n_inputs: int, n_rows=None) -> int:
 
 
 register_map(MapKind("identity", IdentityMap, lambda spec, seed: IdentityColumns(),
-                     lambda spec, n_inputs, n_rows=None: n_inputs, standardised_input=False))
+                     lambda spec, n_inputs, n_rows=None: n_inputs, standardised_input=False, sparse_input=True))
 register_map(MapKind("polynomial", PolynomialMap,
                      lambda spec, seed: PolynomialTerms(spec.degree, spec.interaction_only), _polynomial_width))
 register_map(MapKind("random_fourier", RandomFourierMap,

@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from pipeline.losses import Loss
+from pipeline.matrices import column_means, columns
 
 
 @dataclass
@@ -78,7 +79,7 @@ class GramCache:
 
     def __init__(self, X, y):
         self.X, self.n = X, X.shape[0]
-        self.means = X.mean(axis=0)
+        self.means = column_means(X)
         self.xty = X.T @ y / self.n
         self.ybar = float(np.mean(y))
         self.index = np.zeros(0, int)           # columns whose Gram block is cached
@@ -89,7 +90,7 @@ class GramCache:
         new = np.array([j for j in S if j not in self.where], int)
         if new.size == 0:
             return
-        Xn = self.X[:, new]
+        Xn = columns(self.X, new)
         cross = self.X[:, self.index].T @ Xn / self.n
         corner = Xn.T @ Xn / self.n
         self.block = np.block([[self.block, cross], [cross.T, corner]])
@@ -135,7 +136,7 @@ def refine(X, y, coef, intercept, lam, alpha, loss: Loss, max_iter=300, add_per_
         if gram is not None:
             target = gram.solve(S, signs, lam, alpha)
         else:
-            target = orthant_newton(X[:, S], y, theta0, signs, lam, alpha, loss)
+            target = orthant_newton(columns(X, S), y, theta0, signs, lam, alpha, loss)
         flips = np.flatnonzero(np.sign(target[1:]) != signs)
         if flips.size:
             # go as far as the first sign change, and drop that coordinate
@@ -196,7 +197,7 @@ def polish_zeros(X, y, ref: Refined, lam, alpha, loss: Loss, tol=1e-9, gram: Gra
     if gram is not None:
         target = gram.solve(S, signs, lam, alpha)
     else:
-        target = orthant_newton(X[:, S], y, np.r_[ref.intercept, coef[S]], signs, lam, alpha, loss)
+        target = orthant_newton(columns(X, S), y, np.r_[ref.intercept, coef[S]], signs, lam, alpha, loss)
     if np.any(np.sign(target[1:]) != signs):
         return ref
     out = np.zeros_like(coef)

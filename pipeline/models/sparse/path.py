@@ -20,6 +20,7 @@ import numpy as np
 from threadpoolctl import ThreadpoolController
 
 from pipeline.losses import get_loss
+from pipeline.matrices import as_features, columns, is_sparse, times_rows
 from pipeline.models.sparse import certificate as cert
 from pipeline.models.sparse import restricted as rs
 from pipeline.models.sparse.active_set import GramCache, polish_zeros, refine
@@ -69,8 +70,8 @@ def lambda_grid(lam_max: float, n_lambdas: int, ratio: float) -> np.ndarray:
 
 
 def predict_path(path: L1Path, X) -> np.ndarray:
-    """(L, m) decision values b0 + X b for every lambda."""
-    return path.coef @ np.asarray(X, float).T + path.intercept[:, None]
+    """(L, m) decision values b0 + X b for every lambda (X dense or sparse)."""
+    return times_rows(path.coef, X) + path.intercept[:, None]
 
 
 def _solve_restricted(route, XW, y, lam, alpha, loss, warm, tol):
@@ -115,9 +116,9 @@ class PathFitter:
             if self.lp is None:
                 self.lp = rs.WarmSplitLP(X, y, loss)
             W, res = self.lp.solve(W, lam)
-            XW = X[:, W]
+            XW = columns(X, W)
         else:
-            XW = X[:, W]
+            XW = columns(X, W)   # a sparse X densifies the working set's columns only
             res = _solve_restricted(self.route, XW, y, lam, alpha, loss, self.coef[W], self.tol)
         self.solver_used.add(res.solver)
         gradW = XW.T @ res.dual / self.n
@@ -197,7 +198,8 @@ def _fit_path(X, y, loss, lambdas, alpha, tol, solver, max_working_set_rounds, s
               selection_only=False) -> L1Path:
     start = time.perf_counter()
     loss = get_loss(loss) if isinstance(loss, str) else loss
-    X = np.ascontiguousarray(X, dtype=float)
+    # a sparse matrix stays sparse (CSC): Xᵀu products over the stored entries, column slices
+    X = as_features(X) if is_sparse(X) else np.ascontiguousarray(X, dtype=float)
     y = np.asarray(y, dtype=float).ravel()
     lambdas = np.sort(np.asarray(lambdas, dtype=float).ravel())[::-1]
     if not 0 < alpha <= 1:
@@ -259,14 +261,15 @@ def degrees_of_freedom(path: L1Path, X) -> np.ndarray:
     """
     if path.alpha >= 1.0 or not get_loss(path.loss).quadratic:
         return path.n_nonzero.astype(float)
-    X = np.asarray(X, float)
-    Xc = X - X.mean(axis=0)
+    X = as_features(X)
     n = X.shape[0]
     out = np.zeros(path.lambdas.size)
     for i, (lam, row) in enumerate(zip(path.lambdas, path.coef)):
         S = np.flatnonzero(row)
         if S.size:
-            G = Xc[:, S].T @ Xc[:, S]
+            XS = columns(X, S)
+            XS = XS - XS.mean(axis=0)   # centred support columns
+            G = XS.T @ XS
             ridge = n * lam * (1 - path.alpha)
             out[i] = float(np.trace(np.linalg.solve(G + ridge * np.eye(S.size), G)))
     return out
