@@ -28,6 +28,10 @@ from pipeline.models.sparse.dual import intercept_only_dual, lambda_max
 from pipeline.models.sparse.routing import AUTOMATIC, route as choose_route
 
 SCREENING = ("strong", "active")
+# A strong-rule set wider than this many columns per row (wide sparse counts: thousands of columns whose one
+# nonzero sits in the same row are identical once scaled, and tie) seeds the working set with its largest
+# gradients only; the optimality check over every column still adds each violator, so the fit is unchanged.
+MAX_SEED_PER_ROW = 2
 _THREADPOOLS: list = []   # one controller per process: building one scans the loaded libraries (~6 ms)
 
 
@@ -103,6 +107,9 @@ class PathFitter:
         active = np.flatnonzero(self.coef)
         if self.screening == "strong" and self.prev_lam is not None:
             strong = np.flatnonzero(np.abs(self.grad) >= self.alpha * (2 * lam - self.prev_lam))
+            cap = MAX_SEED_PER_ROW * self.n
+            if strong.size > cap:   # keep the largest gradients; the check over every column adds the rest
+                strong = strong[np.argsort(-np.abs(self.grad[strong]), kind="stable")[:cap]]
             return np.union1d(active, strong)
         return active
 
