@@ -45,6 +45,8 @@ class StoredPath:
 def input_frame(dataset, rows) -> pd.DataFrame:
     """The rows of `dataset` as raw input columns (one-hot columns decoded back to their text level)."""
     X = dense(dataset.X[np.asarray(rows)])
+    if not dataset.inputs:   # every feature is a numeric input column: one block, not a Series per column
+        return pd.DataFrame(X, columns=list(dataset.feature_names))
     index = {name: j for j, name in enumerate(dataset.feature_names)}
     inputs = dataset.inputs or tuple(InputColumn(name) for name in dataset.feature_names)
     out = {}
