@@ -132,6 +132,8 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
     eval_loss = path_losses(loss, t_ev, f_ev, fit.multiclass, weights=w_ev)
     if coef is not None:
         coef, intercept = output_scale(builder, coef * scale, intercept * scale + center)
+        if task.split.startswith("fold"):   # a CV fold is read for its held-out losses only: its (L, p)
+            coef = None                      # weights are not kept (on wide data they dominate memory)
     return FitOutcome(
         task_id=task.task_id, split=task.split, family=task.family, loss_label=task.loss_label,
         eval_loss=eval_loss, eval_pred=center + scale * f_ev, coef=coef, intercept=np.asarray(intercept),

@@ -21,6 +21,8 @@ from typing import Any, Callable, Iterable, Mapping
 
 import numpy as np
 
+from .matrices import as_features, dense
+
 # Rows per block: bounds the temporaries of a block to about block_rows × m floats.
 DEFAULT_BLOCK_ROWS = 1024
 
@@ -82,6 +84,9 @@ class Kernel:
     metric: str = "euclidean"
     # K = ΦΦᵀ of the features themselves, so a fit has one coefficient per feature
     has_feature_weights: bool = False
+    # its block takes scipy sparse rows (a product of the features: ZZᵀ without densifying Z); other
+    # kernels get dense rows
+    sparse_input: bool = False
 
     def resolve(self, X_train, **params) -> dict:
         """Validate the parameter names and fill in the defaults from the training rows."""
@@ -89,7 +94,7 @@ class Kernel:
         if unknown:
             raise ValueError(f"kernel {self.name!r} takes no parameter(s) {sorted(unknown)}; "
                              f"allowed: {sorted(self.params) or 'none'}")
-        X_train = np.asarray(X_train, dtype=float)
+        X_train = as_features(X_train) if self.sparse_input else dense(X_train)
         out = dict(params)
         for name in self.params:
             if out.get(name) is not None:
@@ -165,7 +170,7 @@ def _matern52(Xb, Z, p):
 
 
 for _kernel in (
-    Kernel("linear", lambda Xb, Z, p: Xb @ Z.T, "xᵀz", has_feature_weights=True),
+    Kernel("linear", lambda Xb, Z, p: dense(Xb @ Z.T), "xᵀz", has_feature_weights=True, sparse_input=True),
     Kernel("polynomial", lambda Xb, Z, p: (p["scale"] * (Xb @ Z.T) + p["coef0"]) ** p["degree"],
            "(scale·xᵀz + coef0)^degree", ("degree", "coef0", "scale"),
            {"degree": 3, "coef0": 1.0, "scale": lambda X: 1.0 / max(X.shape[1], 1)}),
@@ -187,13 +192,15 @@ def __getattr__(name: str):
 
 def gram(X, Z=None, kernel: str = "linear", block_rows: int = DEFAULT_BLOCK_ROWS,
          **params) -> np.ndarray:
-    """K[i, j] = k(X_i, Z_j), computed in row blocks of X; Z None gives K(X, X)."""
-    X = np.asarray(X, dtype=float)
+    """K[i, j] = k(X_i, Z_j), computed in row blocks of X; Z None gives K(X, X). Sparse rows stay sparse
+    for a kernel that takes them (Kernel.sparse_input) and are densified for the others."""
+    k = get_kernel(kernel)
+    rows = as_features if k.sparse_input else dense
+    X = rows(X)
     symmetric = Z is None
-    Z = X if symmetric else np.asarray(Z, dtype=float)
+    Z = X if symmetric else rows(Z)
     if X.shape[1] != Z.shape[1]:
         raise ValueError(f"X has {X.shape[1]} columns but Z has {Z.shape[1]}")
-    k = get_kernel(kernel)
     p = k.resolve(Z, **params)
     K = np.empty((X.shape[0], Z.shape[0]))
     for start in range(0, X.shape[0], block_rows):

@@ -23,6 +23,7 @@ from threadpoolctl import threadpool_limits
 
 from .data import InputColumn
 from .data.loaders import encode_rows
+from .matrices import as_features, dense, from_parts, to_parts
 
 FORMAT = 1
 STATE_ARRAYS = "arrays.npz"
@@ -43,7 +44,9 @@ class StoredPath:
 # ---------------------------------------------------------------- from an experiment to arrays
 def input_frame(dataset, rows) -> pd.DataFrame:
     """The rows of `dataset` as raw input columns (one-hot columns decoded back to their text level)."""
-    X = np.asarray(dataset.X)[np.asarray(rows)]
+    X = dense(dataset.X[np.asarray(rows)])
+    if not dataset.inputs:   # every feature is a numeric input column: one block, not a Series per column
+        return pd.DataFrame(X, columns=list(dataset.feature_names))
     index = {name: j for j, name in enumerate(dataset.feature_names)}
     inputs = dataset.inputs or tuple(InputColumn(name) for name in dataset.feature_names)
     out = {}
@@ -82,7 +85,7 @@ def export_state(result, r) -> tuple[dict[str, np.ndarray], dict]:
         center, scale = target_scaling(shared, ds.y[rows])
         fit = family.fit_path(builder.transform(ds.X[rows]), (ds.y[rows] - center) / scale,
                               fit_loss(shared, family.key, loss, rows), r.lambdas, shared.family_options[family.key])
-    arrays = {"X_train": np.asarray(ds.X[rows], float), "lambdas": np.asarray(fit.lambdas, float),
+    arrays = {**to_parts("X_train", ds.X[rows]), "lambdas": np.asarray(fit.lambdas, float),   # sparse: its parts
               "intercept": np.asarray(fit.intercept, float)}
     # the representer form keeps its basis rows; K > 2 classes fitted one versus the rest: one path per
     # class on the same basis, stored with the class axis last
@@ -102,7 +105,7 @@ def export_state(result, r) -> tuple[dict[str, np.ndarray], dict]:
     if basis is not None:
         models = [f.model for f in per_class] if per_class else [fit.model]
         dual = [np.asarray(m.path.dual_coef, float) for m in models]
-        arrays.update(basis=np.asarray(basis, float), dual_coef=np.stack(dual, axis=-1) if per_class else dual[0])
+        arrays.update(**to_parts("basis", basis), dual_coef=np.stack(dual, axis=-1) if per_class else dual[0])
         meta.update(kernel=models[0].kernel, kernel_params=dict(models[0].kernel_params))
     else:
         arrays["coef"] = np.asarray(fit.coef, float)
@@ -132,9 +135,9 @@ class PackagedModel(BaseEstimator):
         maps = FeaturesSpec(maps=m["maps"]).maps
         with threadpool_limits(limits=1):
             self.builder_ = FeatureBuilder(maps, seed=m["seed"], input_names=tuple(m["feature_names"])) \
-                .fit(a["X_train"])
+                .fit(from_parts("X_train", a))
         self.path_ = StoredPath(lambdas=a["lambdas"], intercept=a["intercept"], coef=a.get("coef"),
-                                dual_coef=a.get("dual_coef"), basis=a.get("basis"))
+                                dual_coef=a.get("dual_coef"), basis=from_parts("basis", a))
         self.inputs_ = tuple(InputColumn(c["name"], None if c["levels"] is None else tuple(c["levels"]),
                                          c["boolean"]) for c in m["inputs"])
         if m["class_labels"]:
@@ -167,7 +170,7 @@ class PackagedModel(BaseEstimator):
 
         m, p = self.meta, self.path_
         with threadpool_limits(limits=1):
-            Z = self.builder_.transform(np.asarray(X, float))
+            Z = self.builder_.transform(as_features(X))
             G = None if p.basis is None else gram(Z, p.basis, kernel=m["kernel"], **m["kernel_params"])
 
             def one(path):

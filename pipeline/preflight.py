@@ -15,6 +15,7 @@ import urllib.parse
 import numpy as np
 
 from .data import DataError
+from .matrices import MIB, column_ranges, dense, dense_mib, density, is_sparse, stored_bytes
 
 CONNECT_TIMEOUT = 3.0        # seconds to wait for a store or scheduler to answer
 MIN_TEST_ROWS = 5            # fewer held-out rows give degenerate bootstrap intervals (common practice)
@@ -123,7 +124,7 @@ def check_split(spec, dataset, train_rows, test_rows) -> tuple:
     if np.ptp(y) == 0:
         raise DataError(f"data.target: column '{dataset.target_name}' has the same value {y[0]:g} on all "
                         f"{len(train_rows)} training rows; there is nothing to learn. Use more varied data.")
-    constant = np.ptp(dataset.X[train_rows], axis=0) == 0
+    constant = column_ranges(dataset.X[train_rows]) == 0
     if constant.all():
         raise DataError(f"data: every feature column is constant on the {len(train_rows)} training rows; "
                         f"nothing can be learned.")
@@ -158,3 +159,46 @@ def clip_centres(spec, min_rows: int) -> tuple:
     if not notes:
         return spec, ()
     return spec.model_copy(update={"features": spec.features.model_copy(update={"maps": tuple(maps)})}), tuple(notes)
+
+
+# ---------------------------------------------------------------- sparse inputs
+def feature_mib(X, n_train: int, width: int) -> float:
+    """Memory (MiB) of the training rows' feature matrix Z, its raw copy and the scaler's work space: for a
+    matrix that stays sparse its stored entries (values, row indices, column pointers), else n·width·8."""
+    if is_sparse(X):
+        return 3 * stored_bytes(X) * n_train / max(X.shape[0], 1) / MIB
+    return 3 * dense_mib(n_train, width)
+
+
+def sparse_or_dense(spec, dataset, n_train: int, families) -> tuple:
+    """A sparse feature matrix stays sparse when every feature map and every enabled family (`families`)
+    takes sparse rows. Otherwise it is densified once, with a note, when the dense matrix fits in
+    features.memory_budget_mib, and refused naming what needs dense rows when it does not.
+    Returns (dataset, notes)."""
+    import dataclasses
+
+    from .features import get_map, output_width
+
+    if not is_sparse(dataset.X):
+        return dataset, ()
+    needs = [f"features.maps[{i + 1}] ({m.kind}: it reads dense rows)" for i, m in enumerate(spec.features.maps)
+             if not get_map(m.kind).sparse_input]
+    for f in families:
+        why = f.needs_dense(f.for_training_rows(f.options(getattr(spec.families, f.key)), n_train))
+        if why:
+            needs.append(f"families.{f.key} ({why})")
+    if not needs:
+        return dataset, ()
+    n, p = dataset.X.shape
+    width = sum(output_width(m, p, n_train) for m in spec.features.maps)
+    mib = dense_mib(n, p) + 3 * dense_mib(n_train, width)
+    budget = spec.features.memory_budget_mib
+    shape = f"{n:,} × {p:,} sparse matrix ({density(dataset.X) * 100:.3g} % nonzero)"
+    if mib > budget:
+        raise DataError(f"data: the {shape} would have to be densified for {'; '.join(needs)}: about {mib:,.0f} MiB "
+                        f"with the features built from it, over features.memory_budget_mib = {budget}. Keep it "
+                        f"sparse with the identity map only and families.l2.kernel: linear (or families.l2 "
+                        f"disabled), or raise the budget.")
+    note = (f"the {shape} was densified ({dense_mib(n, p):,.1f} MiB, within features.memory_budget_mib = "
+            f"{budget}) because {'; '.join(needs)}")
+    return dataclasses.replace(dataset, X=dense(dataset.X)), (note,)

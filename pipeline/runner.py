@@ -83,7 +83,7 @@ class ExperimentResult:
 
 def check_feature_budget(spec: ExperimentSpec, dataset: Dataset, n_train: int) -> int:
     width = sum(output_width(m, dataset.n_features, n_train) for m in spec.features.maps)
-    mib = n_train * width * 8 * 3 / 2**20   # Z, its raw copy and the scaler's work space
+    mib = preflight.feature_mib(dataset.X, n_train, width)   # Z, its raw copy and the scaler's work space
     if mib > spec.features.memory_budget_mib:
         raise DataError(
             f"features.maps: the explicit feature matrix would have {width:,} columns for {n_train} training "
@@ -324,12 +324,13 @@ def prepare(spec: ExperimentSpec, base_dir: pathlib.Path) -> Inputs:
     dataset = load_dataset(spec.data, base_dir, spec.task, spec.split)
     train_rows, test_rows = split_rows(spec, dataset)
     dataset, notes = preflight.check_split(spec, dataset, train_rows, test_rows)
+    dataset, densified = preflight.sparse_or_dense(spec, dataset, len(train_rows), enabled_families(spec))
     preflight.check_resamples(spec, len(train_rows))
     splits = plan_splits(spec, dataset, train_rows, test_rows)
     resamples = plan_resamples(spec, dataset, train_rows, test_rows) if stability_losses(spec) else []
     spec, clipped = preflight.clip_centres(spec, min(len(tr) for _, tr, _ in splits + list(resamples)))
     check_feature_budget(spec, dataset, len(train_rows))
-    return Inputs(spec, dataset, train_rows, test_rows, splits, resamples, notes + clipped)
+    return Inputs(spec, dataset, train_rows, test_rows, splits, resamples, notes + densified + clipped)
 
 
 def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool = True,

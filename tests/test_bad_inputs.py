@@ -152,8 +152,57 @@ def _plain(extra: str) -> str:
     return PLAIN + extra
 
 
+def _npz(matrix=None, **arrays) -> bytes:
+    """A .npz file: a sparse matrix as scipy.sparse.save_npz writes it, or plain arrays as numpy.savez does."""
+    import scipy.sparse as sp
+
+    buf = io.BytesIO()
+    if matrix is not None:
+        sp.save_npz(buf, matrix)
+    else:
+        np.savez(buf, **arrays)
+    return buf.getvalue()
+
+
+def _npz_files(matrix=None, names=5, targets=6, **arrays) -> dict:
+    return {"counts.npz": _npz(matrix, **arrays), "names.txt": "".join(f"g{j}\n" for j in range(names)),
+            "target.txt": "".join(f"{v}\n" for v in np.arange(targets) % 3 + 0.5)}
+
+
+def _sparse(with_nan=False):
+    import scipy.sparse as sp
+
+    m = sp.csc_matrix(np.eye(6, 5) * 2.0 + np.eye(6, 5, k=-1))
+    if with_nan:
+        m.data[3] = np.nan
+    return m
+
+
+NPZ_CONFIG = ("name: bad\ndata: {kind: npz, path: counts.npz, feature_names: names.txt, target_file: target.txt}\n"
+              "losses: [squared]\n" + SMALL)
+
+
 CASES.update({
     # ------------------------------------------------------------ data the loader must not accept silently
+    "npz of plain arrays": (_npz_files(arr_0=np.zeros((6, 5))), NPZ_CONFIG,
+                            ["data.path", "holds the arrays arr_0", "scipy.sparse.save_npz", "missing: format"]),
+    "npz that is not a zip": ({"counts.npz": "a,b\n1,2\n", "names.txt": "a\n", "target.txt": "1\n"}, NPZ_CONFIG,
+                              ["data.path", "cannot read", "as a .npz file"]),
+    "npz names fewer than columns": (_npz_files(_sparse(), names=4), NPZ_CONFIG,
+                                     ["data.feature_names", "has 4 name(s)", "has 5 columns"]),
+    "npz target lines fewer than rows": (_npz_files(_sparse(), targets=4), NPZ_CONFIG,
+                                         ["data.target_file", "has 4 line(s)", "has 6 rows"]),
+    "npz with a NaN entry": (_npz_files(_sparse(with_nan=True)), NPZ_CONFIG,
+                             ["data.path", "missing or infinite stored value", "nan at row"]),
+    "sparse npz densified over the budget": (
+        _npz_files(__import__("scipy.sparse").sparse.random(40, 60_000, density=0.05, format="csc",
+                                                              random_state=0), names=60_000, targets=40),
+        NPZ_CONFIG.replace("losses: [squared]\n", "losses: [squared]\nfeatures: {memory_budget_mib: 16}\n"
+                           "families: {l2: {kernel: rbf}}\n").replace("families: {l1: {path: {points: 4}}, "
+                                                                       "l2: {path: {points: 4}}}\n", ""),
+        ["data: the 40 ×", "% nonzero) would have to be densified",
+         "families.l2 (the rbf kernel reads dense rows",
+         "memory_budget_mib = 16"]),
     "header repeats the target": ({"data.csv": "y,a,y\n" + "".join(f"{i},{i % 3},{i}\n" for i in range(30))},
                                   _file_config(), ["column 'y' twice", "columns 1 and 3"]),
     "header repeats a feature": ({"data.csv": "a,a,y\n" + "".join(f"{i % 5},{i % 3},{i}\n" for i in range(30))},

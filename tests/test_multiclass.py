@@ -250,3 +250,21 @@ def test_weighted_logistic_goes_one_versus_rest_because_the_multinomial_fitters_
     assert several.strategy(loss) == ONE_VERSUS_REST and several.strategy(get_loss("logistic")) == MULTINOMIAL
     fit = several.fit_path(Z, codes, loss, several.grid(Z, codes, loss, opts), opts)
     assert fit.multiclass == ONE_VERSUS_REST and "or with row weights" in fit.note
+
+
+@pytest.mark.parametrize("loss_name", ["logistic", "hinge"])
+def test_several_classes_from_sparse_rows_match_the_dense_fit_in_both_families(loss_name):
+    import scipy.sparse as sp
+    rng = np.random.default_rng(3)
+    Z = rng.normal(size=(60, 8))
+    Z[np.abs(Z) < 1] = 0.0
+    codes = rng.integers(0, 3, 60)
+    loss = get_loss(loss_name)
+    l1_opts = {"tol": 1e-8, "solver": "auto", "alpha": 1.0, "n_lambdas": 4, "lambda_ratio": 0.1}
+    for family, opts in ((SPARSE, l1_opts), (RIDGE, RIDGE.options(L2Spec(path={"points": 4})))):
+        several = for_classes(family, 3)
+        grid = several.grid(Z, codes, loss, opts)
+        on_sparse = several.fit_path(sp.csc_matrix(Z), codes, loss, grid, opts)
+        on_dense = several.fit_path(Z, codes, loss, grid, opts)
+        assert np.allclose(on_sparse.coef, on_dense.coef, atol=1e-8)
+        assert np.allclose(several.predict(on_sparse, sp.csc_matrix(Z)), several.predict(on_dense, Z), atol=1e-7)

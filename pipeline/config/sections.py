@@ -21,7 +21,8 @@ FeatureMap = Annotated[Union[tuple(m.settings for m in MAPS.values())], Field(di
 class FeaturesSpec(Settings):
     maps: tuple[FeatureMap, ...] = Field((MAPS["identity"].settings(kind="identity"),),
                                          description="Feature maps whose outputs are concatenated.")
-    memory_budget_mib: int = Field(2048, ge=16, description="Largest explicit feature matrix allowed, in MiB.")
+    memory_budget_mib: int = Field(2048, ge=16, description="Largest explicit feature matrix allowed, in MiB "
+                                                                  "(a sparse one counted by its stored entries).")
 
     @field_validator("maps")
     @classmethod

@@ -32,6 +32,18 @@ class FileSource(SourceBase):
                             "must be of this kind.")
 
 
+class SparseSource(SourceBase):
+    kind: Literal["npz"] = Field(description="Read a sparse matrix written by scipy.sparse.save_npz (CSR or CSC); "
+                                             "it is kept sparse through every stage that allows it.")
+    path: str = Field(description="The .npz file, relative to the config file's folder.")
+    feature_names: str = Field(description="Text file with one feature name per line, in column order.")
+    target_file: str = Field(description="Text file with one target value (a number or a class label) per line, "
+                                         "in row order.")
+    target: str = Field("target", description="Name of the target, as the report shows it.")
+    task: Literal["auto", "regression", "classification"] = Field(
+        "auto", description="What the target is; 'auto' decides as for a CSV target column.")
+
+
 class BundledSource(SourceBase):
     kind: Literal["bundled"] = Field(description="An open dataset shipped with scikit-learn.")
     name: Literal[BUNDLED_CHOICES] = Field(
@@ -57,4 +69,4 @@ class ScenarioSource(SourceBase):
         return self
 
 
-DataSource = Annotated[Union[FileSource, BundledSource, ScenarioSource], Field(discriminator="kind")]
+DataSource = Annotated[Union[FileSource, SparseSource, BundledSource, ScenarioSource], Field(discriminator="kind")]

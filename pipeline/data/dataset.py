@@ -6,6 +6,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..matrices import to_parts
+
 
 class DataError(ValueError):
     """A problem with the user's data: one paragraph, shown without a traceback."""
@@ -43,7 +45,7 @@ class InputColumn:
 
 @dataclass(frozen=True)
 class Dataset:
-    X: np.ndarray                       # (n, p) float64
+    X: np.ndarray                       # (n, p) float64, or a scipy CSC matrix (pipeline.matrices)
     y: np.ndarray                       # (n,) float64; two classes are −1/+1, K > 2 classes codes 0..K−1
     feature_names: tuple[str, ...]
     target_name: str
@@ -72,7 +74,8 @@ class Dataset:
 
     def content_hash(self) -> str:
         h = hashlib.sha256()
-        h.update(np.ascontiguousarray(self.X, dtype=np.float64).tobytes())
+        for part in to_parts("X", self.X).values():   # a sparse matrix: its stored entries and shape
+            h.update(np.ascontiguousarray(part).tobytes())
         h.update(np.ascontiguousarray(self.y, dtype=np.float64).tobytes())
         h.update("\x1f".join(self.feature_names).encode())
         h.update(self.target_name.encode())

@@ -13,6 +13,7 @@ from .bundled import BUNDLED
 from .dataset import DataError, Dataset, InputColumn
 from .design import attach_test_file, take_design
 from .scenarios import make_scenario
+from .sparse_files import load_npz, sparse_if_mostly_zero
 from .task import infer_task
 from .weights import take_weights
 
@@ -30,6 +31,8 @@ def load_dataset(source, base_dir: pathlib.Path, task: str, split=None) -> Datas
         return ds
     if source.kind == "bundled":
         return _bundled(source.name, task)
+    if source.kind == "npz":
+        return load_npz(source, base_dir, task, _target)
     path = pathlib.Path(source.path)
     if not path.is_absolute():
         path = base_dir / path
@@ -51,8 +54,8 @@ def load_dataset(source, base_dir: pathlib.Path, task: str, split=None) -> Datas
                                   split.columns if split is not None else ())
     frame, design = take_design(frame, split, source.target, str(path), holdout)
     ds = frame_to_dataset(frame, source.target, task, source=str(path))
-    return dataclasses.replace(ds, design=design, notes=tuple(notes) + ds.notes, weights=weights,
-                               weights_name=getattr(source, "weights", None) or "")
+    return sparse_if_mostly_zero(dataclasses.replace(ds, design=design, notes=tuple(notes) + ds.notes, weights=weights,
+                                                     weights_name=getattr(source, "weights", None) or ""))
 
 
 def read_table(path: pathlib.Path, kind: str) -> pd.DataFrame:

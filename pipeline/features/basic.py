@@ -9,6 +9,7 @@ from sklearn.base import BaseEstimator, TransformerMixin
 from sklearn.preprocessing import PolynomialFeatures
 
 from ..kernels import median_bandwidth
+from ..matrices import as_features
 from .maps import IdentityMap, PolynomialMap, RandomFourierMap  # noqa: F401  (their settings)
 
 
@@ -18,7 +19,7 @@ class IdentityColumns(TransformerMixin, BaseEstimator):
         return self
 
     def transform(self, X):
-        return np.asarray(X, dtype=float)
+        return as_features(X)
 
     def get_feature_names_out(self, input_features):
         return list(input_features)

@@ -11,6 +11,7 @@ import numpy as np
 from sklearn.base import BaseEstimator, TransformerMixin
 
 from .. import seeds
+from ..matrices import as_features, dense, is_sparse
 from .registry import get_map
 
 
@@ -22,20 +23,32 @@ class Standardiser:
     scale below 10·eps is replaced by 1), so both give the same result on degenerate columns.
     """
 
+    def __init__(self, centre: bool = True):
+        self.centre = centre   # False for sparse rows: scaled only (centring would fill every zero)
+
     def fit(self, X) -> "Standardiser":
-        X = np.asarray(X, dtype=float)
-        n = X.shape[0]
-        self.mean_ = X.mean(axis=0)
-        var = X.var(axis=0)
+        if is_sparse(X):
+            n = X.shape[0]
+            self.mean_ = np.asarray(X.mean(axis=0)).ravel()
+            var = np.maximum(np.asarray(X.multiply(X).mean(axis=0)).ravel() - self.mean_ ** 2, 0.0)
+        else:
+            X = np.asarray(X, dtype=float)
+            n = X.shape[0]
+            self.mean_ = X.mean(axis=0)
+            var = X.var(axis=0)
         eps = np.finfo(np.float64).eps
         constant = var <= n * eps * var + (n * self.mean_ * eps) ** 2
         scale = np.sqrt(var)
         scale[constant | (scale < 10 * eps)] = 1.0
         self.scale_ = scale
         self.var_ = var
+        if not self.centre:
+            self.mean_ = np.zeros_like(scale)     # the offset removed: none
         return self
 
-    def transform(self, X) -> np.ndarray:
+    def transform(self, X):
+        if is_sparse(X):
+            return as_features(X.multiply(1.0 / self.scale_[None, :]))   # CSC again
         out = np.array(X, dtype=float)      # a copy, as every caller keeps its input
         out -= self.mean_
         out /= self.scale_
@@ -62,12 +75,20 @@ class FeatureBuilder(TransformerMixin, BaseEstimator):
         raw = self._fit(X)
         return self.output_scaler_.transform(raw)
 
+    def _rows(self, X):
+        """Sparse rows stay sparse (CSC) when every map takes them; otherwise rows are dense floats."""
+        return as_features(X) if self.sparse_ else dense(X)
+
     def _fit(self, X) -> np.ndarray:
         """Fit every step; returns the raw map outputs of X (before the output standardisation)."""
-        X = np.asarray(X, dtype=float)
+        from . import keeps_sparse
+        self.sparse_ = keeps_sparse(X, self.maps)
+        X = self._rows(X)
+        # sparse rows are scaled, never centred; the families fit the intercept explicitly, so the fit on
+        # scaled columns is the fit on standardised ones moved by a constant
         names = list(self.input_names) if self.input_names is not None else [f"x{j}" for j in range(X.shape[1])]
         # only maps that read standardised inputs need the input scaler (the identity map reads raw columns)
-        self.input_scaler_ = Standardiser().fit(X) if self._reads_standardised() else None
+        self.input_scaler_ = Standardiser(not self.sparse_).fit(X) if self._reads_standardised() else None
         Xs = self.input_scaler_.transform(X) if self.input_scaler_ is not None else None
         self.transformers_, out_names = [], []
         map_seeds = seeds.child_int_seeds(int(self.seed), "features", len(self.maps))
@@ -79,7 +100,7 @@ class FeatureBuilder(TransformerMixin, BaseEstimator):
             out_names.extend(t.get_feature_names_out(names))
         self.feature_names_out_ = np.asarray(out_names, dtype=object)
         raw = self._raw_outputs(X, Xs)
-        self.output_scaler_ = Standardiser().fit(raw)
+        self.output_scaler_ = Standardiser(not self.sparse_).fit(raw)
         return raw
 
     def _reads_standardised(self) -> bool:
@@ -88,10 +109,15 @@ class FeatureBuilder(TransformerMixin, BaseEstimator):
     def _raw_outputs(self, X, Xs):
         blocks = [t.transform(Xs if get_map(spec.kind).standardised_input else X)
                   for spec, t in zip(self.maps, self.transformers_)]
-        return np.hstack(blocks) if len(blocks) > 1 else blocks[0]
+        if len(blocks) == 1:
+            return blocks[0]
+        if self.sparse_:
+            import scipy.sparse as sp
+            return sp.hstack(blocks, format="csc")
+        return np.hstack(blocks)
 
     def transform(self, X):
-        X = np.asarray(X, dtype=float)
+        X = self._rows(X)
         Xs = self.input_scaler_.transform(X) if self.input_scaler_ is not None else None
         return self.output_scaler_.transform(self._raw_outputs(X, Xs))
 

@@ -100,7 +100,7 @@ def _kernel_dictionary(spec, seed):
 
 
 register_map(MapKind("identity", IdentityMap, _identity, lambda spec, n_inputs, n_rows=None: n_inputs,
-                     standardised_input=False))
+                     standardised_input=False, sparse_input=True))
 register_map(MapKind("polynomial", PolynomialMap, _polynomial, polynomial_width))
 register_map(MapKind("random_fourier", RandomFourierMap, _random_fourier,
                      lambda spec, n_inputs, n_rows=None: spec.n_components))

@@ -23,6 +23,8 @@ class MapKind:
     width: Callable[[Any, int, "int | None"], int]
     # False: the map reads the raw input columns instead of standardised ones (identity)
     standardised_input: bool = True
+    # True: the map takes a scipy sparse matrix and gives one back (no densifying); others get dense rows
+    sparse_input: bool = False
 
 
 MAPS: dict[str, MapKind] = {}

@@ -88,6 +88,11 @@ class Family:
         """The picklable fit options from its config section; `seed` for any random choice it makes."""
         raise NotImplementedError
 
+    def needs_dense(self, options: dict) -> str:
+        """Why fits with these options need dense feature rows, in a few words; "" when they take a scipy
+        sparse matrix as it is (the sparse family: Zᵀu products and column slices of the working set)."""
+        return ""
+
     def has_coefficients(self, options: dict) -> bool:
         """Whether fits with these options have one weight per feature."""
         raise NotImplementedError

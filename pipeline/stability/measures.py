@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..matrices import columns
+
 # scipy is imported inside the functions that need it: config reads the scheme table from this
 # package and should not pay for scipy.stats.
 
@@ -185,7 +187,7 @@ def correlated_groups(X: np.ndarray, features: np.ndarray, min_abs_corr: float) 
     features = np.asarray(features, dtype=int)
     if features.size == 0:
         return []
-    cols = np.asarray(X, dtype=float)[:, features]
+    cols = columns(X, features)   # dense or sparse design: only these columns are densified
     with np.errstate(invalid="ignore", divide="ignore"):
         corr = np.corrcoef(cols, rowvar=False) if features.size > 1 else np.ones((1, 1))
     adjacency = np.nan_to_num(np.abs(np.atleast_2d(corr))) >= min_abs_corr

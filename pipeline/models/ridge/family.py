@@ -12,6 +12,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from pipeline.kernels import KERNELS, gram
+from pipeline.matrices import as_features, dense, times_rows
 from pipeline.models.interface import Family, PathFit
 from pipeline.models.ridge.multinomial import fit_multinomial_kernel_path
 from pipeline.models.ridge.nystrom import fit_nystrom_path, nystrom_gap, nystrom_spectrum
@@ -37,8 +38,7 @@ class RidgeModel:
     kernel_params: dict = field(default_factory=dict)
 
     def predict(self, Z) -> np.ndarray:
-        return predict_path(self.path, gram(np.asarray(Z, float), self.basis, kernel=self.kernel,
-                                            **self.kernel_params))
+        return predict_path(self.path, gram(Z, self.basis, kernel=self.kernel, **self.kernel_params))
 
 
 @dataclass(frozen=True)
@@ -48,7 +48,7 @@ class RidgeMultinomialModel(RidgeModel):
     def predict(self, Z) -> np.ndarray:
         from pipeline.models.multiclass import class_by_class   # the arithmetic a stored model repeats
         return class_by_class(predict_path, self.path, "dual_coef",
-                              gram(np.asarray(Z, float), self.basis, kernel=self.kernel, **self.kernel_params))
+                              gram(Z, self.basis, kernel=self.kernel, **self.kernel_params))
 
 
 def _low_rank(options: dict, n: int) -> bool:
@@ -98,6 +98,14 @@ class RidgeFamily(Family):
                 "n_lambdas": section.path.points, "landmark_seed": int(seed),
                 **{key: int(getattr(section, name)) for key, name in LOW_RANK_SETTINGS.items()}}
 
+    def needs_dense(self, options: dict) -> str:
+        if options.get("low_rank"):
+            return "its low-rank (Nyström) route reads dense rows"
+        if not KERNELS[options["kernel"]].sparse_input:
+            return (f"the {options['kernel']} kernel reads dense rows; only the linear kernel, a product of the "
+                    f"features, takes them sparse")
+        return ""
+
     def has_coefficients(self, options: dict) -> bool:
         # a kernel whose feature space is the fitted columns themselves gives f = b + Zw a weight per column
         return KERNELS[options["kernel"]].has_feature_weights
@@ -126,7 +134,7 @@ class RidgeFamily(Family):
 
     def fit_path(self, Z, t, loss, lambdas, options: dict) -> PathFit:
         kernel, kp = self._kernel(options)
-        Z = np.asarray(Z, dtype=float)
+        Z = as_features(Z) if not self.needs_dense(options) else dense(Z)
         note, solver = "", "representer"
         if _low_rank(options, Z.shape[0]):
             ny = fit_nystrom_path(Z, t, kernel, lambdas, low_rank_setting(options, "n_landmarks"),
@@ -144,7 +152,7 @@ class RidgeFamily(Family):
             model = RidgeModel(path, Z, kernel, kp)
         path = model.path
         # f = b + Σ cⱼ k(zⱼ, x) with k(z, x) = zᵀx is f = b + xᵀ(Σ cⱼ zⱼ)
-        coef = path.dual_coef @ model.basis if self.has_coefficients(options) else None
+        coef = times_rows(path.dual_coef, model.basis.T) if self.has_coefficients(options) else None
         return PathFit(
             lambdas=path.lambdas, intercept=path.intercept, coef=coef, n_nonzero=None,
             effective_df=path.effective_df, df_kind=path.df_kind, certificate=None, certificate_kind="",
@@ -167,11 +175,11 @@ class RidgeFamily(Family):
     def fit_multinomial(self, Z, codes, n_classes, loss, lambdas, options: dict) -> PathFit:
         from pipeline.models.multiclass import multinomial_pathfit
         kernel, kp = self._kernel(options)
-        Z = np.asarray(Z, dtype=float)
+        Z = as_features(Z)     # a sparse matrix stays sparse (the linear kernel's Gram reads it as is)
         path = fit_multinomial_kernel_path(gram(Z, kernel=kernel, **kp), codes, n_classes, lambdas,
                                            fit_intercept=options.get("fit_intercept", True))
         model = RidgeMultinomialModel(path, Z, kernel, kp)
-        coef = np.einsum("lnk,np->lpk", path.dual_coef, Z) if self.has_coefficients(options) else None
+        coef = np.stack([np.asarray(Z.T @ c) for c in path.dual_coef]) if self.has_coefficients(options) else None
         return multinomial_pathfit(path.lambdas, path, effective_df=path.effective_df, df_kind=path.df_kind,
                                    coef=coef, model=model)
 

@@ -16,6 +16,7 @@ import numpy as np
 
 from pipeline.losses import Loss
 from pipeline.losses_weighted import row_factors
+from pipeline.matrices import column_means, columns
 
 
 @dataclass
@@ -80,9 +81,8 @@ class GramCache:
     def __init__(self, X, y, loss: Loss | None = None):
         self.X, self.n = X, X.shape[0]
         self.c = None if loss is None or loss.row_factors is None else row_factors(loss, self.n)
-        cX = X if self.c is None else X * self.c[:, None]
-        self.means = cX.mean(axis=0)
-        self.xty = cX.T @ y / self.n
+        self.means = column_means(X) if self.c is None else np.asarray(X.T @ self.c).ravel() / self.n
+        self.xty = X.T @ (y if self.c is None else self.c * y) / self.n
         self.ybar = float(np.mean(y if self.c is None else self.c * y))
         self.index = np.zeros(0, int)           # columns whose Gram block is cached, in cache order
         self.position = np.full(X.shape[1], -1)  # column -> its position in the cache (-1: not cached)
@@ -97,7 +97,7 @@ class GramCache:
             grown = np.empty((max(2 * self.block.shape[0], m + k, 16),) * 2)
             grown[:m, :m] = self.block[:m, :m]
             self.block = grown
-        Xn = self.X[:, new]
+        Xn = columns(self.X, new)
         cXn = Xn if self.c is None else Xn * self.c[:, None]
         self.block[:m, m:m + k] = self.X[:, self.index].T @ cXn / self.n
         self.block[m:m + k, :m] = self.block[:m, m:m + k].T
@@ -150,7 +150,7 @@ def refine(X, y, coef, intercept, lam, alpha, loss: Loss, max_iter=300, add_per_
         if gram is not None:
             target = gram.solve(S, signs, lam, alpha)
         else:
-            target = orthant_newton(X[:, S], y, theta0, signs, lam, alpha, loss)
+            target = orthant_newton(columns(X, S), y, theta0, signs, lam, alpha, loss)
         flips = np.flatnonzero(np.sign(target[1:]) != signs)
         if flips.size:
             # go as far as the first sign change, and drop that coordinate
@@ -214,7 +214,7 @@ def polish_zeros(X, y, ref: Refined, lam, alpha, loss: Loss, tol=1e-9, gram: Gra
     if gram is not None:
         target = gram.solve(S, signs, lam, alpha)
     else:
-        target = orthant_newton(X[:, S], y, np.r_[ref.intercept, coef[S]], signs, lam, alpha, loss)
+        target = orthant_newton(columns(X, S), y, np.r_[ref.intercept, coef[S]], signs, lam, alpha, loss)
     if np.any(np.sign(target[1:]) != signs):
         return ref
     out = np.zeros_like(coef)

@@ -13,6 +13,7 @@ from __future__ import annotations
 import numpy as np
 
 from pipeline.losses import Loss
+from pipeline.matrices import abs_column_sums
 
 
 def primal_value(X, y, coef, intercept, lam, alpha, loss: Loss) -> float:
@@ -46,7 +47,7 @@ def dual_value(X, y, u, lam, alpha, loss: Loss) -> tuple[float, np.ndarray]:
         if lam > 0:
             scale = min(1.0, n * lam / top) if top > 0 else 1.0
         else:  # unpenalised: feasible only if X'u = 0 up to rounding, else no certificate
-            rounding = 1e-10 * float(np.abs(X).sum(axis=0).max(initial=0.0)) * float(np.abs(u).max(initial=0.0))
+            rounding = 1e-10 * float(abs_column_sums(X).max(initial=0.0)) * float(np.abs(u).max(initial=0.0))
             scale = 1.0 if top <= rounding else 0.0
         u, xu = u * scale, xu * scale
         pen = 0.0

@@ -9,6 +9,7 @@ from __future__ import annotations
 import numpy as np
 
 from pipeline.losses import Loss, get_loss
+from pipeline.matrices import as_features, is_sparse
 
 
 def intercept_only_dual(X, y, loss: Loss) -> np.ndarray:
@@ -18,7 +19,7 @@ def intercept_only_dual(X, y, loss: Loss) -> np.ndarray:
     is an interval; a small LP picks the point that makes the zero solution optimal
     for the smallest lambda.
     """
-    X, y = np.asarray(X, dtype=float), np.asarray(y, dtype=float)
+    X, y = as_features(X), np.asarray(y, dtype=float)
     n = y.shape[0]
     b = loss.intercept_only(y)
     f = np.full(n, b)
@@ -34,7 +35,11 @@ def intercept_only_dual(X, y, loss: Loss) -> np.ndarray:
     # variables (g_free, t): minimise t, -t <= base + Xf g <= t, sum g = 0
     cost = np.r_[np.zeros(k), 1.0]
     ones = np.ones((p, 1))
-    A_ub = np.block([[Xf, -ones], [-Xf, -ones]])
+    if is_sparse(Xf):   # a sparse X keeps the LP's constraint matrix sparse
+        import scipy.sparse as sp
+        A_ub = sp.bmat([[Xf, -ones], [-Xf, -ones]], format="csc")
+    else:
+        A_ub = np.block([[Xf, -ones], [-Xf, -ones]])
     b_ub = np.r_[-base, base]
     A_eq = np.r_[np.ones(k), 0.0][None, :]
     b_eq = [-g[fixed].sum()]
@@ -54,6 +59,6 @@ def lambda_max(X, y, loss, alpha: float = 1.0) -> float:
     loss = get_loss(loss) if isinstance(loss, str) else loss
     if not 0 < alpha <= 1:
         raise ValueError(f"lambda_max needs 0 < alpha <= 1, got alpha={alpha}")
-    X = np.asarray(X, dtype=float)
+    X = as_features(X)
     g = intercept_only_dual(X, y, loss)
     return float(np.max(np.abs(X.T @ g)) / (X.shape[0] * alpha)) if X.shape[1] else 0.0

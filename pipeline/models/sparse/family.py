@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from pipeline.matrices import dense, is_sparse
 from pipeline.models.interface import Family, PathFit, widen_points
 from pipeline.models.sparse.dual import lambda_max
 from pipeline.models.sparse.multinomial import fit_multinomial_l1_path, multinomial_lambda_max
@@ -72,17 +73,19 @@ class SparseFamily(Family):
     # K > 2 classes with a multinomial loss (logistic): one L1 / elastic-net softmax fit of every class
     fits_multinomial = True
 
+    # the multinomial solver works on dense rows: a sparse matrix is densified for it (and the fit says so)
     def multinomial_grid(self, Z, codes, n_classes, loss, options: dict, widen=(0, 0)) -> np.ndarray:
-        top = multinomial_lambda_max(Z, codes, n_classes, alpha=options.get("alpha", 1.0))
+        top = multinomial_lambda_max(dense(Z), codes, n_classes, alpha=options.get("alpha", 1.0))
         return self._grid_below(top, options, widen)
 
     def fit_multinomial(self, Z, codes, n_classes, loss, lambdas, options: dict) -> PathFit:
         from pipeline.models.multiclass import multinomial_pathfit
-        path = fit_multinomial_l1_path(Z, codes, n_classes, lambdas, alpha=options.get("alpha", 1.0),
+        note = "sparse rows densified for the multinomial solver" if is_sparse(Z) else ""
+        path = fit_multinomial_l1_path(dense(Z), codes, n_classes, lambdas, alpha=options.get("alpha", 1.0),
                                        tol=options.get("tol", 1e-7))
         return multinomial_pathfit(
             path.lambdas, path, effective_df=np.count_nonzero(path.coef, axis=(1, 2)).astype(float),
-            df_kind="number of nonzero coefficients over every class (an upper bound where alpha < 1)")
+            df_kind="number of nonzero coefficients over every class (an upper bound where alpha < 1)", note=note)
 
     def predict_multinomial(self, fit: PathFit, Z) -> np.ndarray:
         from pipeline.models.multiclass import class_by_class   # the arithmetic a stored model repeats

@@ -20,6 +20,7 @@ import numpy as np
 from threadpoolctl import ThreadpoolController
 
 from pipeline.losses import get_loss
+from pipeline.matrices import as_features, columns, is_sparse, times_rows
 from pipeline.models.sparse import certificate as cert
 from pipeline.models.sparse import restricted as rs
 from pipeline.models.sparse.active_set import GramCache, polish_zeros, refine
@@ -27,6 +28,10 @@ from pipeline.models.sparse.dual import intercept_only_dual, lambda_max
 from pipeline.models.sparse.routing import AUTOMATIC, route as choose_route
 
 SCREENING = ("strong", "active")
+# A strong-rule set wider than this many columns per row (wide sparse counts: thousands of columns whose one
+# nonzero sits in the same row are identical once scaled, and tie) seeds the working set with its largest
+# gradients only; the optimality check over every column still adds each violator, so the fit is unchanged.
+MAX_SEED_PER_ROW = 2
 _THREADPOOLS: list = []   # one controller per process: building one scans the loaded libraries (~6 ms)
 
 
@@ -69,8 +74,8 @@ def lambda_grid(lam_max: float, n_lambdas: int, ratio: float) -> np.ndarray:
 
 
 def predict_path(path: L1Path, X) -> np.ndarray:
-    """(L, m) decision values b0 + X b for every lambda."""
-    return path.coef @ np.asarray(X, float).T + path.intercept[:, None]
+    """(L, m) decision values b0 + X b for every lambda (X dense or sparse)."""
+    return times_rows(path.coef, X) + path.intercept[:, None]
 
 
 def _solve_restricted(route, XW, y, lam, alpha, loss, warm, tol):
@@ -102,8 +107,13 @@ class PathFitter:
     def seed(self, lam) -> np.ndarray:
         if self.screening == "strong" and self.prev_lam is not None:
             keep = np.abs(self.grad) >= self.alpha * (2 * lam - self.prev_lam)
+            cap = MAX_SEED_PER_ROW * self.n
+            if np.count_nonzero(keep) > cap:   # keep the largest gradients; the check over every column adds the rest
+                strong = np.flatnonzero(keep)
+                keep[:] = False
+                keep[strong[np.argsort(-np.abs(self.grad[strong]), kind="stable")[:cap]]] = True
             keep[self.coef != 0] = True
-            return np.flatnonzero(keep)     # sorted: the active set joined with the strong set
+            return np.flatnonzero(keep)     # sorted: the active set joined with the (capped) strong set
         return np.flatnonzero(self.coef)
 
     def _fit_on(self, W, lam):
@@ -116,9 +126,9 @@ class PathFitter:
             if self.lp is None:
                 self.lp = rs.WarmSplitLP(X, y, loss)
             W, res = self.lp.solve(W, lam)
-            XW = X[:, W]
+            XW = columns(X, W)
         else:
-            XW = X[:, W]
+            XW = columns(X, W)   # a sparse X densifies the working set's columns only
             res = _solve_restricted(self.route, XW, y, lam, alpha, loss, self.coef[W], self.tol)
         self.solver_used.add(res.solver)
         gradW = XW.T @ res.dual / self.n
@@ -198,7 +208,8 @@ def _fit_path(X, y, loss, lambdas, alpha, tol, solver, max_working_set_rounds, s
               selection_only=False) -> L1Path:
     start = time.perf_counter()
     loss = get_loss(loss) if isinstance(loss, str) else loss
-    X = np.ascontiguousarray(X, dtype=float)
+    # a sparse matrix stays sparse (CSC): Xᵀu products over the stored entries, column slices
+    X = as_features(X) if is_sparse(X) else np.ascontiguousarray(X, dtype=float)
     y = np.asarray(y, dtype=float).ravel()
     lambdas = np.sort(np.asarray(lambdas, dtype=float).ravel())[::-1]
     if not 0 < alpha <= 1:
@@ -261,15 +272,16 @@ def degrees_of_freedom(path: L1Path, X, factors=None) -> np.ndarray:
     """
     if path.alpha >= 1.0 or not get_loss(path.loss).quadratic:
         return path.n_nonzero.astype(float)
-    X = np.asarray(X, float)
+    X = as_features(X)
     n = X.shape[0]
     c = np.ones(n) if factors is None else np.asarray(factors, float)
-    Xc = X - c @ X / c.sum()
     out = np.zeros(path.lambdas.size)
     for i, (lam, row) in enumerate(zip(path.lambdas, path.coef)):
         S = np.flatnonzero(row)
         if S.size:
-            G = (Xc[:, S].T * c) @ Xc[:, S]
+            XS = columns(X, S)
+            XS = XS - c @ XS / c.sum()   # support columns centred by their (weighted) means
+            G = (XS.T * c) @ XS
             ridge = n * lam * (1 - path.alpha)
             out[i] = float(np.trace(np.linalg.solve(G + ridge * np.eye(S.size), G)))
     return out

@@ -21,6 +21,7 @@ import numpy as np
 
 from pipeline.losses import Loss
 from pipeline.losses_weighted import row_factors
+from pipeline.matrices import columns
 
 
 @dataclass
@@ -209,7 +210,7 @@ class WarmSplitLP:
         import highspy
 
         n, k = self.n, len(new)
-        block = self.X[:, new] * self.sign[:, None]                  # (n, k)
+        block = columns(self.X, new) * self.sign[:, None]                  # (n, k)
         vals = np.stack([block.T, -block.T], axis=1).reshape(-1)     # b+_j, b-_j per feature
         rows = np.tile(np.arange(n, dtype=np.int32), 2 * k)
         starts = (np.arange(2 * k) * n).astype(np.int32)
