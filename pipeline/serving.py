@@ -20,6 +20,10 @@ from .packaged import PackagedModel, PenduelPythonModel, export_state, write_sta
 
 MODEL_DIR = "model"                 # the artifact folder of the model in each child run
 SKLEARN_FILE = "model.pkl"
+# Past this many input columns a stored model carries no mlflow signature or input example: mlflow writes
+# both column by column (JSON, YAML) and checks the example against the schema, which at 200 000 columns
+# costs several hundred MiB and minutes. The model still refuses rows missing a training column itself.
+SIGNATURE_MAX_COLUMNS = 2000
 REQUIREMENTS = ("penduel", "mlflow", "numpy", "scipy", "scikit-learn", "pandas", "cloudpickle")
 
 
@@ -45,14 +49,15 @@ def save_model(folder: pathlib.Path, arrays: dict, meta: dict, input_example: pd
 
     model = PackagedModel.from_state(arrays, meta)
     state = write_state(folder.parent / (folder.name + "-state"), arrays, meta)
-    signature = infer_signature(input_example, model.predict_table(input_example))
+    wide = input_example.shape[1] > SIGNATURE_MAX_COLUMNS
+    signature = None if wide else infer_signature(input_example, model.predict_table(input_example))
     quiet = logging.getLogger("mlflow")
     level, quiet.level = quiet.level, logging.ERROR   # mlflow's notes on pickling: the README says it once
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", UserWarning)
             mlflow.pyfunc.save_model(str(folder), python_model=PenduelPythonModel(), artifacts={"state": str(state)},
-                                     signature=signature, input_example=input_example,
+                                     signature=signature, input_example=None if wide else input_example,
                                      pip_requirements=requirements())
     finally:
         quiet.setLevel(level)
@@ -87,6 +92,9 @@ def _store_model(client, run_id: str, result, r, register_as: str | None) -> dic
         gap = check_reproduces(model, result, r)
         client.log_artifacts(run_id, str(folder), MODEL_DIR)
     tags = {"penduel.model": f"runs:/{run_id}/{MODEL_DIR}",
+            **({"penduel.model_signature": f"none stored: {example.shape[1]} input columns (more than "
+                                           f"{SIGNATURE_MAX_COLUMNS}); the model checks its columns itself"}
+               if example.shape[1] > SIGNATURE_MAX_COLUMNS else {}),
             "penduel.model_check": "reproduces the held-out predictions exactly" if gap == 0 else
             f"differs from the held-out predictions by up to {gap:.3g}"}
     if register_as:

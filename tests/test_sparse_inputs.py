@@ -195,10 +195,6 @@ def _fresh_run(folder: pathlib.Path, n: int, p: int) -> dict:
 
 
 @pytest.mark.slow
-@pytest.mark.xfail(strict=True, raises=AssertionError,
-                   reason="not met yet: measured peak 796 MiB against 378 MiB for 200 × 2 000 (growth 418 MiB, over "
-                          "the 305 MiB dense size); the matrix stays sparse, but the λ × column coefficient paths "
-                          "and the logging and report of 200 000 columns are held dense")
 def test_200_by_200000_sparse_matrix_runs_below_its_dense_size(tmp_path):
     """Both families (sparse: squared loss; ridge: linear kernel) on 200 × 200 000 at 0.5 % nonzero. The
     peak of the run minus the peak of the same run on 200 × 2 000 (imports, store, report) must stay below
