@@ -365,8 +365,8 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     notes = dataset.notes + inputs.notes + (cache.drop_note() if cache else ()) + (
         (f"reused {reused} of {n_tasks} finished fit task(s) from the cache '{spec.cache.directory}' "
          f"(refits avoided)",) if reused else ())
-    notes += tuple(dict.fromkeys(f"{get_family(o.family).title}: {o.note}" for o in outcomes
-                                 if o.note and o.split == "final"))   # e.g. the low-rank route was taken
+    notes += tuple(dict.fromkeys(f"{get_family(o.family).title}, loss {o.loss_label}: {o.note}"
+                                 for o in outcomes if o.note and o.split == "final"))   # e.g. the low-rank route
     notes += route_notes(shared, train_rows, tasks)
     scale = target_scaling(shared, dataset.y[train_rows])[1]   # Huber δ in the target's unit
     decisions = decisions_for(spec, dataset.task, scale)
