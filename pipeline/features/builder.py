@@ -23,17 +23,29 @@ class Standardiser:
     """
 
     def fit(self, X) -> "Standardiser":
+        self.fit_transform(X)
+        return self
+
+    def fit_transform(self, X) -> np.ndarray:
+        """fit(X) and transform(X) in one pass: the centred copy is made once and divided in place (the same
+        operations in the same order as numpy's var and transform, so the same bits; a resample fit used to
+        copy its design four times here)."""
         X = np.asarray(X, dtype=float)
         n = X.shape[0]
         self.mean_ = X.mean(axis=0)
-        var = X.var(axis=0)
+        out = X - self.mean_
+        var = np.add.reduce(out * out, axis=0) / n if n else np.full(X.shape[1], np.nan)
+        self._set_scale(var, n)
+        out /= self.scale_
+        return out
+
+    def _set_scale(self, var, n) -> None:
         eps = np.finfo(np.float64).eps
         constant = var <= n * eps * var + (n * self.mean_ * eps) ** 2
         scale = np.sqrt(var)
         scale[constant | (scale < 10 * eps)] = 1.0
         self.scale_ = scale
         self.var_ = var
-        return self
 
     def transform(self, X) -> np.ndarray:
         out = np.array(X, dtype=float)      # a copy, as every caller keeps its input
@@ -59,16 +71,15 @@ class FeatureBuilder(TransformerMixin, BaseEstimator):
 
     def fit_transform(self, X, y=None, **fit_params):
         """The fitted rows' Z from one pass (fit then transform would build the map outputs twice)."""
-        raw = self._fit(X)
-        return self.output_scaler_.transform(raw)
+        return self._fit(X)
 
     def _fit(self, X) -> np.ndarray:
-        """Fit every step; returns the raw map outputs of X (before the output standardisation)."""
+        """Fit every step; returns the standardised outputs of X (Z of the fitted rows)."""
         X = np.asarray(X, dtype=float)
         names = list(self.input_names) if self.input_names is not None else [f"x{j}" for j in range(X.shape[1])]
         # only maps that read standardised inputs need the input scaler (the identity map reads raw columns)
-        self.input_scaler_ = Standardiser().fit(X) if self._reads_standardised() else None
-        Xs = self.input_scaler_.transform(X) if self.input_scaler_ is not None else None
+        self.input_scaler_ = Standardiser() if self._reads_standardised() else None
+        Xs = self.input_scaler_.fit_transform(X) if self.input_scaler_ is not None else None
         self.transformers_, out_names = [], []
         map_seeds = seeds.child_int_seeds(int(self.seed), "features", len(self.maps))
         for spec, seed in zip(self.maps, map_seeds):
@@ -78,9 +89,8 @@ class FeatureBuilder(TransformerMixin, BaseEstimator):
             self.transformers_.append(t)
             out_names.extend(t.get_feature_names_out(names))
         self.feature_names_out_ = np.asarray(out_names, dtype=object)
-        raw = self._raw_outputs(X, Xs)
-        self.output_scaler_ = Standardiser().fit(raw)
-        return raw
+        self.output_scaler_ = Standardiser()
+        return self.output_scaler_.fit_transform(self._raw_outputs(X, Xs))
 
     def _reads_standardised(self) -> bool:
         return any(get_map(spec.kind).standardised_input for spec in self.maps)
