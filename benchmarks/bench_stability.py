@@ -108,6 +108,22 @@ def bench_stability_l1_vs_lasso_path_loop():
     return [record]
 
 
+def timed_fit(task, shared):
+    """run_fit with the CPU and wall seconds the task itself took in its worker (module level: picklable)."""
+    cpu, wall = time.process_time(), time.perf_counter()
+    out = run_fit(task, shared)
+    return out, time.process_time() - cpu, time.perf_counter() - wall
+
+
+def task_seconds(shared, tasks, n_jobs: int) -> dict:
+    """What the tasks cost inside their workers: summed CPU and wall seconds. CPU over wall is the share of a
+    core each worker got (other programs take the rest); two-worker CPU over one-process CPU is what running
+    side by side costs each task (shared cache and memory bandwidth)."""
+    runs = run_tasks(timed_fit, tasks, backend="processes" if n_jobs > 1 else "local", n_jobs=n_jobs, shared=shared)
+    cpu, wall = sum(r[1] for r in runs), sum(r[2] for r in runs)
+    return {"task_cpu_seconds": cpu, "task_wall_seconds": wall, "cpu_share_per_worker": cpu / wall}
+
+
 def bench_resampling_two_workers():
     X, y = problem()
     shared, tasks, _, _ = stage_tasks(X, y, seed=1)
@@ -116,11 +132,17 @@ def bench_resampling_two_workers():
     one, two = run_stage(shared, tasks, 1), run_stage(shared, tasks, 2)
     identical = all(a.coef.tobytes() == b.coef.tobytes() and a.eval_pred.tobytes() == b.eval_pred.tobytes()
                     for a, b in zip(one, two))
+    inside = {f"{label}_{key}": value for label, n_jobs in (("one_process", 1), ("two_workers", 2))
+              for key, value in task_seconds(shared, tasks, n_jobs).items()}
+    # the speed-up the two workers would reach with a whole core each: one-process CPU over half the
+    # two-worker CPU (what a loaded machine takes away is the share, not this)
+    inside["speedup_at_full_share"] = inside["one_process_task_cpu_seconds"] / (
+        inside["two_workers_task_cpu_seconds"] / 2)
     return [timed_pair("resampling_two_workers", lambda: run_stage(shared, tasks, 2), "same stage on one process",
                        lambda: run_stage(shared, tasks, 1),
                        goal="ratio >= 1.7 (2 workers vs 1, 100 resample fit tasks)", repeats=3, min_ratio=1.7,
                        extra={"bit_identical": identical, "load_average_before": load_before,
-                              "load_average_after": os.getloadavg(), "cpu_count": os.cpu_count()})]
+                              "load_average_after": os.getloadavg(), "cpu_count": os.cpu_count(), **inside})]
 
 
 def exact_selection_probabilities(X, y, rows, lambdas) -> np.ndarray:

@@ -129,13 +129,37 @@ class SharedFile:
 
 
 _LOADED: dict = {}
+_MALLOC_SET: list = []
+MALLOC_KEEP_BYTES = 256 << 20    # freed heap a worker keeps for its next task instead of giving it back
+MALLOC_MMAP_BYTES = 32 << 20     # blocks below this come from the heap (glibc's largest allowed threshold)
+
+
+def keep_freed_memory() -> None:
+    """In a worker process (glibc only): keep freed memory for the next task. By default glibc hands each
+    freed multi-megabyte array back to the system and the next task's array of the same size is faulted
+    in and zeroed again, page by page; measured on the stability benchmark (100 resample fits, n = 400,
+    p = 4 000, two workers) that was 0.5 s of kernel time per 100 tasks against 0.02 s with this setting.
+    Only the allocator's thresholds change, never a number a task computes."""
+    if _MALLOC_SET:
+        return
+    _MALLOC_SET.append(True)
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL("libc.so.6")
+        libc.mallopt(-1, MALLOC_KEEP_BYTES)    # M_TRIM_THRESHOLD
+        libc.mallopt(-3, MALLOC_MMAP_BYTES)    # M_MMAP_THRESHOLD
+    except (OSError, AttributeError):          # not glibc: the allocator's defaults stay
+        pass
 
 
 def _call(fn: Callable, index: int, task: Any, shared: Any, use_shared: bool,
-          parent_pid: int | None = None) -> tuple[int, Any, str]:
+          parent_pid: int | None = None, in_worker: bool = False) -> tuple[int, Any, str]:
     # One BLAS thread everywhere: thread count can change floating-point summation order.
     if parent_pid is not None:
         _watch_parent(parent_pid)
+    if parent_pid is not None or in_worker:
+        keep_freed_memory()
     if isinstance(shared, SharedFile):
         shared = shared.load()
     output: list = []
@@ -252,7 +276,7 @@ def _run_dask(fn, tasks, shared, use_shared, n_jobs, address) -> Iterator[tuple[
         # Shared data goes to every worker once instead of once per task; wrapped in a list so
         # a tuple or dict is scattered whole, not element by element.
         shared_ref = client.scatter([shared], broadcast=True)[0] if use_shared else None
-        futures = [client.submit(_call, fn, i, t, shared_ref, use_shared, pure=False)
+        futures = [client.submit(_call, fn, i, t, shared_ref, use_shared, None, True, pure=False)
                    for i, t in tasks]
         try:
             for future in as_completed(futures, loop=client.loop):

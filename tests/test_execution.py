@@ -141,3 +141,16 @@ def test_dask_with_given_address_and_failure():
                          shared=(shared, 7)) == [("tuple", 7)]
         with pytest.raises(TaskFailed, match="task 2"):
             run_tasks(_fail_on_three, [1, 2, 3], backend="dask", scheduler_address=address)
+
+
+def _allocator_kept(task):
+    from pipeline import execution
+
+    return bool(execution._MALLOC_SET)
+
+
+def test_worker_processes_keep_freed_memory_and_this_process_is_left_alone():
+    # worker processes set the allocator to keep freed arrays for the next task (execution.keep_freed_memory);
+    # the dispatching process (backend local) keeps its own allocator settings
+    assert run_tasks(_allocator_kept, [0, 1], backend="processes", n_jobs=2) == [True, True]
+    assert run_tasks(_allocator_kept, [0], backend="local") == [False]

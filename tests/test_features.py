@@ -57,3 +57,20 @@ def test_extra_maps_are_configurable_and_their_width_is_known_beforehand():
     X = np.random.default_rng(4).normal(size=(40, 3))
     Z = FeatureBuilder(maps, seed=2).fit(X).transform(X)
     assert Z.shape == (40, sum(output_width(m, 3, 40) for m in maps)) == (40, 3 * 6 + 9 + 5)
+
+
+def test_standardiser_fit_transform_is_fit_then_transform_bit_for_bit():
+    # the one-pass fit_transform (used by every fit) must give the bits of fit then transform, and the
+    # plain formula (X − mean) / sd with numpy's population variance; a constant column maps to zeros
+    from pipeline.features.builder import Standardiser
+
+    rng = np.random.default_rng(5)
+    X = rng.standard_normal((57, 40)) * rng.uniform(0.1, 50, 40) + rng.uniform(-1e3, 1e3, 40)
+    X[:, 3] = 7.0
+    one_pass = Standardiser().fit_transform(X)
+    two_pass = Standardiser().fit(X).transform(X)
+    assert one_pass.tobytes() == two_pass.tobytes()
+    scale = X.std(axis=0)
+    scale[3] = 1.0
+    assert one_pass.tobytes() == ((X - X.mean(axis=0)) / scale).tobytes()
+    assert np.all(one_pass[:, 3] == 0.0)

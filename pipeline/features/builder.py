@@ -31,11 +31,35 @@ class Standardiser:
             n = X.shape[0]
             self.mean_ = np.asarray(X.mean(axis=0)).ravel()
             var = np.maximum(np.asarray(X.multiply(X).mean(axis=0)).ravel() - self.mean_ ** 2, 0.0)
-        else:
-            X = np.asarray(X, dtype=float)
-            n = X.shape[0]
-            self.mean_ = X.mean(axis=0)
-            var = X.var(axis=0)
+            self._set_scale(var, n)
+            return self
+        self.fit_transform(X)
+        return self
+
+    def fit_transform(self, X):
+        """fit(X) and transform(X) in one pass: the centred copy is made once and divided in place (the same
+        operations in the same order as numpy's var and transform, so the same bits; a resample fit used to
+        copy its design four times here)."""
+        if is_sparse(X):
+            return self.fit(X).transform(X)
+        if not self.centre:
+            return self._fit_uncentred(X)
+        X = np.asarray(X, dtype=float)
+        n = X.shape[0]
+        self.mean_ = X.mean(axis=0)
+        out = X - self.mean_
+        var = np.add.reduce(out * out, axis=0) / n if n else np.full(X.shape[1], np.nan)
+        self._set_scale(var, n)
+        out /= self.scale_
+        return out
+
+    def _fit_uncentred(self, X) -> np.ndarray:
+        X = np.asarray(X, dtype=float)
+        self.mean_ = X.mean(axis=0)
+        self._set_scale(X.var(axis=0), X.shape[0])
+        return self.transform(X)
+
+    def _set_scale(self, var, n) -> None:
         eps = np.finfo(np.float64).eps
         constant = var <= n * eps * var + (n * self.mean_ * eps) ** 2
         scale = np.sqrt(var)
@@ -44,7 +68,6 @@ class Standardiser:
         self.var_ = var
         if not self.centre:
             self.mean_ = np.zeros_like(scale)     # the offset removed: none
-        return self
 
     def transform(self, X):
         if is_sparse(X):
@@ -72,15 +95,14 @@ class FeatureBuilder(TransformerMixin, BaseEstimator):
 
     def fit_transform(self, X, y=None, **fit_params):
         """The fitted rows' Z from one pass (fit then transform would build the map outputs twice)."""
-        raw = self._fit(X)
-        return self.output_scaler_.transform(raw)
+        return self._fit(X)
 
     def _rows(self, X):
         """Sparse rows stay sparse (CSC) when every map takes them; otherwise rows are dense floats."""
         return as_features(X) if self.sparse_ else dense(X)
 
     def _fit(self, X) -> np.ndarray:
-        """Fit every step; returns the raw map outputs of X (before the output standardisation)."""
+        """Fit every step; returns the standardised outputs of X (Z of the fitted rows)."""
         from . import keeps_sparse
         self.sparse_ = keeps_sparse(X, self.maps)
         X = self._rows(X)
@@ -88,8 +110,8 @@ class FeatureBuilder(TransformerMixin, BaseEstimator):
         # scaled columns is the fit on standardised ones moved by a constant
         names = list(self.input_names) if self.input_names is not None else [f"x{j}" for j in range(X.shape[1])]
         # only maps that read standardised inputs need the input scaler (the identity map reads raw columns)
-        self.input_scaler_ = Standardiser(not self.sparse_).fit(X) if self._reads_standardised() else None
-        Xs = self.input_scaler_.transform(X) if self.input_scaler_ is not None else None
+        self.input_scaler_ = Standardiser(not self.sparse_) if self._reads_standardised() else None
+        Xs = self.input_scaler_.fit_transform(X) if self.input_scaler_ is not None else None
         self.transformers_, out_names = [], []
         map_seeds = seeds.child_int_seeds(int(self.seed), "features", len(self.maps))
         for spec, seed in zip(self.maps, map_seeds):
@@ -99,9 +121,8 @@ class FeatureBuilder(TransformerMixin, BaseEstimator):
             self.transformers_.append(t)
             out_names.extend(t.get_feature_names_out(names))
         self.feature_names_out_ = np.asarray(out_names, dtype=object)
-        raw = self._raw_outputs(X, Xs)
-        self.output_scaler_ = Standardiser(not self.sparse_).fit(raw)
-        return raw
+        self.output_scaler_ = Standardiser(not self.sparse_)
+        return self.output_scaler_.fit_transform(self._raw_outputs(X, Xs))
 
     def _reads_standardised(self) -> bool:
         return any(get_map(spec.kind).standardised_input for spec in self.maps)
