@@ -128,12 +128,13 @@ def content_digest(arrays: dict) -> str:
 
 def fits_task(value, task) -> str | None:
     """Why a result cannot belong to `task`, or None: the fields it shares with the task must be equal, and
-    every array has one row per λ of the task."""
+    every array has one row per λ of the task (but a field marked `per_lambda: False`)."""
     for f in dataclasses.fields(value):
         v = getattr(value, f.name)
         if hasattr(task, f.name) and isinstance(v, str) and v != getattr(task, f.name):
             return f"its {f.name} is {v!r}, not {getattr(task, f.name)!r}"
-        if isinstance(v, np.ndarray) and (v.ndim == 0 or v.shape[0] != len(task.lambdas)):
+        if isinstance(v, np.ndarray) and f.metadata.get("per_lambda", True) and \
+                (v.ndim == 0 or v.shape[0] != len(task.lambdas)):
             return f"its {f.name} has shape {v.shape}, not one row per λ ({len(task.lambdas)})"
         if isinstance(v, tuple) and f.name == "status" and len(v) != len(task.lambdas):
             return f"its status has {len(v)} entries, not {len(task.lambdas)}"
