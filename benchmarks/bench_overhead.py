@@ -4,8 +4,10 @@ Each measurement is a fresh `penduel` process, as a user starts it, so imports a
 fitting time is the wall time of its fit stage (`execution.run_tasks`: every CV, final and resample fit,
 worker start-up included), read inside the process by wrapping that one function; the non-fitting
 time is the process's whole wall time minus it (imports, config, data, planning, evaluation, the
-stability measures, the tracking store and the report). The store already exists (a first run made
-it), as it does for every run but a user's first; the fit cache is emptied before each run.
+stability measures, the tracking store and the report). Everything runs on a copy of the demo config in
+a scratch folder whose store, reports and fit cache are its own (the shipped config keeps them at the top of
+the checkout). The store already exists (a first run made it), as it does for every run but a user's first;
+the copy's fit cache is emptied before each run, so every CV, final and resample fit runs again.
 """
 from __future__ import annotations
 
@@ -43,19 +45,34 @@ def _timed(cmd, cwd, env=None) -> tuple[float, float]:
     return wall, cpu
 
 
+def scratch_demo(folder: pathlib.Path) -> pathlib.Path:
+    """The demo config copied into `folder` with its store, reports and fit cache inside that folder."""
+    import yaml
+
+    config = yaml.safe_load(DEMO.read_text(encoding="utf-8"))
+    config.update(tracking={"uri": "sqlite:///mlflow.db"}, report={"directory": "reports"},
+                  cache={"directory": "fit-cache"})
+    path = folder / "demo.yaml"
+    path.write_text(yaml.safe_dump(config, sort_keys=False, allow_unicode=True), encoding="utf-8")
+    return path
+
+
 def bench_cli_fixed_overhead(repeats: int = 3):
     penduel = str(pathlib.Path(sys.executable).parent / "penduel")
     tmp = pathlib.Path(tempfile.mkdtemp(prefix="penduel-overhead-"))
     try:
-        validate = [_timed([penduel, "validate", str(DEMO)], tmp) for _ in range(repeats)]
+        demo = scratch_demo(tmp)
+        validate = [_timed([penduel, "validate", str(demo)], tmp) for _ in range(repeats)]
         out = tmp / "phases.json"
         env = dict(os.environ, PENDUEL_BENCH_PHASES=str(out), PYTHONPATH=str(ROOT))
-        cmd = [sys.executable, "-m", "benchmarks.bench_overhead", "run", str(DEMO)]
+        cmd = [sys.executable, "-m", "benchmarks.bench_overhead", "run", str(demo)]
         runs = []
         for i in range(repeats + 1):     # the first run creates the store and is not counted
-            shutil.rmtree(tmp / ".penduel-cache", ignore_errors=True)
+            shutil.rmtree(tmp / "fit-cache", ignore_errors=True)
             wall, cpu = _timed(cmd, tmp, env)
             fit = json.loads(out.read_text())["fit_stage_seconds"]
+            if fit <= 0:
+                raise RuntimeError("the run reported no fit time: its fit cache was not emptied")
             if i:
                 runs.append((wall, fit, cpu))
     finally:
@@ -65,12 +82,12 @@ def bench_cli_fixed_overhead(repeats: int = 3):
     return [
         {"name": "cli_fixed_overhead_validate", "ours_seconds": v_wall, "goal": f"<= {VALIDATE_GOAL_S} s",
          "met": v_wall <= VALIDATE_GOAL_S, "cpu_seconds": statistics.median(c for _, c in validate),
-         "command": "penduel validate configs/demo.yaml", **load_average()},
+         "command": "penduel validate <copy of configs/demo.yaml>", **load_average()},
         {"name": "cli_fixed_overhead_run", "ours_seconds": non_fit, "goal": f"non-fitting <= {RUN_GOAL_S} s",
          "met": non_fit <= RUN_GOAL_S, "whole_run_seconds": statistics.median(w for w, _, _ in runs),
          "fit_stage_seconds": statistics.median(f for _, f, _ in runs),
          "cpu_seconds_all_processes": statistics.median(c for _, _, c in runs),
-         "command": "penduel run configs/demo.yaml (existing store, empty cache)", **load_average()},
+         "command": "penduel run <copy of configs/demo.yaml> (its own existing store, empty cache)", **load_average()},
     ]
 
 

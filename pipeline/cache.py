@@ -26,6 +26,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from .matrices import from_parts, is_sparse, to_parts
 from .models.families import KEYS
 
 CACHE_FORMAT = 2
@@ -77,7 +78,10 @@ def encode(value) -> dict[str, np.ndarray]:
     arrays, meta = {}, {}
     for f in dataclasses.fields(value):
         v = getattr(value, f.name)
-        if isinstance(v, np.ndarray):
+        if is_sparse(v):   # a sparse matrix (basis rows of sparse inputs) as its plain parts
+            arrays.update(to_parts(f.name, v))
+            meta[f.name] = {"sparse": True}
+        elif isinstance(v, np.ndarray):
             if v.dtype == object:
                 raise TypeError(f"field {f.name} is an object array; it cannot be stored without pickle")
             arrays[f.name] = v
@@ -95,7 +99,7 @@ def _type_ok(annotation: str, value) -> bool:
     checks = {"None": value is None, "str": isinstance(value, str), "bool": isinstance(value, bool),
               "int": isinstance(value, int) and not isinstance(value, bool),
               "float": isinstance(value, (int, float)) and not isinstance(value, bool),
-              "np.ndarray": isinstance(value, np.ndarray), "dict": isinstance(value, dict)}
+              "np.ndarray": isinstance(value, np.ndarray) or is_sparse(value), "dict": isinstance(value, dict)}
     for kind in kinds:
         if kind.startswith("tuple") and isinstance(value, tuple):
             return True
@@ -110,6 +114,8 @@ def decode(cls, arrays) -> Any:
     for f in dataclasses.fields(cls):
         if f.name in arrays:
             values[f.name] = arrays[f.name]
+        elif meta.get(f.name, {}).get("sparse"):
+            values[f.name] = from_parts(f.name, arrays)
         else:
             m = meta[f.name]
             values[f.name] = tuple(m["tuple"]) if "tuple" in m else m["plain"]
@@ -128,12 +134,13 @@ def content_digest(arrays: dict) -> str:
 
 def fits_task(value, task) -> str | None:
     """Why a result cannot belong to `task`, or None: the fields it shares with the task must be equal, and
-    every array has one row per λ of the task."""
+    every array has one row per λ of the task (but a field marked `per_lambda: False`)."""
     for f in dataclasses.fields(value):
         v = getattr(value, f.name)
         if hasattr(task, f.name) and isinstance(v, str) and v != getattr(task, f.name):
             return f"its {f.name} is {v!r}, not {getattr(task, f.name)!r}"
-        if isinstance(v, np.ndarray) and (v.ndim == 0 or v.shape[0] != len(task.lambdas)):
+        if isinstance(v, np.ndarray) and f.metadata.get("per_lambda", True) and \
+                (v.ndim == 0 or v.shape[0] != len(task.lambdas)):
             return f"its {f.name} has shape {v.shape}, not one row per λ ({len(task.lambdas)})"
         if isinstance(v, tuple) and f.name == "status" and len(v) != len(task.lambdas):
             return f"its status has {len(v)} entries, not {len(task.lambdas)}"

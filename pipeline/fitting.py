@@ -6,14 +6,15 @@ result depends only on the task and the shared data (never on the worker or orde
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
 from .losses import get_loss
 from .losses_weighted import class_balance, weighted
+from .matrices import is_sparse
 from .models.families import get_family
-from .models.multiclass import for_classes, output_scale, path_losses
+from .models.multiclass import ClassFits, for_classes, output_scale, path_losses
 
 
 @dataclass(frozen=True)
@@ -73,6 +74,29 @@ class FitOutcome:
     df_kind: str = ""                      # what effective_df counts
     note: str = ""                         # how the family fitted the path, when worth saying (low rank)
     multiclass: str = ""                   # K > 2 classes: how they were fitted (models.multiclass)
+    # The final fit's path as a stored model needs it (pipeline.packaged), on the fitting scale, so it is
+    # packaged without fitting the path again; None on every other split. Weights are per feature (L, p)
+    # or, in representer form, dual coefficients (L, r) on the basis rows (r, d) with the kernel; K > 2
+    # classes fitted one versus the rest add a last class axis.
+    stored_lambdas: np.ndarray | None = None
+    stored_intercept: np.ndarray | None = None
+    stored_weights: np.ndarray | None = None
+    stored_basis: np.ndarray | None = field(default=None, metadata={"per_lambda": False})
+    stored_kernel: dict | None = None      # {"kernel": name, "params": {...}} in representer form
+
+
+def stored_path(fit) -> dict:
+    """The fields of FitOutcome that keep a fitted path (a family's PathFit) for packaging."""
+    per_class = fit.model.fits if isinstance(fit.model, ClassFits) else None
+    basis = getattr(per_class[0].model if per_class else fit.model, "basis", None)
+    path = dict(stored_lambdas=np.asarray(fit.lambdas, float), stored_intercept=np.asarray(fit.intercept, float))
+    if basis is None:
+        return dict(path, stored_weights=np.asarray(fit.coef, float))
+    models = [f.model for f in per_class] if per_class else [fit.model]
+    dual = [np.asarray(m.path.dual_coef, float) for m in models]
+    return dict(path, stored_basis=basis if is_sparse(basis) else np.asarray(basis, float),
+                stored_weights=np.stack(dual, axis=-1) if per_class else dual[0],
+                stored_kernel={"kernel": models[0].kernel, "params": dict(models[0].kernel_params)})
 
 
 def feature_builder(shared: Shared):
@@ -130,6 +154,7 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
     # cross-validation chooses λ for the objective that was fitted
     w_ev = training_weights(shared, task.family, task.eval_idx)
     eval_loss = path_losses(loss, t_ev, f_ev, fit.multiclass, weights=w_ev)
+    stored = stored_path(fit) if task.split == "final" else {}
     if coef is not None:
         coef, intercept = output_scale(builder, coef * scale, intercept * scale + center)
         if task.split.startswith("fold"):   # a CV fold is read for its held-out losses only: its (L, p)
@@ -140,4 +165,5 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
         n_nonzero=fit.n_nonzero, effective_df=np.asarray(fit.effective_df, float), certificate=fit.certificate,
         certificate_kind=fit.certificate_kind, converged=np.asarray(fit.converged), status=tuple(fit.status),
         solver=fit.solver, fit_seconds=seconds, feature_names=tuple(builder.get_feature_names_out()),
-        loo_error=fit.loo_error, gcv=fit.gcv, df_kind=fit.df_kind, note=fit.note, multiclass=fit.multiclass)
+        loo_error=fit.loo_error, gcv=fit.gcv, df_kind=fit.df_kind, note=fit.note, multiclass=fit.multiclass,
+        **stored)

@@ -65,50 +65,40 @@ def input_frame(dataset, rows) -> pd.DataFrame:
 
 
 def export_state(result, r) -> tuple[dict[str, np.ndarray], dict]:
-    """Arrays and metadata of one (family, loss) result at its chosen λ. The final path is refitted
-    from the final-fit task's inputs (same training rows, seed, grid and options, one BLAS thread), which
-    gives the same path as the experiment's fit task."""
-    from .fitting import build_features, fit_loss, target_scaling
+    """Arrays and metadata of one (family, loss) result at its chosen λ, from the path the final-fit task
+    kept as it fitted it (FitOutcome.stored_*): nothing is fitted again."""
+    from .fitting import target_scaling
     from .losses import get_loss
     from .models.families import get_family
-    from .models.multiclass import ClassFits, for_classes
-    from .execution import captured_output
+    from .models.multiclass import for_classes
     from .runner import shared_inputs
 
     spec, ds = result.spec, result.dataset
-    shared = shared_inputs(spec, ds, len(result.train_rows))
     family = for_classes(get_family(r.family), ds.n_classes)
     loss = get_loss(r.loss_name, **r.loss_params)
     rows = result.train_rows
-    with threadpool_limits(limits=1), captured_output([]):   # solver banners stay off the terminal
-        builder = build_features(shared, rows)
-        center, scale = target_scaling(shared, ds.y[rows])
-        fit = family.fit_path(builder.transform(ds.X[rows]), (ds.y[rows] - center) / scale,
-                              fit_loss(shared, family.key, loss, rows), r.lambdas, shared.family_options[family.key])
-    arrays = {**to_parts("X_train", ds.X[rows]), "lambdas": np.asarray(fit.lambdas, float),   # sparse: its parts
-              "intercept": np.asarray(fit.intercept, float)}
-    # the representer form keeps its basis rows; K > 2 classes fitted one versus the rest: one path per
-    # class on the same basis, stored with the class axis last
-    per_class = fit.model.fits if isinstance(fit.model, ClassFits) else None
-    basis = getattr(per_class[0].model if per_class else fit.model, "basis", None)
+    final = r.path
+    if final.stored_intercept is None:
+        raise ValueError("the final fit kept no path to store (FitOutcome.stored_* are empty)")
+    center, scale = target_scaling(shared_inputs(spec, ds, len(rows)), ds.y[rows])
+    arrays = {**to_parts("X_train", ds.X[rows]), "lambdas": final.stored_lambdas,   # sparse: its parts
+              "intercept": final.stored_intercept}
     meta = {"format": FORMAT, "family": family.key, "family_title": family.title, "loss": r.loss_name,
             "loss_label": r.loss_label, "loss_params": dict(r.loss_params), "chosen_index": int(r.chosen_index),
             "lambda_chosen": float(r.lambda_chosen), "center": center, "scale": scale, "task": ds.task,
             "class_labels": list(ds.class_labels) if ds.class_labels else None,
             # probabilities from K > 2 classes only where they were fitted together (softmax)
-            "probabilities": bool(loss.gives_probabilities) and fit.multiclass in ("", "multinomial"),
+            "probabilities": bool(loss.gives_probabilities) and final.multiclass in ("", "multinomial"),
             "feature_names": list(ds.feature_names),
             "target": ds.target_name,
             "inputs": [{"name": c.name, "levels": None if c.levels is None else list(c.levels),
                         "boolean": c.boolean} for c in ds.inputs],
             "maps": [m.model_dump(mode="json") for m in spec.features.maps], "seed": int(spec.seed)}
-    if basis is not None:
-        models = [f.model for f in per_class] if per_class else [fit.model]
-        dual = [np.asarray(m.path.dual_coef, float) for m in models]
-        arrays.update(**to_parts("basis", basis), dual_coef=np.stack(dual, axis=-1) if per_class else dual[0])
-        meta.update(kernel=models[0].kernel, kernel_params=dict(models[0].kernel_params))
+    if final.stored_basis is not None:
+        arrays.update(**to_parts("basis", final.stored_basis), dual_coef=final.stored_weights)
+        meta.update(kernel=final.stored_kernel["kernel"], kernel_params=dict(final.stored_kernel["params"]))
     else:
-        arrays["coef"] = np.asarray(fit.coef, float)
+        arrays["coef"] = final.stored_weights
     return arrays, meta
 
 

@@ -50,9 +50,11 @@ def make_folds(
         raise ValueError(f"y has {len(labels)} rows but n={n}")
     if order is not None:
         return _forward_chaining(np.asarray(order), n_folds, gap)
-    # imported here so that config can read this module's tables without loading scikit-learn
-    from sklearn.model_selection import KFold, RepeatedKFold, RepeatedStratifiedKFold, StratifiedGroupKFold, \
-        StratifiedKFold
+    if groups is None and not stratify:
+        return shuffled_folds(n, n_folds, _sklearn_seed(rng), repeats)
+    # imported here, where only a stratified or grouped design needs them: reading a config and `penduel
+    # validate` on rows split at random load no scikit-learn
+    from sklearn.model_selection import RepeatedStratifiedKFold, StratifiedGroupKFold, StratifiedKFold
 
     if groups is not None:
         groups = np.asarray(groups)
@@ -68,16 +70,43 @@ def make_folds(
                 out += _group_folds(groups, n_folds, rng)
         return out
     seed = _sklearn_seed(rng)
-    if stratify:
-        if repeats == 1:
-            splitter = StratifiedKFold(n_folds, shuffle=True, random_state=seed)
-        else:
-            splitter = RepeatedStratifiedKFold(n_splits=n_folds, n_repeats=repeats, random_state=seed)
-    elif repeats == 1:
-        splitter = KFold(n_folds, shuffle=True, random_state=seed)
+    if repeats == 1:
+        splitter = StratifiedKFold(n_folds, shuffle=True, random_state=seed)
     else:
-        splitter = RepeatedKFold(n_splits=n_folds, n_repeats=repeats, random_state=seed)
+        splitter = RepeatedStratifiedKFold(n_splits=n_folds, n_repeats=repeats, random_state=seed)
     return [(tr, va) for tr, va in splitter.split(np.zeros((n, 1)), labels)]
+
+
+# Rows split at random, written out with numpy's legacy RandomState so that they are the very rows
+# scikit-learn's KFold(shuffle=True) / RepeatedKFold and train_test_split draw from the same int seed
+# (tests/test_selection.py compares them) without loading scikit-learn, which costs about a second
+# of every `penduel validate`.
+def shuffled_folds(n: int, n_folds: int, seed: int, repeats: int = 1) -> list[tuple[np.ndarray, np.ndarray]]:
+    """(train, validation) row indices, both sorted: the rows shuffled by RandomState(seed) and cut into
+    n_folds consecutive blocks, the first n % n_folds one row larger; each repeat shuffles again with the
+    same RandomState."""
+    state = np.random.RandomState(seed)
+    sizes = np.full(n_folds, n // n_folds)
+    sizes[:n % n_folds] += 1
+    edges = np.concatenate([[0], np.cumsum(sizes)])
+    out = []
+    for _ in range(repeats):
+        rows = np.arange(n)
+        state.shuffle(rows)
+        for k in range(n_folds):
+            held = np.zeros(n, bool)
+            held[rows[edges[k]:edges[k + 1]]] = True
+            out.append((np.flatnonzero(~held), np.flatnonzero(held)))
+    return out
+
+
+def random_test_rows(n: int, n_test: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
+    """(training rows, test rows) in drawn order: the first n_test rows of RandomState(seed)'s permutation
+    are held out, the rest train."""
+    if not 0 < n_test < n:
+        raise ValueError(f"{n_test} test row(s) of {n} leave no training row")
+    rows = np.random.RandomState(seed).permutation(n)
+    return rows[n_test:], rows[:n_test]
 
 
 def _group_folds(groups: np.ndarray, n_folds: int, rng: np.random.Generator) -> list[tuple[np.ndarray, np.ndarray]]:
@@ -269,8 +298,6 @@ def test_split(n: int, test_fraction: float, seed: int, y=None, stratify: bool =
     """(training rows, test rows), sorted. `holdout` (bool mask) fixes the test rows; `order` makes them the
     last rows in time (the `gap` rows before them are left out); `groups` keeps each group on one side
     (stratified by class where possible); otherwise a seeded random split, stratified for classification."""
-    from sklearn.model_selection import StratifiedGroupKFold, train_test_split
-
     rows = np.arange(n)
     n_test = max(1, int(round(test_fraction * n)))
     if holdout is not None:
@@ -286,12 +313,18 @@ def test_split(n: int, test_fraction: float, seed: int, y=None, stratify: bool =
             raise ValueError(f"{len(np.unique(groups))} groups are too few to hold out about {test_fraction:g} of "
                              f"the rows as whole groups (at least {n_parts} are needed)")
         if stratify:
+            from sklearn.model_selection import StratifiedGroupKFold
+
             splitter = StratifiedGroupKFold(n_parts, shuffle=True, random_state=seed)
             tr, te = next(splitter.split(np.zeros((n, 1)), y, groups))
         else:
             tr, te = _group_folds(np.asarray(groups), n_parts, np.random.default_rng(seed))[0]
+    elif stratify:
+        from sklearn.model_selection import train_test_split
+
+        tr, te = train_test_split(rows, test_size=n_test, random_state=seed, stratify=y)
     else:
-        tr, te = train_test_split(rows, test_size=n_test, random_state=seed, stratify=y if stratify else None)
+        tr, te = random_test_rows(n, n_test, seed)
     return np.sort(tr), np.sort(te)
 
 

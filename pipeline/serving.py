@@ -51,6 +51,10 @@ def save_model(folder: pathlib.Path, arrays: dict, meta: dict, input_example: pd
     state = write_state(folder.parent / (folder.name + "-state"), arrays, meta)
     wide = input_example.shape[1] > SIGNATURE_MAX_COLUMNS
     signature = None if wide else infer_signature(input_example, model.predict_table(input_example))
+    # the scikit-learn flavour is declared up front, so mlflow writes the MLmodel file once with both
+    mlmodel = Model()
+    mlmodel.add_flavor("sklearn", pickled_model=SKLEARN_FILE, sklearn_version=sklearn.__version__,
+                       serialization_format="cloudpickle", code=None)
     quiet = logging.getLogger("mlflow")
     level, quiet.level = quiet.level, logging.ERROR   # mlflow's notes on pickling: the README says it once
     try:
@@ -58,15 +62,11 @@ def save_model(folder: pathlib.Path, arrays: dict, meta: dict, input_example: pd
             warnings.simplefilter("ignore", UserWarning)
             mlflow.pyfunc.save_model(str(folder), python_model=PenduelPythonModel(), artifacts={"state": str(state)},
                                      signature=signature, input_example=None if wide else input_example,
-                                     pip_requirements=requirements())
+                                     pip_requirements=requirements(), mlflow_model=mlmodel)
     finally:
         quiet.setLevel(level)
     with open(folder / SKLEARN_FILE, "wb") as fh:
         cloudpickle.dump(model, fh)
-    mlmodel = Model.load(str(folder / "MLmodel"))
-    mlmodel.add_flavor("sklearn", pickled_model=SKLEARN_FILE, sklearn_version=sklearn.__version__,
-                       serialization_format="cloudpickle", code=None)
-    mlmodel.save(str(folder / "MLmodel"))
     return model
 
 

@@ -62,6 +62,13 @@ def test_validate_loads_no_solver_library(after_validate):
     assert after_validate.isdisjoint(SOLVERS)
 
 
+def test_validate_of_rows_split_at_random_loads_no_scikit_learn(after_validate):
+    # the demo's rows are split at random: its test rows and folds are drawn with numpy (the same rows as
+    # scikit-learn's splitters, tests/test_selection.py); only stratified or grouped designs load them
+    assert after_validate.isdisjoint(("sklearn", "pandas"))
+    assert "numpy" in after_validate
+
+
 def test_the_probe_sees_libraries_a_run_loads():
     # Guards the check itself: the same probe does report mlflow and matplotlib when they are loaded.
     done = subprocess.run([sys.executable, "-c", "import pipeline.tracking, pipeline.report\n" + PROBE, "--help"],
@@ -73,7 +80,7 @@ def test_the_probe_sees_libraries_a_run_loads():
 def test_reading_a_config_loads_no_numerical_library_beyond_numpy():
     # the config, its registries (feature maps, losses, metrics, kernels, solvers) and the data package are
     # data: scikit-learn, pandas, scipy.stats and scipy.optimize load only when a split, a table or a fit needs
-    # them. (`penduel validate` then plans the splits with scikit-learn's model_selection.)
+    # them.
     probe = ("import json, sys, pathlib\nfrom pipeline.config import load_config\n"
              "load_config(pathlib.Path('configs/demo.yaml'))\n"
              "print(json.dumps(sorted(sys.modules)), file=sys.stderr)")

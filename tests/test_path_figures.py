@@ -93,3 +93,18 @@ def test_store_and_report_use_the_new_names(store):
         assert not {"n_lambdas", "lambda_min", "lambda_max"} & set(family)
     assert params["l1"]["l1_share"] == "1.0"
     assert "chosen by the one-standard-error rule" in second["html"]
+
+
+def test_a_figure_saved_without_its_second_layout_pass_has_the_same_pixels(payload):
+    # encode_png drops the placeholder engine tight_layout leaves behind (it only made savefig draw twice);
+    # the image must be the one savefig gives with it
+    import base64
+    import io
+
+    fams = [f for f in payload["families"] if f["loss_label"] == "squared"]
+    reference = plots.cv_figure(fams, "squared")
+    assert reference.get_layout_engine() is not None   # the case the shortcut is for
+    buf = io.BytesIO()
+    reference.savefig(buf, format="png", dpi=110)
+    plt.close(reference)
+    assert base64.b64decode(plots.encode_png(plots.cv_figure(fams, "squared"))) == buf.getvalue()

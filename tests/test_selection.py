@@ -5,7 +5,8 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
 from pipeline.selection import (L2_CRITERIA, RULE_TABLE, RULES, choose_lambda_index, cv_summary, make_folds,
-                                nested_estimate, nested_splits)
+                                nested_estimate, nested_splits, random_test_rows, shuffled_folds)
+from pipeline import selection
 
 # Hand-worked CV table, 4 splits x 5 λ (column 0 = largest λ = simplest model).
 # One-standard-error rule as in ESL 2nd ed. (Hastie, Tibshirani, Friedman) §7.10:
@@ -85,6 +86,45 @@ def test_folds_follow_the_generator():
     c = make_folds(40, 4, np.random.default_rng(8))
     assert all(np.array_equal(x[1], z[1]) for x, z in zip(a, b))
     assert not all(np.array_equal(x[1], z[1]) for x, z in zip(a, c))
+
+
+# Reference: scikit-learn 1.x, sklearn.model_selection.KFold(shuffle=True), RepeatedKFold and
+# train_test_split (int test_size) from the same int seed. Our numpy versions must give the very same rows,
+# so runs made before they replaced the library calls keep their folds and test rows bit for bit.
+@settings(max_examples=60, deadline=None)
+@given(n=st.integers(2, 300), k=st.integers(2, 12), seed=st.integers(0, 2**31 - 2), repeats=st.integers(1, 3))
+def test_shuffled_folds_are_scikit_learns_kfold(n, k, seed, repeats):
+    from sklearn.model_selection import KFold, RepeatedKFold
+
+    k = min(k, n)
+    splitter = (KFold(k, shuffle=True, random_state=seed) if repeats == 1 else
+                RepeatedKFold(n_splits=k, n_repeats=repeats, random_state=seed))
+    expected = list(splitter.split(np.zeros((n, 1))))
+    got = shuffled_folds(n, k, seed, repeats)
+    assert len(got) == len(expected)
+    for (tr, va), (etr, eva) in zip(got, expected):
+        assert tr.dtype == etr.dtype and va.dtype == eva.dtype
+        np.testing.assert_array_equal(tr, etr)
+        np.testing.assert_array_equal(va, eva)
+
+
+@settings(max_examples=60, deadline=None)
+@given(n=st.integers(2, 500), share=st.floats(0.01, 0.99), seed=st.integers(0, 2**31 - 2))
+def test_random_test_rows_are_scikit_learns_train_test_split(n, share, seed):
+    from sklearn.model_selection import train_test_split
+
+    n_test = min(n - 1, max(1, int(round(share * n))))
+    expected = train_test_split(np.arange(n), test_size=n_test, random_state=seed)
+    for got, want in zip(random_test_rows(n, n_test, seed), expected):
+        np.testing.assert_array_equal(got, want)
+    tr, te = selection.test_split(n, n_test / n, seed)
+    np.testing.assert_array_equal(te, np.sort(expected[1]))
+    np.testing.assert_array_equal(tr, np.sort(expected[0]))
+
+
+def test_random_test_rows_refuse_an_empty_side():
+    with pytest.raises(ValueError, match="no training row"):
+        random_test_rows(10, 10, 0)
 
 
 def test_make_folds_rejects_bad_arguments():

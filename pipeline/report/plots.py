@@ -12,6 +12,7 @@ import numpy as np  # noqa: E402
 
 from matplotlib.lines import Line2D  # noqa: E402
 from matplotlib.colors import ListedColormap  # noqa: E402
+from matplotlib.layout_engine import PlaceHolderLayoutEngine  # noqa: E402
 from matplotlib.patches import Patch, Rectangle  # noqa: E402
 
 from ..models.families import FAMILIES, get_family  # noqa: E402
@@ -47,6 +48,11 @@ def coefficient_colours() -> ListedColormap:
 
 
 def encode_png(fig) -> str:
+    # fig.tight_layout() leaves a placeholder layout engine behind, and savefig lays out (draws without
+    # rendering) any figure that has an engine before drawing it: a second full draw with nothing left to
+    # lay out. Dropping the placeholder gives the same pixels in about two thirds of the time.
+    if isinstance(fig.get_layout_engine(), PlaceHolderLayoutEngine):
+        fig.set_layout_engine(None)
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=110)
     plt.close(fig)
