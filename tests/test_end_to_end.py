@@ -73,7 +73,7 @@ def test_report_is_self_contained_and_has_the_sections(tiny_run):
 def _summary_cells(html: str, loss: str, title: str) -> list[str]:
     """The cells of one row of the "Both families side by side" table."""
     table = html.split('id="summary"', 1)[1].split("</table>", 1)[0]
-    row = re.search(rf'<th scope="row">{re.escape(loss)}</th><td>{re.escape(title)}</td>(.*?)</tr>', table, re.S)
+    row = re.search(rf'<th scope="row"[^>]*>{re.escape(loss)}</th><td>{re.escape(title)}</td>(.*?)</tr>', table, re.S)
     assert row, (loss, title)
     return [title, *re.findall(r"<td>(.*?)</td>", row.group(1), re.S)]
 
