@@ -120,6 +120,10 @@ def check_split(spec, dataset, train_rows, test_rows) -> tuple:
                         f"{MIN_TEST_ROWS}. Raise split.test_fraction or use more rows.")
     if len(test_rows) < FEW_TEST_ROWS:
         notes.append(f"only {len(test_rows)} test rows: the held-out intervals are rough")
+    if spec.verdict.weighted_metrics and dataset.n_classes > 2:
+        raise DataError(f"verdict.weighted_metrics: the target has {dataset.n_classes} classes, and weighted held-out "
+                        f"metrics are available for regression and two classes only; set verdict.weighted_metrics "
+                        f"to false (the fits still use the row weights).")
     y = dataset.y[train_rows]
     if np.ptp(y) == 0:
         raise DataError(f"data.target: column '{dataset.target_name}' has the same value {y[0]:g} on all "

@@ -246,6 +246,11 @@ CASES.update({
                                            ["families.l1.class_weight", "no classes to balance"]),
     "weighted metrics without row weights": ({}, _plain("verdict: {weighted_metrics: true}\n"),
                                              ["verdict.weighted_metrics", "data.weights names no column"]),
+    "weighted metrics with four classes": (
+        {"data.csv": _csv(_frame(n=40, w=1.0, y=[1, 2, 3, 4] * 10))},
+        _weights_config().replace("target: y,", "target: y, task: classification,").replace(
+            "losses: [squared]", "losses: [hinge]") + "verdict: {weighted_metrics: true}\n",
+        ["verdict.weighted_metrics", "4 classes", "regression and two classes only"]),
     # ------------------------------------------------------------ numbers that are not numbers
     "huber delta infinite": ({}, _plain("losses: [{name: huber, delta: .inf}]\n"), ["losses[1].delta", "inf",
                                                                                    "only finite numbers"]),
