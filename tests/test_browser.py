@@ -177,6 +177,7 @@ def assert_clean(found: dict) -> None:
     assert found["print_overflow"] == []
 
 
+@pytest.mark.slow   # with the other browser checks in make test-browser (CI runs it)
 @needs_chromium
 def test_execution_and_comparison_reports_load_clean(store):
     report = store["runs"][0]["report"]
@@ -192,6 +193,7 @@ def test_execution_and_comparison_reports_load_clean(store):
     assert "selection.cv_folds" in found["text"]
 
 
+@pytest.mark.slow
 @needs_chromium
 def test_markup_in_column_names_runs_no_script():
     cwd = scratch_dir("penduel-hostile-")
