@@ -112,3 +112,13 @@ class Dataset:
             out["row_weights"] = (f"column '{self.weights_name}': from {w.min():.4g} to {w.max():.4g}, "
                                   f"total {w.sum():.4g} over {w.size} rows")
         return out
+
+
+def first_repeat(names) -> tuple[str, int, int] | None:
+    """The first name given twice, with the positions (from 0) of its first and second use; None if none."""
+    seen: dict[str, int] = {}
+    for i, name in enumerate(names):
+        if name in seen:
+            return name, seen[name], i
+        seen[name] = i
+    return None

@@ -10,7 +10,7 @@ from .lazy import pd   # pandas loads when a table is read
 
 from ..losses import CLASSIFICATION, loss_names
 from .bundled import BUNDLED
-from .dataset import DataError, Dataset, InputColumn
+from .dataset import DataError, Dataset, InputColumn, first_repeat
 from .design import attach_test_file, take_design
 from .scenarios import make_scenario
 from .sparse_files import load_npz, sparse_if_mostly_zero
@@ -93,12 +93,11 @@ def _check_header(path: pathlib.Path, frame: pd.DataFrame) -> None:
             header = next(csv.reader(fh), [])
     except (OSError, UnicodeDecodeError, csv.Error):
         return
-    seen: dict[str, int] = {}
-    for i, name in enumerate(header):
-        if name in seen:
-            raise DataError(f"data.path: the header of '{path}' names column '{name}' twice (columns {seen[name] + 1} "
-                            f"and {i + 1}); every column needs its own name. Rename or drop one of them.")
-        seen[name] = i
+    repeat = first_repeat(header)
+    if repeat:
+        name, first, second = repeat
+        raise DataError(f"data.path: the header of '{path}' names column '{name}' twice (columns {first + 1} "
+                        f"and {second + 1}); every column needs its own name. Rename or drop one of them.")
 
 
 def frame_to_dataset(frame: pd.DataFrame, target: str, task: str, source: str) -> Dataset:

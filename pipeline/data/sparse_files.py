@@ -15,7 +15,7 @@ import scipy.sparse as sp
 
 from ..losses import CLASSIFICATION, loss_names
 from ..matrices import column_ranges, density, stored_bytes
-from .dataset import DataError, Dataset
+from .dataset import DataError, Dataset, first_repeat
 from .lazy import pd
 from .task import infer_task
 
@@ -149,12 +149,11 @@ def _check_names(names: list[str], path: pathlib.Path) -> None:
     empty = [i for i, name in enumerate(names) if name == ""]
     if empty:
         raise DataError(f"data.feature_names: line {empty[0] + 1} of '{path}' is empty; every column needs a name.")
-    seen: dict[str, int] = {}
-    for i, name in enumerate(names):
-        if name in seen:
-            raise DataError(f"data.feature_names: '{path}' names '{name}' twice (lines {seen[name] + 1} and "
-                            f"{i + 1}); every column needs its own name.")
-        seen[name] = i
+    repeat = first_repeat(names)
+    if repeat:
+        name, first, second = repeat
+        raise DataError(f"data.feature_names: '{path}' names '{name}' twice (lines {first + 1} and "
+                        f"{second + 1}); every column needs its own name.")
 
 
 def _drop_constant(matrix, names, source: str):
