@@ -21,7 +21,7 @@ from .models.families import FAMILIES, get_family
 from .models.multiclass import for_classes
 from .selection import L2_CRITERIA, choose_lambda_index, cv_summary, nested_estimate
 from .splits import describe_design, plan_resamples, plan_splits, split_rows
-from .stability import stability_losses, stability_stage
+from .stability import resample_grids, stability_losses, stability_stage, with_resamples
 
 
 @dataclass(frozen=True)
@@ -48,7 +48,7 @@ class FamilyResult:
     intercept: float                 # (K,) array for K > 2 classes
     selected_by: str = ""
     nested: dict | None = None       # nested-CV estimate of the select-then-fit procedure
-    resamples: tuple = ()            # FitOutcome per resample (stability stage)
+    resamples: tuple = ()            # FitOutcome per resample (stability stage; stability.resample_grid: its λ)
     grid_end: str | None = None      # "largest" / "smallest": the chosen λ still sits at that end of the
     #                                  grid after widening it, so the result is not comparable at this setting
     grid_widened: tuple = (0, 0)     # rounds the grid was widened at its (largest, smallest) end
@@ -258,7 +258,6 @@ def assemble(spec, shared, tasks, outcomes, test_rows, rng, decisions=None, scal
             selected_by=how,
             nested=nested_estimate({k: o.eval_loss for k, (_, o) in splits.items()}, spec.selection.cv_folds,
                                    spec.selection.rule) if spec.selection.nested else None,
-            resamples=tuple(o for k, (_, o) in sorted(splits.items()) if k.startswith("resample")),
             grid_end=end, grid_widened=(widened or {}).get((label, family), (0, 0))))
     return results
 
@@ -355,12 +354,15 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
         reused_total, n_tasks = reused_total + reused, n_tasks + len(tasks)
         return outcomes
 
-    wanted = set(stability_losses(spec))
-    tasks, outcomes, grids, widened = fit_with_widening(spec, shared, train_rows, splits, run)
-    if wanted:   # resamples on each family's settled grid
-        more = plan_tasks(spec, {k: g for k, g in grids.items() if k[0] in wanted}, inputs.resamples,
-                          selection_only=True)
-        tasks, outcomes = tasks + more, outcomes + run(more)
+    tasks, outcomes, _, widened = fit_with_widening(spec, shared, train_rows, splits, run)
+    scale = target_scaling(shared, dataset.y[train_rows])[1]   # Huber δ in the target's unit
+    decisions = decisions_for(spec, dataset.task, scale)
+    results = assemble(spec, shared, tasks, outcomes, test_rows, seeds.generator(spec.seed, "test_intervals"),
+                       decisions, scale, widened, len(train_rows))
+    # resamples once each grid and its chosen λ are settled, at the λ values the stability stage reads
+    more = plan_tasks(spec, resample_grids(results, stability_losses(spec)), inputs.resamples, selection_only=True)
+    more_outcomes = run(more)
+    results, outcomes = with_resamples(results, more, more_outcomes), outcomes + more_outcomes
     reused = reused_total
     notes = dataset.notes + inputs.notes + (cache.drop_note() if cache else ()) + (
         (f"reused {reused} of {n_tasks} finished fit task(s) from the cache '{spec.cache.directory}' "
@@ -368,10 +370,6 @@ def run_experiment(spec: ExperimentSpec, base_dir: pathlib.Path, progress: bool 
     notes += tuple(dict.fromkeys(f"{get_family(o.family).title}, loss {o.loss_label}: {o.note}"
                                  for o in outcomes if o.note and o.split == "final"))   # e.g. the low-rank route
     notes += route_notes(shared, train_rows, tasks)
-    scale = target_scaling(shared, dataset.y[train_rows])[1]   # Huber δ in the target's unit
-    decisions = decisions_for(spec, dataset.task, scale)
-    results = assemble(spec, shared, tasks, outcomes, test_rows, seeds.generator(spec.seed, "test_intervals"),
-                       decisions, scale, widened, len(train_rows))
     notes += grid_notes(results)
     feature_names = next(o.feature_names for t, o in zip(tasks, outcomes) if t.split == "final")
     fold0 = splits[0]

@@ -24,6 +24,34 @@ TOP_FEATURES = 20
 # the family whose fits select a support, and the one compared with it by its top-k |w| set
 SUPPORT_FAMILY = next(f.key for f in FAMILIES if f.has_support)
 TOP_K_FAMILY = next(f.key for f in FAMILIES if not f.has_support)
+# The families whose resample fits are read along the whole λ path (stability paths, the error-control
+# λ range); every other family's resample fits are read at its chosen λ only, so they are fitted there only.
+READ_ALONG_PATH = frozenset(f.key for f in FAMILIES if f.has_support)
+
+
+def resample_grid(family: str, lambdas, chosen_index: int) -> tuple[np.ndarray, int]:
+    """The λ values a family's resample fits are fitted at, and where its chosen λ sits among them."""
+    lambdas = np.asarray(lambdas, dtype=float)
+    if family in READ_ALONG_PATH:
+        return lambdas, int(chosen_index)
+    return lambdas[chosen_index:chosen_index + 1], 0
+
+
+def resample_grids(results, labels) -> dict:
+    """(loss label, family) -> the λ grid of its resample fits, for every result whose loss is resampled:
+    planned once cross-validation has settled each grid and its chosen λ."""
+    return {(r.loss_label, r.family): resample_grid(r.family, r.lambdas, r.chosen_index)[0]
+            for r in results if r.loss_label in labels}
+
+
+def with_resamples(results, tasks, outcomes) -> list:
+    """The results with their resample fits attached (in the order of the resamples' names)."""
+    found: dict[tuple, dict] = {}
+    for t, o in zip(tasks, outcomes):
+        found.setdefault((t.loss_label, t.family), {})[t.split] = o
+    return [dataclasses.replace(r, resamples=tuple(o for _, o in sorted(found.get((r.loss_label, r.family),
+                                                                                  {}).items())))
+            for r in results]
 
 def stability_losses(spec) -> tuple[str, ...]:
     if not spec.stability.enabled:
@@ -83,7 +111,8 @@ def stability_stage(spec, results, feature_names, train_features) -> StabilityRe
         several = any(o.multiclass for r in d.values() for o in r.resamples)
         summaries[label] = summarise_families(spec, {f: [_per_feature(o) for o in r.resamples] for f, r in d.items()},
                                               {f: r.lambdas for f, r in d.items()},
-                                              {f: r.chosen_index for f, r in d.items()}, feature_names, Z_train,
+                                              {f: resample_grid(f, r.lambdas, r.chosen_index)[1]
+                                               for f, r in d.items()}, feature_names, Z_train,
                                               paths_out=found, gaps=gaps)
         if several:   # weights of several classes: norms across the classes, which carry no sign
             summaries[label]["several_classes"] = SELECTED_SENTENCE
