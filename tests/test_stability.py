@@ -11,7 +11,7 @@ from hypothesis.extra.numpy import arrays
 
 from pipeline.stability import (
     compare_families, correlated_groups_sharing, held_out_matrix, lambda_range_for_error_bound, mb_error_bound,
-    nogueira_stability, prediction_instability, selection_probabilities, sign_consistency, stable_set,
+    nogueira_stability, prediction_instability, selected, selection_probabilities, sign_consistency, stable_set,
     top_k_sets, union_sizes)
 
 
@@ -319,3 +319,22 @@ def test_stability_summary_on_a_sparse_problem():
     for family in (l1, l2):
         assert -1.0 <= family["index"]["lower"] <= family["index"]["stability"] <= family["index"]["upper"]
         assert family["prediction_instability"] > 0
+
+
+def test_selection_indicators_give_the_same_measures_as_the_weights():
+    """The stage stacks a sparse family's resample paths as indicators: every measure along the path must be
+    the one of the weights, bit for bit (NaN weights and the tolerance included)."""
+    rng = np.random.default_rng(4)
+    paths = np.where(rng.random((7, 9, 30)) < 0.3, rng.standard_normal((7, 9, 30)), 0.0)
+    paths[0, 0, 0] = np.nan
+    lambdas = np.geomspace(1.0, 0.01, 9)
+    indicators = selected(paths)
+    assert indicators.dtype == bool
+    np.testing.assert_array_equal(selection_probabilities(indicators), selection_probabilities(paths))
+    np.testing.assert_array_equal(union_sizes(indicators), union_sizes(paths))
+    for target in (0.5, 2.0, 50.0):
+        a, b = (lambda_range_for_error_bound(x, lambdas, 0.7, target) for x in (indicators, paths))
+        assert a.keys() == b.keys()
+        for key in a:
+            np.testing.assert_array_equal(a[key], b[key])
+    assert not selected(indicators, tol=1.0).any()

@@ -16,7 +16,12 @@ from ..matrices import columns
 
 
 def selected(coefs: np.ndarray, tol: float = 0.0) -> np.ndarray:
-    """Boolean selection indicator |coef| > tol, same shape as coefs."""
+    """Boolean selection indicator |coef| > tol, same shape as coefs. Indicators already made (a boolean
+    array, read as weights 1 and 0) are returned as they are: the stage stacks a sparse family's resample
+    paths as indicators, an eighth of their weights' memory."""
+    coefs = np.asarray(coefs)
+    if coefs.dtype == bool:
+        return coefs if tol < 1.0 else np.zeros_like(coefs)
     return np.abs(np.asarray(coefs, dtype=float)) > tol
 
 
@@ -72,7 +77,7 @@ def lambda_range_for_error_bound(coef_paths: np.ndarray, lambdas: np.ndarray, th
     Returns lambda_min/lambda_max (None when even the largest λ alone fails), the grid indices
     (in the caller's order), q, the bound, the largest q allowed, and the stable set over Λ.
     """
-    coef_paths = np.asarray(coef_paths, dtype=float)
+    coef_paths = np.asarray(coef_paths)     # weights, or their selection indicators (see selected)
     lambdas = np.asarray(lambdas, dtype=float)
     if coef_paths.ndim != 3 or coef_paths.shape[1] != lambdas.size:
         raise ValueError(f"coef_paths must be (B, {lambdas.size}, p), got {coef_paths.shape}")

@@ -17,7 +17,7 @@ from ..models.families import FAMILIES
 from ..models.multiclass import SELECTED_SENTENCE, selection_weights
 from .bounds import bound_for, ss_unimodal_bound
 from .measures import (compare_families, correlated_groups_sharing, family_stability,
-                       lambda_range_for_error_bound, prediction_instability, selection_probabilities)
+                       lambda_range_for_error_bound, prediction_instability, selected, selection_probabilities)
 from .schemes import SCHEME_TABLE, resample_indices
 
 TOP_FEATURES = 20
@@ -166,7 +166,7 @@ def summarise_families(spec, outcomes_by_family: dict, lambdas_by_family: dict, 
     have_l1 = l1 is not None and not gaps.get(SUPPORT_FAMILY)
     have_l2 = l2 is not None and not gaps.get(TOP_K_FAMILY)
     if have_l1:
-        paths = np.stack([o.coef for o in l1])                    # (M, L, p)
+        paths = np.stack([selected(o.coef) for o in l1])          # (M, L, p) selection indicators
         probs = selection_probabilities(paths)                    # (L, p)
         if paths_out is not None:
             paths_out[SUPPORT_FAMILY] = probs
