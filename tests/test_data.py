@@ -60,6 +60,20 @@ def test_categorical_columns_are_one_hot_encoded_with_a_note():
     assert any("one-hot" in n for n in d.notes)
 
 
+def test_interleaved_numeric_text_and_boolean_columns_keep_their_order_and_values():
+    # numeric columns are converted as one block: order and values must be those of the table, column by column
+    rng = np.random.default_rng(3)
+    frame = pd.DataFrame({"a": rng.normal(size=12), "site": ["n", "s", "e"] * 4, "flag": [True, False] * 6,
+                          "y": rng.normal(size=12), "b": np.arange(12), "kind": ["u", "v"] * 6,
+                          "c": rng.normal(size=12)})
+    d = frame_to_dataset(frame, "y", "regression", "t.csv")
+    assert d.feature_names == ("a", "site=n", "site=s", "flag", "b", "kind=v", "c")
+    expected = np.column_stack([frame.a, frame.site == "n", frame.site == "s", frame.flag, frame.b,
+                                frame.kind == "v", frame.c]).astype(float)
+    assert np.array_equal(d.X, expected) and np.array_equal(d.y, frame.y.to_numpy())
+    assert [c.boolean for c in d.inputs] == [False, False, True, False, False, False]
+
+
 def test_constant_columns_dropped_with_note():
     frame = pd.DataFrame({"c": [1.0] * 10, "x": np.arange(10.0), "y": np.arange(10.0) % 4})
     d = frame_to_dataset(frame, "y", "regression", "t.csv")

@@ -101,15 +101,16 @@ def _check_header(path: pathlib.Path, frame: pd.DataFrame) -> None:
 
 
 def frame_to_dataset(frame: pd.DataFrame, target: str, task: str, source: str) -> Dataset:
-    frame = frame.copy()
-    frame.columns = [str(c) for c in frame.columns]
+    frame = frame.set_axis([str(c) for c in frame.columns], axis=1)
     if target not in frame.columns:
         match = difflib.get_close_matches(target, frame.columns, n=1)
         hint = f" Did you mean '{match[0]}'?" if match else ""
         shown = ", ".join(repr(c) for c in frame.columns[:10]) + (" ..." if frame.shape[1] > 10 else "")
         raise DataError(f"data.target: column '{target}' is not in {source} (columns: {shown}).{hint}")
     _check_names(frame, source)
-    y_raw = frame.pop(target)
+    # selecting the other columns, not frame.pop: deleting one column of a wide frame rebuilds every block
+    y_raw = frame[target]
+    frame = frame[[c for c in frame.columns if c != target]]
     if frame.shape[1] == 0:
         raise DataError(f"data.target: {source} has no column besides the target '{target}'.")
     notes: list[str] = []
@@ -149,8 +150,8 @@ def _drop_row_index(frame: pd.DataFrame, notes: list[str]) -> pd.DataFrame:
 
 def _check_cells(frame: pd.DataFrame, source: str) -> None:
     """Lists, mappings or arrays in a cell (nested Parquet columns) cannot be features."""
-    for col in frame.columns:
-        if frame[col].dtype != object:
+    for col, dtype in frame.dtypes.items():
+        if dtype != object:
             continue
         nested = frame[col].map(lambda v: isinstance(v, (list, tuple, dict, set, np.ndarray))).to_numpy()
         if nested.any():
@@ -162,8 +163,13 @@ def _check_cells(frame: pd.DataFrame, source: str) -> None:
 
 def _check_target_copy(frame: pd.DataFrame, y_raw: pd.Series, target: str, source: str) -> None:
     """A feature column equal to the target would be selected as a perfect, meaningless predictor."""
-    for col in frame.columns:
-        if frame[col].dtype == y_raw.dtype and frame[col].equals(y_raw):
+    same = [col for col, dtype in frame.dtypes.items() if dtype == y_raw.dtype]
+    if same and pd.api.types.is_numeric_dtype(y_raw.dtype):   # one array comparison narrows a wide table
+        block, values = frame[same].to_numpy(), y_raw.to_numpy()
+        equal = (block == values[:, None]) | (pd.isna(block) & pd.isna(values)[:, None])
+        same = [col for col, hit in zip(same, equal.all(axis=0)) if hit]
+    for col in same:
+        if frame[col].equals(y_raw):
             raise DataError(f"data: column '{col}' of {source} is a copy of the target '{target}' (equal in every "
                             f"row); it would predict the target perfectly and meaninglessly. Drop it from the data.")
 
@@ -229,21 +235,33 @@ def _check_spread(X: np.ndarray, names, source: str, what: str) -> None:
 
 
 def _features(frame: pd.DataFrame, source: str, notes: list[str], inputs: list):
-    blocks, names = [], []
-    for col in frame.columns:
-        series = frame[col]
-        if pd.api.types.is_bool_dtype(series) or pd.api.types.is_numeric_dtype(series):
-            values = series.to_numpy(dtype=float)
-            bad = ~np.isfinite(values)
-            if bad.any():
+    numeric = [pd.api.types.is_bool_dtype(d) or pd.api.types.is_numeric_dtype(d) for d in frame.dtypes]
+    # numeric and boolean columns converted as one block (column by column costs seconds on wide tables)
+    numeric_names = [c for c, keep in zip(frame.columns, numeric) if keep]
+    values = frame[numeric_names].to_numpy(dtype=float) if numeric_names else np.empty((len(frame), 0))
+    finite = np.isfinite(values).all(axis=0)
+    blocks, names, run, j = [], [], [], 0
+
+    def close_run():
+        if run:
+            blocks.append(values[:, run[0]:run[-1] + 1])
+            run.clear()
+
+    for (col, dtype), is_numeric in zip(frame.dtypes.items(), numeric):
+        if is_numeric:
+            if not finite[j]:
+                bad = ~np.isfinite(values[:, j])
                 row = int(np.flatnonzero(bad)[0])
                 raise DataError(f"data: feature column '{col}' has {int(bad.sum())} missing or infinite "
-                                f"value(s) in {source}, first {values[row]} at data row {row + 1}; remove or "
+                                f"value(s) in {source}, first {values[row, j]} at data row {row + 1}; remove or "
                                 f"impute them before running.")
-            blocks.append(values[:, None])
+            run.append(j)
+            j += 1
             names.append(col)
-            inputs.append(InputColumn(col, boolean=pd.api.types.is_bool_dtype(series)))
+            inputs.append(InputColumn(col, boolean=pd.api.types.is_bool_dtype(dtype)))
             continue
+        close_run()
+        series = frame[col]
         if series.isna().any():
             row = int(np.flatnonzero(series.isna().to_numpy())[0])
             raise DataError(f"data: text column '{col}' has a missing value at data row {row + 1} in {source}.")
@@ -259,6 +277,7 @@ def _features(frame: pd.DataFrame, source: str, notes: list[str], inputs: list):
             names.append(f"{col}={level}")
         notes.append(f"text column '{col}' one-hot encoded into {len(levels) - 1} column(s), "
                      f"reference level {levels[0]!r}")
+    close_run()
     X = np.hstack(blocks)
     _check_spread(X, names, source, "data: feature column")
     constant = np.ptp(X, axis=0) == 0
