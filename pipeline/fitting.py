@@ -63,6 +63,12 @@ class PackedZeros:
     values: np.ndarray
 
     def unpacked(self) -> np.ndarray:
+        """The dense array; ValueError when the parts do not fit together (e.g. a damaged cache entry)."""
+        size = int(np.prod(self.shape))
+        pos, values = np.asarray(self.positions), np.asarray(self.values)
+        if pos.ndim != 1 or pos.dtype.kind not in "iu" or values.shape != pos.shape or values.dtype != np.float64 \
+                or (pos.size and (int(pos.min()) < 0 or int(pos.max()) >= size)):
+            raise ValueError(f"packed array parts do not fit its shape {self.shape}")
         out = np.zeros(self.shape)
         out.reshape(-1)[self.positions] = self.values
         return out
