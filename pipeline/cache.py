@@ -3,7 +3,8 @@
 An entry's key is a SHA-256 over everything that decides the task's result: the config
 sections that reach the fit (data, split, features, the task's family settings, CV folds,
 seed), the data hash, the task id and its row/λ arrays, and the package version. The value
-is one ``.npz`` file holding the result's arrays plus its other fields as JSON text; it is
+is one ``.npz`` file holding the result's arrays (a mostly-zero one as the positions and values of
+its nonzero entries, `fitting.PackedZeros`) plus its other fields as JSON text; it is
 read back with ``allow_pickle=False``, so no cache file is ever unpickled. Each entry is
 written to a temporary name and renamed into place, so a kill mid-write leaves no torn entry.
 
@@ -26,11 +27,13 @@ from typing import Any, Callable
 
 import numpy as np
 
+from .fitting import PackedZeros, pack_zeros
 from .matrices import from_parts, is_sparse, to_parts
 from .models.families import KEYS
 
-CACHE_FORMAT = 2
+CACHE_FORMAT = 3      # 3: mostly-zero arrays stored packed (positions and values)
 _META = "__meta__"
+_POSITIONS, _VALUES = "__positions", "__values"     # a packed array's parts (suffixes of its field name)
 _CHECK = "__check__"
 
 
@@ -84,7 +87,12 @@ def encode(value) -> dict[str, np.ndarray]:
         elif isinstance(v, np.ndarray):
             if v.dtype == object:
                 raise TypeError(f"field {f.name} is an object array; it cannot be stored without pickle")
-            arrays[f.name] = v
+            packed = pack_zeros(v)   # a resample's (L, p) sparse weights: a few kB instead of ~1 MB
+            if isinstance(packed, PackedZeros):
+                arrays[f"{f.name}{_POSITIONS}"], arrays[f"{f.name}{_VALUES}"] = packed.positions, packed.values
+                meta[f.name] = {"packed": list(packed.shape)}
+            else:
+                arrays[f.name] = v
         elif isinstance(v, tuple):
             meta[f.name] = {"tuple": list(v)}
         else:
@@ -116,6 +124,9 @@ def decode(cls, arrays) -> Any:
             values[f.name] = arrays[f.name]
         elif meta.get(f.name, {}).get("sparse"):
             values[f.name] = from_parts(f.name, arrays)
+        elif "packed" in meta.get(f.name, {}):
+            values[f.name] = PackedZeros(tuple(int(d) for d in meta[f.name]["packed"]),
+                                         arrays[f"{f.name}{_POSITIONS}"], arrays[f"{f.name}{_VALUES}"]).unpacked()
         else:
             m = meta[f.name]
             values[f.name] = tuple(m["tuple"]) if "tuple" in m else m["plain"]

@@ -9,6 +9,7 @@ import contextlib
 import io
 import logging
 import os
+import pickle
 import signal
 import sys
 import tempfile
@@ -106,28 +107,52 @@ def captured_output(sink: list):
 class SharedFile:
     """The shared data of one `run_tasks` call written once to a file that worker processes read (arrays
     memory-mapped) and keep: a task then carries this small handle instead of the data. Pickling the data
-    with every task made the dispatching process hash and copy the whole design matrix once per task."""
+    with every task made the dispatching process hash and copy the whole design matrix once per task.
+
+    The file is a pickle (protocol 5) of everything but the arrays' contents, then each array's bytes
+    at an aligned offset; a worker maps the file and the arrays are read-only views of it (the same bits).
+    Written with the C pickler: joblib's pure-Python one took ~45 ms for 400 × 4 000 floats and 4 000
+    column names, time taken from the workers on two cores."""
     path: str
 
     @classmethod
     def write(cls, shared: Any, folder: str) -> "SharedFile":
-        import joblib
-
         import uuid
 
-        path = os.path.join(folder, f"shared-{uuid.uuid4().hex}.joblib")   # never the name of an earlier run's file
-        joblib.dump(shared, path)
+        buffers: list = []
+        head = pickle.dumps(shared, protocol=5, buffer_callback=buffers.append)
+        spans, offset = [], 0
+        for b in buffers:
+            offset = -(-offset // SHARED_ALIGN) * SHARED_ALIGN
+            spans.append((offset, b.raw().nbytes))
+            offset += b.raw().nbytes
+        index = pickle.dumps((head, spans), protocol=5)
+        start = -(-(8 + len(index)) // SHARED_ALIGN) * SHARED_ALIGN
+        path = os.path.join(folder, f"shared-{uuid.uuid4().hex}.bin")   # never the name of an earlier run's file
+        with open(path, "wb") as fh:
+            fh.write(len(index).to_bytes(8, "little") + index)
+            for b, (off, _) in zip(buffers, spans):
+                fh.seek(start + off)
+                fh.write(b.raw())
+            fh.truncate(start + offset)
         return cls(path)
 
     def load(self) -> Any:
         if self.path not in _LOADED:
-            import joblib
+            import mmap
 
             _LOADED.clear()           # one run's data at a time per worker
-            _LOADED[self.path] = joblib.load(self.path, mmap_mode="r")
+            with open(self.path, "rb") as fh:
+                size = int.from_bytes(fh.read(8), "little")
+                head, spans = pickle.loads(fh.read(size))
+                mapped = mmap.mmap(fh.fileno(), 0, access=mmap.ACCESS_READ) if spans else None
+            start = -(-(8 + size) // SHARED_ALIGN) * SHARED_ALIGN
+            view = memoryview(mapped) if mapped is not None else None
+            _LOADED[self.path] = pickle.loads(head, buffers=[view[start + o:start + o + n] for o, n in spans])
         return _LOADED[self.path]
 
 
+SHARED_ALIGN = 64      # byte alignment of each array in a SharedFile
 _LOADED: dict = {}
 _MALLOC_SET: list = []
 MALLOC_KEEP_BYTES = 256 << 20    # freed heap a worker keeps for its next task instead of giving it back

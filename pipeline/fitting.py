@@ -5,6 +5,7 @@ result depends only on the task and the shared data (never on the worker or orde
 """
 from __future__ import annotations
 
+import dataclasses
 import time
 from dataclasses import dataclass, field
 
@@ -48,6 +49,47 @@ class FitTask:
         return f"{self.loss_label}/{self.family}/{self.split}"
 
 
+# An array is sent packed (PackedZeros) when at most this share of its entries is nonzero and it has at
+# least PACK_MIN_ENTRIES entries: a resample fit's (L, p) weights are mostly exact zeros
+PACK_SHARE, PACK_MIN_ENTRIES = 0.25, 1024
+
+
+@dataclass(frozen=True)
+class PackedZeros:
+    """A float64 array as the positions (flat, C order) and values of its entries whose bits are not all zero:
+    −0.0 and NaN are kept as entries, so `unpacked()` gives back the same bits."""
+    shape: tuple
+    positions: np.ndarray
+    values: np.ndarray
+
+    def unpacked(self) -> np.ndarray:
+        """The dense array; ValueError when the parts do not fit together (e.g. a damaged cache entry)."""
+        size = int(np.prod(self.shape))
+        pos, values = np.asarray(self.positions), np.asarray(self.values)
+        if pos.ndim != 1 or pos.dtype.kind not in "iu" or values.shape != pos.shape or values.dtype != np.float64 \
+                or (pos.size and (int(pos.min()) < 0 or int(pos.max()) >= size)):
+            raise ValueError(f"packed array parts do not fit its shape {self.shape}")
+        out = np.zeros(self.shape)
+        out.reshape(-1)[self.positions] = self.values
+        return out
+
+
+def pack_zeros(a):
+    """`a` as PackedZeros when that is much smaller (see PACK_SHARE), else `a` unchanged."""
+    if not isinstance(a, np.ndarray) or a.dtype != np.float64 or a.size < PACK_MIN_ENTRIES:
+        return a
+    flat = np.ascontiguousarray(a).reshape(-1)
+    positions = np.flatnonzero(flat.view(np.uint64))
+    if positions.size > PACK_SHARE * flat.size:
+        return a
+    return PackedZeros(tuple(a.shape), positions.astype(np.int32 if flat.size < 2**31 else np.int64),
+                       flat[positions])
+
+
+def _unpickled_outcome(values: dict) -> "FitOutcome":
+    return FitOutcome(**{k: v.unpacked() if isinstance(v, PackedZeros) else v for k, v in values.items()})
+
+
 @dataclass(frozen=True)
 class FitOutcome:
     task_id: str
@@ -68,7 +110,7 @@ class FitOutcome:
     status: tuple[str, ...]
     solver: str
     fit_seconds: float
-    feature_names: tuple[str, ...]
+    feature_names: tuple[str, ...]       # the features' names on the final split; () on every other split
     loo_error: np.ndarray | None = None   # (L,) where the family has exact LOO (ridge, squared loss), fitting scale
     gcv: np.ndarray | None = None
     df_kind: str = ""                      # what effective_df counts
@@ -83,6 +125,13 @@ class FitOutcome:
     stored_weights: np.ndarray | None = None
     stored_basis: np.ndarray | None = field(default=None, metadata={"per_lambda": False})
     stored_kernel: dict | None = None      # {"kernel": name, "params": {...}} in representer form
+
+    def __reduce__(self):
+        """Pickled (a worker's result on its way back, process or Dask backend) with its mostly-zero arrays
+        packed: a sparse resample fit's (L, p) weights are ~1 MB dense at p = 4 000 and a few kB packed, and
+        with two workers on two cores every second the dispatching process spends unpickling is taken from a
+        worker. Unpickled to the same value, bit for bit (dense arrays again)."""
+        return _unpickled_outcome, ({f.name: pack_zeros(getattr(self, f.name)) for f in dataclasses.fields(self)},)
 
 
 def stored_path(fit) -> dict:
@@ -164,6 +213,8 @@ def run_fit(task: FitTask, shared: Shared) -> FitOutcome:
         eval_loss=eval_loss, eval_pred=center + scale * f_ev, coef=coef, intercept=np.asarray(intercept),
         n_nonzero=fit.n_nonzero, effective_df=np.asarray(fit.effective_df, float), certificate=fit.certificate,
         certificate_kind=fit.certificate_kind, converged=np.asarray(fit.converged), status=tuple(fit.status),
-        solver=fit.solver, fit_seconds=seconds, feature_names=tuple(builder.get_feature_names_out()),
+        solver=fit.solver, fit_seconds=seconds,
+        # the runner reads the names from the final fit: every other split would send the same p names back
+        feature_names=tuple(builder.get_feature_names_out()) if task.split == "final" else (),
         loo_error=fit.loo_error, gcv=fit.gcv, df_kind=fit.df_kind, note=fit.note, multiclass=fit.multiclass,
         **stored)

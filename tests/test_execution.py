@@ -154,3 +154,85 @@ def test_worker_processes_keep_freed_memory_and_this_process_is_left_alone():
     # the dispatching process (backend local) keeps its own allocator settings
     assert run_tasks(_allocator_kept, [0, 1], backend="processes", n_jobs=2) == [True, True]
     assert run_tasks(_allocator_kept, [0], backend="local") == [False]
+
+
+def _mostly_zero_outcome(dense_share: float = 0.02):
+    """A FitOutcome whose (L, p) weights are mostly exact zeros, with the awkward entries kept: −0.0,
+    NaN, a subnormal and the largest float."""
+    from pipeline.fitting import FitOutcome
+
+    rng = np.random.default_rng(5)
+    coef = np.where(rng.random((6, 500)) < dense_share, rng.standard_normal((6, 500)), 0.0)
+    coef[0, :4] = [-0.0, np.nan, 5e-324, np.finfo(float).max]
+    return FitOutcome(task_id="squared/l1/resample3", split="resample3", family="l1", loss_label="squared",
+                      eval_loss=rng.random(6), eval_pred=rng.standard_normal((6, 9)), coef=coef,
+                      intercept=rng.standard_normal(6), n_nonzero=np.count_nonzero(coef, axis=1),
+                      effective_df=np.ones(6), certificate=np.zeros(6), certificate_kind="kkt_violation",
+                      converged=np.ones(6, bool), status=("optimal",) * 6, solver="active-set",
+                      fit_seconds=0.5, feature_names=())
+
+
+def _same_bits(a, b) -> bool:
+    import dataclasses
+
+    for f in dataclasses.fields(a):
+        x, y = getattr(a, f.name), getattr(b, f.name)
+        if isinstance(x, np.ndarray):
+            if not (isinstance(y, np.ndarray) and x.dtype == y.dtype and x.shape == y.shape
+                    and x.tobytes() == y.tobytes()):
+                return False
+        elif x != y or type(x) is not type(y):
+            return False
+    return True
+
+
+def test_outcomes_travel_packed_and_arrive_bit_for_bit():
+    # a worker's result is pickled on its way back: mostly-zero weights go as positions and values
+    # (fitting.PackedZeros) and come back as the same dense array, bit for bit (−0.0 and NaN included)
+    import pickle
+
+    sparse = _mostly_zero_outcome()
+    back = pickle.loads(pickle.dumps(sparse, protocol=5))
+    assert _same_bits(sparse, back) and isinstance(back.coef, np.ndarray) and back.coef.flags.writeable
+    assert len(pickle.dumps(sparse, protocol=5)) < 0.2 * sparse.coef.nbytes
+    dense = _mostly_zero_outcome(dense_share=1.0)    # a dense path is sent as it is
+    assert _same_bits(dense, pickle.loads(pickle.dumps(dense)))
+    assert len(pickle.dumps(dense)) > dense.coef.nbytes
+
+
+def test_packed_parts_that_do_not_fit_are_refused():
+    from pipeline.fitting import PackedZeros
+
+    with pytest.raises(ValueError, match="do not fit"):
+        PackedZeros((2, 3), np.array([0, 6]), np.array([1.0, 2.0])).unpacked()
+    with pytest.raises(ValueError, match="do not fit"):
+        PackedZeros((2, 3), np.array([0, 1]), np.array([1.0])).unpacked()
+
+
+def _outcome_through_processes(task):
+    return _mostly_zero_outcome()
+
+
+def test_outcomes_from_worker_processes_equal_local_ones():
+    local = run_tasks(_outcome_through_processes, [0, 1], backend="local")
+    processes = run_tasks(_outcome_through_processes, [0, 1], backend="processes", n_jobs=2)
+    assert all(_same_bits(a, b) for a, b in zip(local, processes))
+
+
+def test_shared_file_gives_workers_the_same_bits_read_only(tmp_path):
+    # execution.SharedFile: a pickle of everything but the arrays' bytes, the arrays mapped from the file
+    import scipy.sparse as sp
+
+    from pipeline.execution import SharedFile
+
+    rng = np.random.default_rng(2)
+    X = rng.standard_normal((7, 5))
+    value = {"X": X, "strided": X[:, ::2], "ints": np.arange(5, dtype=np.int32), "empty": np.zeros((0, 3)),
+             "csc": sp.random(6, 4, density=0.4, format="csc", random_state=1), "names": ("a", "b=<x>"), "n": 3}
+    loaded = SharedFile.write(value, str(tmp_path)).load()
+    for key in ("X", "strided", "ints", "empty"):
+        a, b = value[key], loaded[key]
+        assert a.dtype == b.dtype and a.shape == b.shape and np.ascontiguousarray(a).tobytes() == \
+            np.ascontiguousarray(b).tobytes(), key
+    assert not loaded["X"].flags.writeable
+    assert (loaded["csc"] != value["csc"]).nnz == 0 and loaded["names"] == value["names"] and loaded["n"] == 3

@@ -105,6 +105,7 @@ def test_resample_fit_tasks_match_direct_fits():
     out = run_tasks(run_fit, tasks, shared=shared)
     for o, rows in zip(out, resamples):
         assert o.coef.shape == (2, 6) and o.certificate_kind == "kkt_violation" and o.converged.all()
+        assert o.feature_names == ()    # only the final fit carries them (the runner reads them there)
         # reference: scikit-learn Lasso(alpha=λ) on the task's scale (columns standardised on the resample's
         # rows, target centred and divided by its sd; both minimise (1/2n)|t − Zw|² + λ|w|₁), mapped back
         mean, sd = X[rows].mean(axis=0), X[rows].std(axis=0)

@@ -198,3 +198,37 @@ def test_killed_command_resumes_and_matches_uninterrupted(tmp_path, sig):
     reference = _test_metrics(MlflowClient(tracking_uri=f"sqlite:///{tmp_path / 'fresh.db'}"), reference_id)
     assert _test_metrics(client, rerun_id) == reference
 
+
+
+def test_mostly_zero_arrays_are_stored_packed_and_read_back_bit_for_bit(tmp_path):
+    # a resample's (L, p) weights are mostly exact zeros: the entry keeps their positions and values only
+    from .test_execution import _mostly_zero_outcome
+
+    value = _mostly_zero_outcome()
+    arrays = encode(value)
+    assert "coef" not in arrays and "coef__positions" in arrays and "coef__values" in arrays
+    assert _same(decode(FitOutcome, arrays), value)
+    cache = TaskCache(tmp_path, FitOutcome)
+    cache.put("ab" * 32, value)
+    (path,) = tmp_path.rglob("*.npz")
+    assert path.stat().st_size < 0.3 * value.coef.nbytes
+    assert _same(cache.get("ab" * 32), value)
+
+
+def test_packed_entry_whose_positions_do_not_fit_is_dropped(tmp_path):
+    import json
+
+    from pipeline.cache import content_digest
+
+    from .test_execution import _mostly_zero_outcome
+
+    cache = TaskCache(tmp_path, FitOutcome)
+    arrays = encode(_mostly_zero_outcome())
+    arrays["coef__positions"] = arrays["coef__positions"] + 10**6    # outside the (6, 500) array
+    arrays["__check__"] = np.frombuffer(json.dumps({"key": "cd" * 32, "digest": content_digest(arrays)}).encode(),
+                                        dtype=np.uint8)
+    path = cache.path("cd" * 32)
+    path.parent.mkdir(parents=True)
+    with open(path, "wb") as fh:
+        np.savez(fh, **arrays)
+    assert cache.get("cd" * 32) is None and not path.exists() and "do not fit" in cache.drop_note()[0]

@@ -112,8 +112,8 @@ class GramCache:
         H = np.empty((k + 1, k + 1))
         H[0, 0] = 1.0
         H[0, 1:] = H[1:, 0] = self.means[S]
-        H[1:, 1:] = self.block[np.ix_(pos, pos)]
-        H[1:, 1:][np.diag_indices(k)] += lam * (1 - alpha)
+        H[1:, 1:] = self.block[pos[:, None], pos]
+        H.flat[k + 2::k + 2] += lam * (1 - alpha)     # the diagonal of H[1:, 1:]
         rhs = np.empty(k + 1)
         rhs[0] = self.ybar
         rhs[1:] = self.xty[S] - lam * alpha * signs
