@@ -224,20 +224,6 @@ class TaskCache:
             raise
 
 
-@dataclasses.dataclass(frozen=True)
-class StoringFit:
-    """fn(task, shared) that also stores its result as soon as it is finished (picklable for workers)."""
-    fn: Callable
-    directory: str
-    result_type: type
-    keys: dict                      # task_id -> key
-
-    def __call__(self, task, shared):
-        result = self.fn(task, shared)
-        TaskCache(self.directory, self.result_type).put(self.keys[task.task_id], result)
-        return result
-
-
 def task_keys(spec, data_hash: str, tasks) -> list[str]:
     prefixes = run_prefix(spec, data_hash)
     return [task_key(prefixes[t.family], t) for t in tasks]
@@ -256,9 +242,10 @@ def run_cached(run_tasks: Callable, fn: Callable, tasks: list, keys: list[str], 
         return run_tasks(fn, tasks, **options), 0
     found = [cache.get(k, t) for k, t in zip(keys, tasks)]
     todo = [i for i, r in enumerate(found) if r is None]
-    storing = StoringFit(fn, str(cache.directory), cache.result_type,
-                         {tasks[i].task_id: keys[i] for i in todo})
-    fresh = run_tasks(storing, [tasks[i] for i in todo], **options) if todo else []
+    # each result is stored here, in this process, as soon as it arrives (an interrupted run keeps it); workers,
+    # possibly on other machines, never write to the cache folder
+    fresh = run_tasks(fn, [tasks[i] for i in todo], on_result=lambda k, result: cache.put(keys[todo[k]], result),
+                      **options) if todo else []
     for i, r in zip(todo, fresh):
         found[i] = r
     return found, len(tasks) - len(todo)

@@ -327,7 +327,8 @@ BACKENDS: dict[str, Backend] = {b.name: b for b in (
 
 def run_tasks(fn: Callable, tasks: Sequence, *, backend: str = "local", n_jobs: int = 1,
               progress: str | None = None, scheduler_address: str | None = None,
-              shared: Any = None, log: list | None = None) -> list:
+              shared: Any = None, log: list | None = None,
+              on_result: Callable[[int, Any], None] | None = None) -> list:
     """fn(task) for every task (or fn(task, shared) when `shared` is given), results in task order.
 
     backend: "local" (loop in this process), "processes" (joblib loky, n_jobs workers) or
@@ -338,6 +339,7 @@ def run_tasks(fn: Callable, tasks: Sequence, *, backend: str = "local", n_jobs: 
     progress is a description. A failing task, or a worker that dies, gets one retry of the unfinished
     tasks; a second failure raises TaskFailed naming the task. What tasks print (solver banners) and the
     warnings they raise are captured; with `log`, each task's capture is appended to it as text.
+    `on_result(i, result)` is called in this process as task i's result arrives (e.g. to store it at once).
     """
     if backend not in BACKENDS:
         raise ValueError(f"backend must be one of {tuple(BACKENDS)}, got {backend!r}")
@@ -356,6 +358,8 @@ def run_tasks(fn: Callable, tasks: Sequence, *, backend: str = "local", n_jobs: 
                 stream = BACKENDS[backend].run(fn, todo, shared, use_shared, int(n_jobs), scheduler_address)
                 for index, result, output in stream:
                     results[index], done[index] = result, True
+                    if on_result is not None:
+                        on_result(index, result)
                     if output and log is not None:
                         log.append(f"task {index + 1} ({_short_repr(tasks[index])}):\n{output}")
                     bar.update(1)

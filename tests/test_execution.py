@@ -1,6 +1,7 @@
 """Task execution: order, seeding, errors, progress, and bit-identical results across backends."""
 from __future__ import annotations
 
+import os
 import time
 
 import numpy as np
@@ -236,3 +237,14 @@ def test_shared_file_gives_workers_the_same_bits_read_only(tmp_path):
             np.ascontiguousarray(b).tobytes(), key
     assert not loaded["X"].flags.writeable
     assert (loaded["csc"] != value["csc"]).nnz == 0 and loaded["names"] == value["names"] and loaded["n"] == 3
+
+
+@pytest.mark.parametrize("backend", ["local", "processes"])
+def test_each_result_reaches_this_process_as_it_arrives(backend):
+    # the cache stores results through this hook, so workers (possibly remote) never write to the cache folder
+    seen = []
+    out = run_tasks(_square, [3, 1, 2], backend=backend, n_jobs=2,
+                    on_result=lambda i, r: seen.append((i, r, os.getpid())))
+    assert out == [9, 1, 4]
+    assert sorted((i, r) for i, r, _ in seen) == [(0, 9), (1, 1), (2, 4)]
+    assert {pid for _, _, pid in seen} == {os.getpid()}

@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import os
 import re
+import shutil
 import signal
 import subprocess
 import sys
@@ -169,18 +170,18 @@ def _test_metrics(client, run_id):
 @pytest.mark.slow
 @pytest.mark.parametrize("sig", [signal.SIGKILL, signal.SIGINT])
 def test_killed_command_resumes_and_matches_uninterrupted(tmp_path, sig):
-    config = CONFIGS / "resume.yaml"
     store = f"sqlite:///{tmp_path / 'store.db'}"
-    fresh = tmp_path / "fresh"
-    fresh.mkdir()
+    fresh, work = tmp_path / "fresh", tmp_path / "work"
+    for folder in (fresh, work):    # the cache and reports live in the config file's folder: one copy each
+        folder.mkdir()
+        shutil.copy(CONFIGS / "resume.yaml", folder)
+    config = "resume.yaml"
     done = subprocess.run([sys.executable, "-m", "pipeline.cli", "run", str(config), "--quiet", "--tracking-uri",
                            f"sqlite:///{tmp_path / 'fresh.db'}"], cwd=fresh, capture_output=True, text=True)
     assert done.returncode == 0, done.stderr
 
     reference_id = re.search(r"run id: ([0-9a-f]{32})", done.stdout).group(1)
 
-    work = tmp_path / "work"
-    work.mkdir()
     proc = _start(config, work, store)
     finished_before = _kill_after_entries(proc, work / ".penduel-cache", 6, sig)
     client = MlflowClient(tracking_uri=store)
