@@ -3,8 +3,10 @@ from __future__ import annotations
 
 import datetime as dt
 import json
+import multiprocessing
 import pathlib
 import re
+import sys
 import time
 from importlib import resources
 
@@ -15,7 +17,6 @@ from ..evaluate import METRICS, unit_text
 from ..evaluate.summary import paragraph
 from ..models.families import FAMILIES, compared_pair, get_family
 from ..selection import RULE_TABLE
-from . import plots
 from .payload import build_payload, upgrade_payload
 
 
@@ -61,6 +62,8 @@ def _problems(f) -> str:
 
 
 def _loss_blocks(p) -> list[dict]:
+    from . import plots   # matplotlib is loaded only by the process that draws
+
     by_loss: dict[str, list] = {}
     for f in p["families"]:
         by_loss.setdefault(f["loss_label"], []).append(f)
@@ -116,6 +119,7 @@ def _certificate_row(f) -> dict:
 def _stability_block(stab) -> dict | None:
     if not stab:
         return None
+    from . import plots
     rows = []
     for family in FAMILIES:
         s = (stab.get("families") or {}).get(family.key)
@@ -280,3 +284,48 @@ def write_report(result, run_id: str, reports: pathlib.Path, started: float | No
     path = write_payload_report(payload, run_id, reports, started if started is not None else
                                 time.perf_counter() - result.seconds)
     return path, payload["seconds"]
+
+
+def _draw_to_pipe(send, *args) -> None:
+    try:
+        path, wall = write_report(*args)
+        send.send(("written", (str(path), wall)))
+    except BaseException as exc:   # reported to the parent, which draws the report again itself
+        send.send(("failed", f"{type(exc).__name__}: {exc}"))
+
+
+class ReportDrawing:
+    """The report of an execution, drawn in a forked child process while the caller writes the tracking store:
+    the figures are most of the report's time and need nothing from the store, and the fit stage's cores are
+    idle by then. Where the platform does not fork, or the child fails, `result()` draws it in this process
+    (so a failure is raised here as it would have been)."""
+
+    def __init__(self, result, run_id: str, reports: pathlib.Path, started: float | None = None):
+        self.args, self.child = (result, run_id, reports, started), None
+        if sys.platform.startswith("linux"):   # fork is safe here; macOS and Windows draw in-process
+            ctx = multiprocessing.get_context("fork")
+            self.receive, send = ctx.Pipe(duplex=False)
+            self.child = ctx.Process(target=_draw_to_pipe, args=(send, *self.args), daemon=True,
+                                     name="penduel-report")
+            self.child.start()
+            send.close()
+
+    def result(self) -> tuple[pathlib.Path, float]:
+        """(report path, wall seconds from `started` to the report written), as `write_report` returns."""
+        if self.child is not None:
+            try:
+                status, value = self.receive.recv()
+            except EOFError:   # the child ended without a word (killed)
+                status, value = "failed", None
+            self.cancel()
+            if status == "written":
+                return pathlib.Path(value[0]), value[1]
+        return write_report(*self.args)
+
+    def cancel(self) -> None:
+        if self.child is not None:
+            if self.child.is_alive():
+                self.child.terminate()
+            self.child.join()
+            self.receive.close()
+            self.child = None
