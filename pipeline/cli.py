@@ -77,7 +77,7 @@ def _summary_table(result) -> str:
 
 def cmd_run(args) -> int:
     from .preflight import anchored
-    from .report import ReportDrawing
+    from .report.drawing import ReportDrawing
     from .runner import run_experiment
     from .tracking import ExecutionLog
 
