@@ -77,7 +77,7 @@ def _summary_table(result) -> str:
 
 def cmd_run(args) -> int:
     from .preflight import anchored
-    from .report import write_report
+    from .report.drawing import ReportDrawing
     from .runner import run_experiment
     from .tracking import ExecutionLog
 
@@ -94,10 +94,13 @@ def cmd_run(args) -> int:
     with ExecutionLog(spec, uri) as log:
         status(f"tracking run {log.run_id} opened")
         result = run_experiment(spec, base_dir, progress=not args.quiet, inputs=inputs)
-        status("fits done; logging runs to the tracking store")
-        log.log_results(result)
-        status("writing the report")
-        path, wall = write_report(result, log.run_id, anchored(spec.report.directory, base_dir), started)
+        status("fits done; drawing the report while logging runs to the tracking store")
+        report = ReportDrawing(result, log.run_id, anchored(spec.report.directory, base_dir), started)
+        try:
+            log.log_results(result)
+            path, wall = report.result()
+        finally:
+            report.cancel()
         log.log_report(path)
         log.log_wall_time(wall, result)
     for note in result.notes:

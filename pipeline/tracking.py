@@ -32,7 +32,6 @@ from mlflow.tracking import MlflowClient  # noqa: E402
 
 from .losses_weighted import weights_label  # noqa: E402
 from .models.families import get_family  # noqa: E402
-from .serving import log_model  # noqa: E402
 from .store import artifact_location, ensure_store, spreadsheet_safe  # noqa: E402
 
 EXPERIMENT_KIND = ("mlflow.experimentKind", "custom_model_development")   # mlflow's tag for model training
@@ -178,7 +177,8 @@ class ExecutionLog:
             exp = self.client.get_experiment_by_name(self.experiment_name)
             exp_id = exp.experiment_id if exp else self.client.create_experiment(
                 self.experiment_name, artifact_location=artifact_location(self.uri))
-            self.client.set_experiment_tag(exp_id, *EXPERIMENT_KIND)   # the UI opens on the runs table
+            if not exp or exp.tags.get(EXPERIMENT_KIND[0]) != EXPERIMENT_KIND[1]:   # the UI opens on the runs table
+                self.client.set_experiment_tag(exp_id, *EXPERIMENT_KIND)
         self.abandoned_runs = mark_abandoned_runs(self.client, exp_id, self.spec.config_hash())
         self.experiment_id = exp_id
         tags = {"penduel.config_hash": self.spec.config_hash(), "penduel.kind": "execution",
@@ -237,10 +237,14 @@ class ExecutionLog:
             tags=[RunTag("penduel.data_hash", result.data_hash)])
         if getattr(result, "solver_output", ()):   # solver banners and warnings, kept off the terminal
             self.client.log_text(self.run_id, "\n\n".join(result.solver_output), "solver_output.txt")
-        for r in result.results:
-            self._log_child(result, r)
+        from .serving import ModelWriter   # scikit-learn and mlflow's model format: loaded once fitting is done
 
-    def _log_child(self, result, r) -> None:
+        with tempfile.TemporaryDirectory() as tmp:   # the stored models' shared mlflow-written folders
+            writer = ModelWriter(pathlib.Path(tmp))
+            for r in result.results:
+                self._log_child(result, r, writer)
+
+    def _log_child(self, result, r, writer) -> None:
         c = self.client
         name = f"{r.family}-{r.loss_label}"
         tags = {"mlflow.parentRunId": self.run_id, "penduel.kind": "fit", "penduel.shared_artifacts":
@@ -287,8 +291,6 @@ class ExecutionLog:
                     Metric("n_not_converged", float((~r.path.converged).sum()), ts, 0)]
         stability_metrics, files = self._stability(result, r)
         metrics += stability_metrics
-        for start in range(0, len(metrics), 900):   # mlflow caps a batch at 1000 entries
-            c.log_batch(rid, metrics=metrics[start:start + 900], params=params if start == 0 else [])
         if r.coefficients is not None and np.ndim(r.coefficients) == 2:   # one column per class
             files["coefficients.csv"] = pd.DataFrame(
                 {"feature": list(result.feature_names),
@@ -303,7 +305,11 @@ class ExecutionLog:
         cv["status"] = list(r.path.status)
         files["cv_table.csv"] = cv
         self._log_files(rid, files)
-        log_model(self.client, rid, result, r, result.spec.tracking.register_as)   # pipeline.serving
+        model_tags = writer.log(c, rid, result, r, result.spec.tracking.register_as)
+        tags = [RunTag(k, v) for k, v in model_tags.items()]
+        for start in range(0, max(len(metrics), 1), 900):   # mlflow caps a batch at 1000 entries
+            c.log_batch(rid, metrics=metrics[start:start + 900], params=params if start == 0 else [],
+                        tags=tags if start == 0 else [])
 
     @staticmethod
     def _stability(result, r) -> tuple[list, dict]:

@@ -15,7 +15,7 @@ from ..evaluate import METRICS, unit_text
 from ..evaluate.summary import paragraph
 from ..models.families import FAMILIES, compared_pair, get_family
 from ..selection import RULE_TABLE
-from . import plots
+from .drawing import draw_figures
 from .payload import build_payload, upgrade_payload
 
 
@@ -60,13 +60,37 @@ def _problems(f) -> str:
     return "; ".join(bad[:8]) + (f" (and {len(bad) - 8} more)" if len(bad) > 8 else "")
 
 
-def _loss_blocks(p) -> list[dict]:
+def _by_loss(p) -> dict[str, list]:
     by_loss: dict[str, list] = {}
     for f in p["families"]:
         by_loss.setdefault(f["loss_label"], []).append(f)
+    return by_loss
+
+
+def _support_family(fams):
+    return next((f for f in fams if get_family(f["family"]).has_support), None)   # the support-selecting family
+
+
+def figures_wanted(p) -> list[tuple[tuple[str, str], str, tuple]]:
+    """Every figure of the report: ((slot, loss label), `plots` function, its arguments), in page order."""
+    out = []
+    for label, fams in _by_loss(p).items():
+        l1 = _support_family(fams)
+        out += [(("cv_plot", label), "cv_curves", (fams, label)), (("df_plot", label), "error_vs_df", (fams, label))]
+        if l1 and l1["coef_path"] and l1["coef_path"]["names"]:
+            out.append((("path_plot", label), "coefficient_path", (l1,)))
+        stab = p.get("stability", {}).get(label) or {}
+        if stab.get("l1_paths"):
+            out.append((("paths_plot", label), "stability_paths", (stab,)))
+        if stab.get("frequency"):
+            out.append((("freq_plot", label), "selection_frequency", (stab,)))
+    return out
+
+
+def _loss_blocks(p, figures) -> list[dict]:
     blocks = []
-    for label, fams in by_loss.items():
-        l1 = next((f for f in fams if get_family(f["family"]).has_support), None)   # the support-selecting family
+    for label, fams in _by_loss(p).items():
+        l1 = _support_family(fams)
         names = sorted({k for f in fams for k in f["metrics"]})
         blocks.append({
             "loss": label, "families": [f["title"] for f in fams],
@@ -74,15 +98,15 @@ def _loss_blocks(p) -> list[dict]:
                              "decides": m == (p.get("decisions") or {}).get(label, {}).get("metric"),
                              "cells": [_with_interval(f, m) if m in f["metrics"] else "—" for f in fams]}
                             for m in names],
-            "cv_plot": plots.cv_curves(fams, label), "df_plot": plots.error_vs_df(fams, label),
-            "path_plot": plots.coefficient_path(l1) if l1 and l1["coef_path"] and l1["coef_path"]["names"] else None,
+            "cv_plot": figures[("cv_plot", label)], "df_plot": figures[("df_plot", label)],
+            "path_plot": figures.get(("path_plot", label)),
             "top_features": [(n, _g(c)) for n, c in l1["top_features"]] if l1 else [],
             "truth": None if not (l1 and l1["truth"]) else {k: (_g(v, 3) if isinstance(v, float) or v is None else v)
                                                           for k, v in l1["truth"].items()},
             "problems": "; ".join(x for x in (_problems(f) for f in fams) if x),
             "truth_rows": [_truth_row(f) for f in fams if f.get("truth")],
             "certificates": [_certificate_row(f) for f in fams if f.get("certificate")],
-            "stability": _stability_block(p.get("stability", {}).get(label)),
+            "stability": _stability_block(p.get("stability", {}).get(label), figures, label),
             "df_kinds": [(f["title"], f["df_kind"]) for f in fams if f.get("df_kind")],
             "confusions": [_confusion(f, p.get("class_labels") or []) for f in fams if f.get("confusion")],
             "several_classes": p.get("several_classes", "")})
@@ -113,7 +137,7 @@ def _certificate_row(f) -> dict:
             "ok": f"{sum(f['converged'])} of {len(f['converged'])}"}
 
 
-def _stability_block(stab) -> dict | None:
+def _stability_block(stab, figures, label) -> dict | None:
     if not stab:
         return None
     rows = []
@@ -134,8 +158,8 @@ def _stability_block(stab) -> dict | None:
     return {"rows": rows, "scheme": stab["scheme"].replace("_", " "), "n": stab["n_resamples"],
             "fraction": stab["fraction"], "threshold": stab["threshold"],
             "group_correlation": stab.get("group_correlation", 0.9),
-            "paths_plot": plots.stability_paths(stab) if stab.get("l1_paths") else None,
-            "freq_plot": plots.selection_frequency(stab) if stab.get("frequency") else None,
+            "paths_plot": figures.get(("paths_plot", label)),
+            "freq_plot": figures.get(("freq_plot", label)),
             "freq_families": " and ".join(f.title for f in shown) if len(shown) > 1 else
             (f"{shown[0].title} only" if shown else ""),
             "not_applicable": [f"{get_family(k).title}: {v}" for k, v in (stab.get("not_applicable") or {}).items()],
@@ -241,7 +265,7 @@ def render(p: dict, run_id: str) -> str:
         unit=p.get("unit"), sources=p["interval_sources"],
         n_test=p["n_test"], n_rows=p["n_rows"], n_boot=p["n_boot"],
         rule_text=_rule_phrase(p["rule"]), verdicts=verdicts, difference=difference_label(),
-        family_titles=[f.title[:1].upper() + f.title[1:] for f in FAMILIES], summary=summary, loss_blocks=_loss_blocks(p),
+        family_titles=[f.title[:1].upper() + f.title[1:] for f in FAMILIES], summary=summary, loss_blocks=_loss_blocks(p, draw_figures(figures_wanted(p))),
         n_folds=p["n_folds"], data_rows=data_rows, notes=p["notes"],
         config_yaml=yaml.safe_dump(p["config"], sort_keys=False, allow_unicode=True),
         versions=", ".join(f"{k} {v}" for k, v in p["versions"].items()), version=p["versions"]["penduel"], css=css)
@@ -280,3 +304,4 @@ def write_report(result, run_id: str, reports: pathlib.Path, started: float | No
     path = write_payload_report(payload, run_id, reports, started if started is not None else
                                 time.perf_counter() - result.seconds)
     return path, payload["seconds"]
+
