@@ -72,7 +72,10 @@ def penduel(args, cwd) -> tuple[int, str, str]:
 
     args = [str(a) for a in args]
     if args[0] == "run" and "--tracking-uri" not in args:
-        args += ["--tracking-uri", f"sqlite:///{pathlib.Path(cwd).resolve() / 'mlflow.db'}"]
+        db = pathlib.Path(cwd).resolve() / "mlflow.db"
+        if not db.exists():      # a new store starts as a copy of one made once (see empty_store)
+            shutil.copyfile(empty_store(), db)
+        args += ["--tracking-uri", f"sqlite:///{db}"]
     out, err = io.StringIO(), io.StringIO()
     old = os.getcwd()
     os.chdir(cwd)
@@ -82,6 +85,22 @@ def penduel(args, cwd) -> tuple[int, str, str]:
     finally:
         os.chdir(old)
     return code, out.getvalue(), err.getvalue()
+
+
+_EMPTY_STORE: list = []
+
+
+def empty_store() -> pathlib.Path:
+    """A new, empty SQLite store made once per session by penduel's own creation (pipeline.store.ensure_store:
+    every schema migration, about 1.5 s). In-process runs in a fresh folder start from a copy of it; store
+    creation itself, repair and interrupted creation are tested where a test makes its own store."""
+    if not _EMPTY_STORE:
+        from pipeline.store import ensure_store
+
+        path = scratch_dir("penduel-empty-store-") / "mlflow.db"
+        ensure_store(f"sqlite:///{path}")
+        _EMPTY_STORE.append(path)
+    return _EMPTY_STORE[0]
 
 
 def without_written_time(html: str) -> str:
@@ -154,7 +173,7 @@ class _Server:
         if self.proc.poll() is None:
             os.killpg(self.proc.pid, signal.SIGTERM)      # the server's workers share its process group
             try:
-                self.proc.wait(timeout=20)
+                self.proc.wait(timeout=2)     # a graceful stop takes the server ~5 s; nothing is left to save
             except subprocess.TimeoutExpired:
                 os.killpg(self.proc.pid, signal.SIGKILL)
                 self.proc.wait()

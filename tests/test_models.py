@@ -172,9 +172,9 @@ def test_predict_refuses_bad_rows_with_exit_2(lots, case, needle):
             "run": lambda: raw_lines(cwd, range(5), "r.csv"),
             "suffix": lambda: cwd / "lots.yaml"}[case]()
     run_id = "0" * 32 if case == "run" else lots["run_id"]
-    done = run_cli(["predict", run_id, "--data", data, "--tracking-uri", lots["uri"]], cwd)
-    assert done.returncode == 2, done.stderr
-    assert needle in " ".join(done.stderr.split()) and "Traceback" not in done.stderr, done.stderr
+    code, _, err = penduel(["predict", run_id, "--data", data, "--tracking-uri", lots["uri"]], cwd)
+    assert code == 2, err
+    assert needle in " ".join(err.split()) and "Traceback" not in err, err
 
 
 def test_unseen_level_as_reference_when_asked(lots):

@@ -4,6 +4,7 @@ registration that flows through `penduel validate` and `penduel run`.
 The toy entries are registered in a subprocess the test starts, so the global tables of this
 test session stay as shipped.
 """
+import shutil
 import subprocess
 import sys
 import textwrap
@@ -18,7 +19,7 @@ from pipeline.features import MAPS
 from pipeline.kernels import KERNELS
 from pipeline.losses import LOSSES, all_loss_params, loss_names
 
-from .conftest import ROOT
+from .conftest import ROOT, empty_store
 
 
 def _choices(model, field):
@@ -154,6 +155,7 @@ def test_toy_kernel_is_one_registration_and_validates(tmp_path):
 
 def test_toy_loss_and_kernel_run_end_to_end(tmp_path):
     path = _config(tmp_path, losses="{name: scaled_squared, weight: 3}", kernel="rational_quadratic")
+    shutil.copyfile(empty_store(), tmp_path / "mlflow.db")    # the store the config names, made once per session
     check = textwrap.dedent(TOY_LOSS) + textwrap.dedent(TOY_KERNEL) + textwrap.dedent("""
         from pipeline.config import L2Spec
         # bandwidth is a setting the kernel takes; alpha is not a setting, so the kernel's default holds

@@ -331,11 +331,14 @@ def _stored(folder, run_id):
     return client.get_run(run_id), children_of(client, run_id)
 
 
-def _run(cli, folder, config: str):
+def _run(folder, config: str):
+    """`penduel run` in this process (the command line's own entry point; imports paid once per session)."""
+    from .conftest import penduel
+
     (folder / "experiment.yaml").write_text(config, encoding="utf-8")
-    out = cli(["run", "experiment.yaml"], cwd=folder)
-    assert out.returncode == 0, out.stderr[-3000:]
-    run_id = out.stdout.strip().splitlines()[-1].split()[-1]
+    code, out, err = penduel(["run", "experiment.yaml", "--tracking-uri", f"sqlite:///{folder / 'store.db'}"], folder)
+    assert code == 0, err[-3000:]
+    run_id = out.strip().splitlines()[-1].split()[-1]
     html = next(folder.glob(f"reports/*/{run_id}/index.html")).read_text(encoding="utf-8")
     return run_id, " ".join(html.replace("&#39;", "'").split())
 
@@ -344,13 +347,13 @@ COMMON = ("families: {l1: {path: {points: 5}%s}, l2: {path: {points: 5}%s}}\nsel
           "tracking: {uri: 'sqlite:///store.db'}\n")
 
 
-def test_data_weights_through_penduel_run(cli, tmp_path):
+def test_data_weights_through_penduel_run(tmp_path):
     """data.weights with weighted metrics: every fit (folds, refit, 4 stability resamples) weighted; the
     report and the tracking store say so."""
     _cli_files(tmp_path)
     config = ("name: weighted\ndata: {kind: csv, path: data.csv, target: y, weights: w}\nlosses: [absolute]\n"
               "stability: {n_resamples: 4}\nverdict: {weighted_metrics: true}\n" + COMMON % ("", ""))
-    run_id, html = _run(cli, tmp_path, config)
+    run_id, html = _run(tmp_path, config)
     assert "Row weights used in fitting" in html and "sparse (L1): column 'w'; ridge-type (L2): column 'w'" in html
     assert "Held-out metrics, their intervals and the paired comparison are weighted" in html
     parent, children = _stored(tmp_path, run_id)
@@ -361,11 +364,11 @@ def test_data_weights_through_penduel_run(cli, tmp_path):
 
 
 @pytest.mark.slow
-def test_class_weight_balanced_through_penduel_run(cli, tmp_path):
+def test_class_weight_balanced_through_penduel_run(tmp_path):
     _cli_files(tmp_path)
     config = ("name: balanced\ndata: {kind: csv, path: cls.csv, target: label}\nlosses: [hinge]\n"
               "stability: {enabled: false}\n" + COMMON % (", class_weight: balanced", ""))
-    run_id, html = _run(cli, tmp_path, config)
+    run_id, html = _run(tmp_path, config)
     assert "sparse (L1): balanced; ridge-type (L2): none" in html
     assert "Held-out metrics are unweighted" in html
     _, children = _stored(tmp_path, run_id)
