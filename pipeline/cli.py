@@ -342,6 +342,9 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     warnings.filterwarnings("ignore", category=FutureWarning)
     os.environ.setdefault("PYTHONWARNINGS", "ignore::FutureWarning")
+    # the tracking library's usage reports go to its makers' servers: a local store sends nothing unless the
+    # user sets MLFLOW_DISABLE_TELEMETRY=false (the library's own switch; its UI server inherits it)
+    os.environ.setdefault("MLFLOW_DISABLE_TELEMETRY", "true")
     args = build_parser().parse_args(argv)
     # SIGTERM (e.g. a job scheduler's stop) closes the run as KILLED, like Ctrl-C.
     with _sigterm_as_interrupt():

@@ -398,3 +398,14 @@ def test_polynomial_terms_keep_names_with_spaces_readable():
     X = np.random.default_rng(0).standard_normal((10, 2))
     names = PolynomialTerms(2).fit(X).get_feature_names_out(["net income", "a"])
     assert names == ["(net income)^2", "(net income)×a", "a^2"]
+
+
+def test_tracking_library_usage_reports_are_off_unless_the_user_chose(monkeypatch):
+    from pipeline.cli import main
+
+    monkeypatch.delenv("MLFLOW_DISABLE_TELEMETRY", raising=False)
+    assert main(["scenarios"]) == 0
+    assert os.environ["MLFLOW_DISABLE_TELEMETRY"] == "true"
+    monkeypatch.setenv("MLFLOW_DISABLE_TELEMETRY", "false")     # the user's own setting stands
+    assert main(["scenarios"]) == 0
+    assert os.environ["MLFLOW_DISABLE_TELEMETRY"] == "false"
