@@ -4,7 +4,7 @@ An entry's key is a SHA-256 over everything that decides the task's result: the 
 sections that reach the fit (data, split, features, the task's family settings, CV folds,
 seed), the data hash, the task id and its row/λ arrays, and the package version. The value
 is one ``.npz`` file holding the result's arrays (a mostly-zero one as the positions and values of
-its nonzero entries, `fitting.PackedZeros`) plus its other fields as JSON text; it is
+its nonzero entries, `matrices.PackedZeros`) plus its other fields as JSON text; it is
 read back with ``allow_pickle=False``, so no cache file is ever unpickled. Each entry is
 written to a temporary name and renamed into place, so a kill mid-write leaves no torn entry.
 
@@ -27,8 +27,7 @@ from typing import Any, Callable
 
 import numpy as np
 
-from .fitting import PackedZeros, pack_zeros
-from .matrices import from_parts, is_sparse, to_parts
+from .matrices import PackedZeros, from_parts, is_sparse, pack_zeros, to_parts
 from .models.families import KEYS
 
 CACHE_FORMAT = 3      # 3: mostly-zero arrays stored packed (positions and values)

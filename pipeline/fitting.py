@@ -13,7 +13,7 @@ import numpy as np
 
 from .losses import get_loss
 from .losses_weighted import class_balance, weighted
-from .matrices import is_sparse
+from .matrices import PackedZeros, is_sparse, pack_zeros
 from .models.families import get_family
 from .models.multiclass import ClassFits, for_classes, output_scale, path_losses
 
@@ -47,43 +47,6 @@ class FitTask:
     @property
     def task_id(self) -> str:
         return f"{self.loss_label}/{self.family}/{self.split}"
-
-
-# An array is sent packed (PackedZeros) when at most this share of its entries is nonzero and it has at
-# least PACK_MIN_ENTRIES entries: a resample fit's (L, p) weights are mostly exact zeros
-PACK_SHARE, PACK_MIN_ENTRIES = 0.25, 1024
-
-
-@dataclass(frozen=True)
-class PackedZeros:
-    """A float64 array as the positions (flat, C order) and values of its entries whose bits are not all zero:
-    −0.0 and NaN are kept as entries, so `unpacked()` gives back the same bits."""
-    shape: tuple
-    positions: np.ndarray
-    values: np.ndarray
-
-    def unpacked(self) -> np.ndarray:
-        """The dense array; ValueError when the parts do not fit together (e.g. a damaged cache entry)."""
-        size = int(np.prod(self.shape))
-        pos, values = np.asarray(self.positions), np.asarray(self.values)
-        if pos.ndim != 1 or pos.dtype.kind not in "iu" or values.shape != pos.shape or values.dtype != np.float64 \
-                or (pos.size and (int(pos.min()) < 0 or int(pos.max()) >= size)):
-            raise ValueError(f"packed array parts do not fit its shape {self.shape}")
-        out = np.zeros(self.shape)
-        out.reshape(-1)[self.positions] = self.values
-        return out
-
-
-def pack_zeros(a):
-    """`a` as PackedZeros when that is much smaller (see PACK_SHARE), else `a` unchanged."""
-    if not isinstance(a, np.ndarray) or a.dtype != np.float64 or a.size < PACK_MIN_ENTRIES:
-        return a
-    flat = np.ascontiguousarray(a).reshape(-1)
-    positions = np.flatnonzero(flat.view(np.uint64))
-    if positions.size > PACK_SHARE * flat.size:
-        return a
-    return PackedZeros(tuple(a.shape), positions.astype(np.int32 if flat.size < 2**31 else np.int64),
-                       flat[positions])
 
 
 def _unpickled_outcome(values: dict) -> "FitOutcome":

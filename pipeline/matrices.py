@@ -1,11 +1,14 @@
 """A feature matrix is a dense float array or a scipy sparse CSC matrix; these helpers let every stage take
 either without densifying a sparse one: its stored size, dense column slices (a working set), column
-reductions, and its parts as plain arrays (for stored models and hashes).
+reductions, and its parts as plain arrays (for stored models and hashes). A mostly-zero dense array can
+also travel as its nonzero positions and values (PackedZeros: worker results, cache entries).
 
 Sparse matrices stay in CSC form: a working set is a slice of columns, and Xᵀu is one pass over the
 stored entries.
 """
 from __future__ import annotations
+
+from dataclasses import dataclass
 
 import numpy as np
 import scipy.sparse as sp
@@ -90,3 +93,40 @@ def from_parts(name: str, arrays) -> "np.ndarray | sp.csc_matrix | None":
         return None
     return sp.csc_matrix((arrays[f"{name}_data"], arrays[f"{name}_indices"], arrays[f"{name}_indptr"]),
                          shape=tuple(int(s) for s in arrays[f"{name}_shape"]))
+
+
+# An array is sent packed (PackedZeros) when at most this share of its entries is nonzero and it has at
+# least PACK_MIN_ENTRIES entries: a resample fit's (L, p) weights are mostly exact zeros
+PACK_SHARE, PACK_MIN_ENTRIES = 0.25, 1024
+
+
+@dataclass(frozen=True)
+class PackedZeros:
+    """A float64 array as the positions (flat, C order) and values of its entries whose bits are not all zero:
+    −0.0 and NaN are kept as entries, so `unpacked()` gives back the same bits."""
+    shape: tuple
+    positions: np.ndarray
+    values: np.ndarray
+
+    def unpacked(self) -> np.ndarray:
+        """The dense array; ValueError when the parts do not fit together (e.g. a damaged cache entry)."""
+        size = int(np.prod(self.shape))
+        pos, values = np.asarray(self.positions), np.asarray(self.values)
+        if pos.ndim != 1 or pos.dtype.kind not in "iu" or values.shape != pos.shape or values.dtype != np.float64 \
+                or (pos.size and (int(pos.min()) < 0 or int(pos.max()) >= size)):
+            raise ValueError(f"packed array parts do not fit its shape {self.shape}")
+        out = np.zeros(self.shape)
+        out.reshape(-1)[self.positions] = self.values
+        return out
+
+
+def pack_zeros(a):
+    """`a` as PackedZeros when that is much smaller (see PACK_SHARE), else `a` unchanged."""
+    if not isinstance(a, np.ndarray) or a.dtype != np.float64 or a.size < PACK_MIN_ENTRIES:
+        return a
+    flat = np.ascontiguousarray(a).reshape(-1)
+    positions = np.flatnonzero(flat.view(np.uint64))
+    if positions.size > PACK_SHARE * flat.size:
+        return a
+    return PackedZeros(tuple(a.shape), positions.astype(np.int32 if flat.size < 2**31 else np.int64),
+                       flat[positions])

@@ -189,7 +189,7 @@ def _same_bits(a, b) -> bool:
 
 def test_outcomes_travel_packed_and_arrive_bit_for_bit():
     # a worker's result is pickled on its way back: mostly-zero weights go as positions and values
-    # (fitting.PackedZeros) and come back as the same dense array, bit for bit (−0.0 and NaN included)
+    # (matrices.PackedZeros) and come back as the same dense array, bit for bit (−0.0 and NaN included)
     import pickle
 
     sparse = _mostly_zero_outcome()
@@ -202,7 +202,7 @@ def test_outcomes_travel_packed_and_arrive_bit_for_bit():
 
 
 def test_packed_parts_that_do_not_fit_are_refused():
-    from pipeline.fitting import PackedZeros
+    from pipeline.matrices import PackedZeros
 
     with pytest.raises(ValueError, match="do not fit"):
         PackedZeros((2, 3), np.array([0, 6]), np.array([1.0, 2.0])).unpacked()
