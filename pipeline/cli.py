@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import argparse
+import atexit
 import contextlib
 import os
 import pathlib
@@ -339,6 +340,34 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def console() -> None:
+    """The `penduel` command. Once the verb is done and Python's exit handlers have run (threads joined, worker
+    pools stopped, temporary folders removed, logs flushed), the process ends without the interpreter's teardown
+    of every loaded module: about a second once the tracking, plotting and solver libraries are loaded, and of
+    no use at the end of a command."""
+    status = [1]
+    atexit.register(_end_now, status)   # the first handler registered is the last to run
+    try:
+        status[0] = main()
+    except SystemExit as exc:   # argparse's --help and usage errors
+        status[0] = 0 if exc.code is None else exc.code if isinstance(exc.code, int) else 1
+        raise
+    except KeyboardInterrupt:
+        status[0] = 130
+        raise
+    sys.exit(status[0])
+
+
+def _end_now(status: list) -> None:
+    import logging
+
+    logging.shutdown()
+    for stream in (sys.stdout, sys.stderr):
+        with contextlib.suppress(Exception):   # a closed pipe: nothing left to say
+            stream.flush()
+    os._exit(status[0])
+
+
 def main(argv: list[str] | None = None) -> int:
     warnings.filterwarnings("ignore", category=FutureWarning)
     os.environ.setdefault("PYTHONWARNINGS", "ignore::FutureWarning")
@@ -388,4 +417,4 @@ def _dispatch(args) -> int:
 
 
 if __name__ == "__main__":
-    raise SystemExit(main())
+    console()

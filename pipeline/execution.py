@@ -5,6 +5,7 @@ thread, so a result is bit-identical whichever backend or worker computed it.
 """
 from __future__ import annotations
 
+import atexit
 import contextlib
 import io
 import logging
@@ -76,6 +77,28 @@ def _watch_parent(parent_pid: int) -> None:
         os._exit(1)
 
     threading.Thread(target=watch, name="penduel-parent-watch", daemon=True).start()
+
+
+def _start_loky_worker(parent_pid: int) -> None:
+    """A joblib (loky) worker's initializer: watch the parent, and leave quickly when the pool stops it. A worker
+    ends only when its pool stops it (or sits idle too long), after its last result was sent; tearing down
+    its loaded libraries one object at a time would cost about half a second, which `penduel run` waits for
+    at its own exit. The exit handlers registered after this one (by what the tasks loaded) still run first."""
+    _watch_parent(parent_pid)
+    if not _LEAVING_QUICKLY:
+        _LEAVING_QUICKLY.append(True)
+        atexit.register(_leave_worker)
+
+
+_LEAVING_QUICKLY: list = []
+
+
+def _leave_worker() -> None:
+    logging.shutdown()
+    for stream in (sys.stdout, sys.stderr):
+        with contextlib.suppress(Exception):
+            stream.flush()
+    os._exit(0)
 
 
 @contextlib.contextmanager
@@ -238,7 +261,7 @@ def _run_processes(fn, tasks, shared, use_shared, n_jobs, address) -> Iterator[t
             folder = stack.enter_context(tempfile.TemporaryDirectory(
                 prefix="penduel-shared-", dir="/dev/shm" if os.access("/dev/shm", os.W_OK) else None))
             shared = SharedFile.write(shared, folder)
-        stack.enter_context(parallel_config(backend="loky", inner_max_num_threads=1, initializer=_watch_parent,
+        stack.enter_context(parallel_config(backend="loky", inner_max_num_threads=1, initializer=_start_loky_worker,
                                             initargs=(os.getpid(),)))
         parallel = Parallel(n_jobs=n_jobs, return_as="generator_unordered")
         yield from parallel(delayed(_call)(fn, i, t, shared, use_shared, os.getpid()) for i, t in tasks)
