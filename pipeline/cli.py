@@ -3,26 +3,18 @@ from __future__ import annotations
 
 import argparse
 import atexit
-import contextlib
 import os
 import pathlib
-import signal
 import sys
 import textwrap
 import time
 import warnings
 
+from .processes import Terminated, leave_now, sigterm_as_interrupt
+
 # Verbs import what they use inside their functions, so `penduel --help` and `penduel validate` load
 # neither the tracking library nor the plotting or solver libraries (tests/test_imports.py checks).
 EXIT_USER_ERROR = 2
-
-
-class Terminated(KeyboardInterrupt):
-    """SIGTERM: handled like Ctrl-C (the run is marked KILLED) but exits with 128 + 15."""
-
-
-def _interrupt(signum, frame):
-    raise Terminated
 
 
 def _fail(message: str) -> int:
@@ -220,7 +212,7 @@ def cmd_ui(args) -> int:
     except KeyboardInterrupt as exc:
         return 143 if isinstance(exc, Terminated) else 0
     finally:
-        from .execution import stop_group
+        from .processes import stop_group
 
         stop_group(server)
 
@@ -346,7 +338,7 @@ def console() -> None:
     of every loaded module: about a second once the tracking, plotting and solver libraries are loaded, and of
     no use at the end of a command."""
     status = [1]
-    atexit.register(_end_now, status)   # the first handler registered is the last to run
+    atexit.register(lambda: leave_now(status[0]))   # the first handler registered is the last to run
     try:
         status[0] = main()
     except SystemExit as exc:   # argparse's --help and usage errors
@@ -358,16 +350,6 @@ def console() -> None:
     sys.exit(status[0])
 
 
-def _end_now(status: list) -> None:
-    import logging
-
-    logging.shutdown()
-    for stream in (sys.stdout, sys.stderr):
-        with contextlib.suppress(Exception):   # a closed pipe: nothing left to say
-            stream.flush()
-    os._exit(status[0])
-
-
 def main(argv: list[str] | None = None) -> int:
     warnings.filterwarnings("ignore", category=FutureWarning)
     os.environ.setdefault("PYTHONWARNINGS", "ignore::FutureWarning")
@@ -376,21 +358,8 @@ def main(argv: list[str] | None = None) -> int:
     os.environ.setdefault("MLFLOW_DISABLE_TELEMETRY", "true")
     args = build_parser().parse_args(argv)
     # SIGTERM (e.g. a job scheduler's stop) closes the run as KILLED, like Ctrl-C.
-    with _sigterm_as_interrupt():
+    with sigterm_as_interrupt():
         return _dispatch(args)
-
-
-@contextlib.contextmanager
-def _sigterm_as_interrupt():
-    try:
-        previous = signal.signal(signal.SIGTERM, _interrupt)
-    except ValueError:   # not the main thread: signals cannot be handled here
-        yield
-        return
-    try:
-        yield
-    finally:
-        signal.signal(signal.SIGTERM, previous)
 
 
 def _dispatch(args) -> int:

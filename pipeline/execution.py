@@ -5,17 +5,13 @@ thread, so a result is bit-identical whichever backend or worker computed it.
 """
 from __future__ import annotations
 
-import atexit
 import contextlib
 import io
 import logging
 import os
 import pickle
-import signal
 import sys
 import tempfile
-import threading
-import time
 import traceback
 import warnings
 from dataclasses import dataclass
@@ -25,6 +21,8 @@ import numpy as np
 import scipy.linalg  # noqa: F401  load SciPy's BLAS now so the per-task thread limit covers it
 from threadpoolctl import ThreadpoolController
 from tqdm import tqdm
+
+from .processes import start_loky_worker, watch_parent
 
 class TaskFailed(RuntimeError):
     """A task raised (or its worker died); the message names the task and carries the worker's traceback."""
@@ -53,54 +51,6 @@ def _short_repr(task: Any, limit: int = 200) -> str:
 
 
 _THREADPOOLS: list = []   # one controller per process: building one scans the loaded libraries (~6 ms)
-_WATCHING: list = []
-
-
-def _watch_parent(parent_pid: int) -> None:
-    """In a worker process: end when the process that dispatched the task is gone (e.g. killed with -9), so
-    no worker outlives its run. Polls the parent id once a second on a daemon thread."""
-    if _WATCHING or os.getpid() == parent_pid:
-        return
-    if os.getppid() != parent_pid:
-        try:
-            os.kill(parent_pid, 0)
-        except ProcessLookupError:
-            os._exit(1)     # the run was killed while this worker was starting
-        except PermissionError:
-            pass
-        return              # not its direct child (a Dask nanny manages its own workers)
-    _WATCHING.append(parent_pid)
-
-    def watch():
-        while os.getppid() == parent_pid:
-            time.sleep(1.0)
-        os._exit(1)
-
-    threading.Thread(target=watch, name="penduel-parent-watch", daemon=True).start()
-
-
-def _start_loky_worker(parent_pid: int) -> None:
-    """A joblib (loky) worker's initializer: watch the parent, and leave quickly when the pool stops it. A worker
-    ends only when its pool stops it (or sits idle too long), after its last result was sent; tearing down
-    its loaded libraries one object at a time would cost about half a second, which `penduel run` waits for
-    at its own exit. The exit handlers registered after this one (by what the tasks loaded) still run first."""
-    _watch_parent(parent_pid)
-    if not _LEAVING_QUICKLY:
-        _LEAVING_QUICKLY.append(True)
-        atexit.register(_leave_worker)
-
-
-_LEAVING_QUICKLY: list = []
-
-
-def _leave_worker() -> None:
-    logging.shutdown()
-    for stream in (sys.stdout, sys.stderr):
-        with contextlib.suppress(Exception):
-            stream.flush()
-    os._exit(0)
-
-
 @contextlib.contextmanager
 def captured_output(sink: list):
     """Solver banners and library warnings during a task: written to a temporary file instead of the terminal
@@ -205,7 +155,7 @@ def _call(fn: Callable, index: int, task: Any, shared: Any, use_shared: bool,
           parent_pid: int | None = None, in_worker: bool = False) -> tuple[int, Any, str]:
     # One BLAS thread everywhere: thread count can change floating-point summation order.
     if parent_pid is not None:
-        _watch_parent(parent_pid)
+        watch_parent(parent_pid)
     if parent_pid is not None or in_worker:
         keep_freed_memory()
     if isinstance(shared, SharedFile):
@@ -261,7 +211,7 @@ def _run_processes(fn, tasks, shared, use_shared, n_jobs, address) -> Iterator[t
             folder = stack.enter_context(tempfile.TemporaryDirectory(
                 prefix="penduel-shared-", dir="/dev/shm" if os.access("/dev/shm", os.W_OK) else None))
             shared = SharedFile.write(shared, folder)
-        stack.enter_context(parallel_config(backend="loky", inner_max_num_threads=1, initializer=_start_loky_worker,
+        stack.enter_context(parallel_config(backend="loky", inner_max_num_threads=1, initializer=start_loky_worker,
                                             initargs=(os.getpid(),)))
         parallel = Parallel(n_jobs=n_jobs, return_as="generator_unordered")
         yield from parallel(delayed(_call)(fn, i, t, shared, use_shared, os.getpid()) for i, t in tasks)
@@ -395,21 +345,3 @@ def run_tasks(fn: Callable, tasks: Sequence, *, backend: str = "local", n_jobs: 
                     raise TaskFailed(first, _short_repr(tasks[first]),
                                      f"a worker process stopped ({type(exc).__name__}: {exc})") from exc
     return results
-
-
-def stop_group(proc, grace: float = 5.0) -> None:
-    """SIGTERM to a child's whole process group, SIGKILL after `grace` seconds; waits for the child."""
-    if proc.poll() is not None:
-        return
-    for sig, wait in ((signal.SIGTERM, grace), (signal.SIGKILL, None)):
-        try:
-            os.killpg(proc.pid, sig)
-        except ProcessLookupError:
-            return
-        try:
-            proc.wait(timeout=wait)
-            break
-        except Exception:   # subprocess.TimeoutExpired: escalate
-            continue
-    with contextlib.suppress(ProcessLookupError):
-        os.killpg(proc.pid, signal.SIGKILL)   # anything the server left behind in its group
