@@ -152,7 +152,7 @@ def bench_resampling_two_workers():
     inside["result_bytes_per_task"] = len(pickle.dumps(two[0], protocol=5))
     return [timed_pair("resampling_two_workers", two_workers, "same stage on one process",
                        lambda: run_stage(shared, tasks, 1),
-                       goal="ratio >= 1.7 (2 workers vs 1, 100 resample fit tasks)", repeats=3, min_ratio=1.7,
+                       goal="ratio >= 1.7 (2 workers vs 1, 100 resample fit tasks)", repeats=5, min_ratio=1.7,
                        extra={"bit_identical": identical, "load_average_before": load_before,
                               "load_average_after": os.getloadavg(), "cpu_count": os.cpu_count(), **inside})]
 

@@ -40,9 +40,11 @@ def timed_pair(
     min_ratio: float | None = None,
     extra: dict | None = None,
 ) -> dict:
-    """Time ours and the reference alternately in this process; ratio = reference / ours."""
-    ours_s, _ = median_seconds(ours, repeats)
-    ref_s, _ = median_seconds(reference, repeats)
+    """Time ours and the reference alternately in this process (ours, reference, ours, ...), so a change in the
+    machine's load during the measurement falls on both; ratio = median reference / median ours, with the
+    ratio of each pair beside it to show the spread."""
+    pairs = [(median_seconds(ours, 1)[0], median_seconds(reference, 1)[0]) for _ in range(repeats)]
+    ours_s, ref_s = statistics.median(o for o, _ in pairs), statistics.median(r for _, r in pairs)
     ratio = ref_s / ours_s if ours_s > 0 else float("inf")
     record = {
         "name": name,
@@ -50,6 +52,7 @@ def timed_pair(
         "reference": reference_name,
         "reference_seconds": ref_s,
         "ratio": ratio,
+        "pair_ratios": [r / o if o > 0 else float("inf") for o, r in pairs],
         "goal": goal,
     }
     if min_ratio is not None:
