@@ -5,7 +5,16 @@ from __future__ import annotations
 
 import multiprocessing
 import pathlib
+import signal
 import sys
+
+
+def _as_drawing_child() -> None:
+    """In a forked drawing process: the parent ends it when it is no longer needed (SIGTERM), and Ctrl-C is the
+    parent's to handle. A fork inherits the parent's handler, which turns SIGTERM into an interrupt; here that
+    printed a traceback on the user's terminal when the parent stopped a child that was already leaving."""
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
 def _draw(wanted) -> dict:
@@ -15,6 +24,7 @@ def _draw(wanted) -> dict:
 
 
 def _draw_to(send, wanted) -> None:
+    _as_drawing_child()
     try:
         send.send(_draw(wanted))
     except BaseException:   # the parent draws these itself and meets the error there
@@ -50,6 +60,7 @@ def draw_figures(wanted) -> dict:
 
 
 def _draw_to_pipe(send, *args) -> None:
+    _as_drawing_child()
     try:
         from . import write_report
 
