@@ -24,6 +24,7 @@ from tqdm import tqdm
 
 from .processes import start_loky_worker, watch_parent
 
+
 class TaskFailed(RuntimeError):
     """A task raised (or its worker died); the message names the task and carries the worker's traceback."""
 

@@ -16,14 +16,14 @@ class Terminated(KeyboardInterrupt):
     """SIGTERM: handled like Ctrl-C (the run is marked KILLED) but exits with 128 + 15."""
 
 
-def raise_terminated(signum, frame):
+def _raise_terminated(signum, frame):
     raise Terminated
 
 
 @contextlib.contextmanager
 def sigterm_as_interrupt():
     try:
-        previous = signal.signal(signal.SIGTERM, raise_terminated)
+        previous = signal.signal(signal.SIGTERM, _raise_terminated)
     except ValueError:   # not the main thread: signals cannot be handled here
         yield
         return
