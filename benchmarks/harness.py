@@ -18,6 +18,14 @@ import time
 from typing import Any, Callable
 
 
+def seconds(fn: Callable[[], Any]) -> float:
+    """Wall-clock seconds of one call of fn, after a garbage collection."""
+    gc.collect()
+    start = time.perf_counter()
+    fn()
+    return time.perf_counter() - start
+
+
 def median_seconds(fn: Callable[[], Any], repeats: int = 3) -> tuple[float, Any]:
     """Median wall-clock seconds of `repeats` calls of fn, and the last result."""
     times = []
@@ -43,7 +51,7 @@ def timed_pair(
     """Time ours and the reference alternately in this process (ours, reference, ours, ...), so a change in the
     machine's load during the measurement falls on both; ratio = median reference / median ours, with the
     ratio of each pair beside it to show the spread."""
-    pairs = [(median_seconds(ours, 1)[0], median_seconds(reference, 1)[0]) for _ in range(repeats)]
+    pairs = [(seconds(ours), seconds(reference)) for _ in range(repeats)]
     ours_s, ref_s = statistics.median(o for o, _ in pairs), statistics.median(r for _, r in pairs)
     ratio = ref_s / ours_s if ours_s > 0 else float("inf")
     record = {

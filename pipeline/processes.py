@@ -74,7 +74,9 @@ def start_loky_worker(parent_pid: int) -> None:
     """A joblib (loky) worker's initializer: watch the parent, and leave quickly when the pool stops it. A worker
     ends only when its pool stops it (or sits idle too long), after its last result was sent; tearing down
     its loaded libraries one object at a time would cost about half a second, which `penduel run` waits for
-    at its own exit. The exit handlers registered after this one (by what the tasks loaded) still run first."""
+    at its own exit. The exit handlers registered after this one (by what the tasks loaded) still run first.
+    The worker leaves with status 0: only a clean stop runs exit handlers (a crash or kill is a signal), and
+    loky reads worker statuses only while tasks are running, never after it stopped the pool."""
     watch_parent(parent_pid)
     if not _LEAVING_QUICKLY:
         _LEAVING_QUICKLY.append(True)
